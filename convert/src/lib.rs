@@ -1,0 +1,3 @@
+//! midge-convert: reads a model description and its safetensors weights,
+//! runs the float reference, calibrates, quantizes, plans memory, writes the
+//! flat layout through midge-runtime, and measures the accuracy drop.

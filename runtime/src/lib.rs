@@ -1,0 +1,16 @@
+//! midge-runtime: runs int8 and fp16 convolutional classifiers from the midge
+//! flat model layout, in place from flash, with one caller-provided workspace.
+//! `no_std`, no allocation, no panics reachable from model bytes or inputs.
+#![no_std]
+#![forbid(unsafe_code)]
+
+#[cfg(feature = "std")]
+extern crate std;
+
+#[cfg(target_endian = "big")]
+compile_error!("midge-runtime views little-endian model bytes in place; big-endian targets are not supported");
+
+pub mod geometry;
+pub mod repr;
+
+pub use repr::*;

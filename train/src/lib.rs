@@ -1,0 +1,1 @@
+//! midge-train: maintainers aid (float training, demo data).
