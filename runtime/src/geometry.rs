@@ -7,7 +7,14 @@ use crate::repr::{Padding, Window};
 /// Output length along one axis: floor((in + pad_lo + pad_hi − dil·(k−1) − 1) / stride) + 1,
 /// or `None` when the dilated kernel does not fit or a parameter is zero.
 /// (Dumoulin & Visin, "A guide to convolution arithmetic for deep learning", 2016, relationship 15.)
-pub fn output_len(input: u16, k: u16, stride: u16, dil: u16, pad_lo: u16, pad_hi: u16) -> Option<u16> {
+pub fn output_len(
+    input: u16,
+    k: u16,
+    stride: u16,
+    dil: u16,
+    pad_lo: u16,
+    pad_hi: u16,
+) -> Option<u16> {
     if k == 0 || stride == 0 || dil == 0 || input == 0 {
         return None;
     }
@@ -24,8 +31,22 @@ impl Window {
     /// Output (height, width) for an input of `in_h`×`in_w`, or `None` when
     /// the window is degenerate or larger than the padded input.
     pub fn output_hw(&self, in_h: u16, in_w: u16) -> Option<(u16, u16)> {
-        let oh = output_len(in_h, self.kh, self.stride_h, self.dil_h, self.pad_top, self.pad_bottom)?;
-        let ow = output_len(in_w, self.kw, self.stride_w, self.dil_w, self.pad_left, self.pad_right)?;
+        let oh = output_len(
+            in_h,
+            self.kh,
+            self.stride_h,
+            self.dil_h,
+            self.pad_top,
+            self.pad_bottom,
+        )?;
+        let ow = output_len(
+            in_w,
+            self.kw,
+            self.stride_w,
+            self.dil_w,
+            self.pad_left,
+            self.pad_right,
+        )?;
         Some((oh, ow))
     }
 }
@@ -34,7 +55,13 @@ impl Padding {
     /// Explicit window for kernel `k`, `stride`, `dil` (each (h, w)) on an
     /// `in_h`×`in_w` input. `Same` gives output ceil(in / stride) and puts
     /// the odd padding element at the bottom/right (common practice).
-    pub fn resolve(self, in_hw: (u16, u16), k: (u16, u16), stride: (u16, u16), dil: (u16, u16)) -> Window {
+    pub fn resolve(
+        self,
+        in_hw: (u16, u16),
+        k: (u16, u16),
+        stride: (u16, u16),
+        dil: (u16, u16),
+    ) -> Window {
         let [pad_top, pad_left, pad_bottom, pad_right] = match self {
             Padding::Valid => [0; 4],
             Padding::Explicit(p) => p,
@@ -68,5 +95,8 @@ fn same_pad(input: u16, k: u16, stride: u16, dil: u16) -> (u16, u16) {
     let needed = ((out.saturating_sub(1)) * stride + span).saturating_sub(input);
     let lo = needed / 2;
     let hi = needed - lo;
-    (lo.min(u16::MAX as u32) as u16, hi.min(u16::MAX as u32) as u16)
+    (
+        lo.min(u16::MAX as u32) as u16,
+        hi.min(u16::MAX as u32) as u16,
+    )
 }

@@ -8,9 +8,13 @@
 extern crate std;
 
 #[cfg(target_endian = "big")]
-compile_error!("midge-runtime views little-endian model bytes in place; big-endian targets are not supported");
+compile_error!(
+    "midge-runtime views little-endian model bytes in place; big-endian targets are not supported"
+);
 
+pub mod error;
 pub mod geometry;
 pub mod repr;
 
+pub use error::Error;
 pub use repr::*;

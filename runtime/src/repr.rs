@@ -188,7 +188,6 @@ pub struct Requant {
     pub rshift: i32,
 }
 
-
 /// The fixed part of one layer record.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct LayerHeader {

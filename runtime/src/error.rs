@@ -1,0 +1,79 @@
+//! The one error type of the runtime: every way a model file can be rejected
+//! by `parse`, and the few ways `run` can refuse its buffers.
+
+use core::fmt;
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Error {
+    /// The buffer ends before a structure does.
+    Truncated { needed: usize, available: usize },
+    /// Not a midge model file.
+    BadMagic,
+    /// A format version this runtime does not read.
+    UnsupportedVersion { found: u16, supported: u16 },
+    /// CRC-32 over the body does not match the header.
+    CrcMismatch { stored: u32, computed: u32 },
+    /// The model buffer or a blob is not aligned for an in-place view.
+    Misaligned { offset: usize, align: usize },
+    /// A section or blob reaches outside the file.
+    OutOfBounds {
+        what: &'static str,
+        offset: usize,
+        len: usize,
+        limit: usize,
+    },
+    /// A header or table field holds a value outside its allowed set.
+    BadField { what: &'static str, value: u32 },
+    /// Layer `index` is inconsistent (shape, parameter, blob length, ...).
+    Layer { index: usize, problem: &'static str },
+    /// Tensor `index` is inconsistent (size, offset, overlap, ...).
+    Tensor { index: usize, problem: &'static str },
+    /// Worst-case int32 accumulator of layer `index`, output channel `channel`, could overflow.
+    AccumulatorOverflow { layer: usize, channel: usize },
+    /// `run` got an input of the wrong byte length.
+    InputLength { expected: usize, found: usize },
+    /// `run` got a workspace of the wrong byte length.
+    WorkspaceLength { expected: usize, found: usize },
+    /// `run` got a workspace not aligned to 8 bytes.
+    WorkspaceMisaligned,
+}
+
+impl fmt::Display for Error {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match *self {
+            Error::Truncated { needed, available } => {
+                write!(f, "truncated: needs {needed} bytes, has {available}")
+            }
+            Error::BadMagic => write!(f, "not a midge model (bad magic)"),
+            Error::UnsupportedVersion { found, supported } => {
+                write!(f, "format version {found} is not supported (this runtime reads version {supported})")
+            }
+            Error::CrcMismatch { stored, computed } => {
+                write!(f, "CRC-32 mismatch: header says {stored:#010x}, body has {computed:#010x}")
+            }
+            Error::Misaligned { offset, align } => {
+                write!(f, "data at offset {offset} is not aligned to {align} bytes")
+            }
+            Error::OutOfBounds { what, offset, len, limit } => {
+                write!(f, "{what} at offset {offset} with length {len} exceeds {limit} bytes")
+            }
+            Error::BadField { what, value } => write!(f, "invalid {what}: {value}"),
+            Error::Layer { index, problem } => write!(f, "layer {index}: {problem}"),
+            Error::Tensor { index, problem } => write!(f, "tensor {index}: {problem}"),
+            Error::AccumulatorOverflow { layer, channel } => write!(
+                f,
+                "layer {layer}: worst-case int32 accumulator of output channel {channel} could overflow"
+            ),
+            Error::InputLength { expected, found } => {
+                write!(f, "input is {found} bytes, model expects {expected}")
+            }
+            Error::WorkspaceLength { expected, found } => {
+                write!(f, "workspace is {found} bytes, model needs {expected}")
+            }
+            Error::WorkspaceMisaligned => write!(f, "workspace is not aligned to 8 bytes"),
+        }
+    }
+}
+
+#[cfg(feature = "std")]
+impl std::error::Error for Error {}
