@@ -24,10 +24,35 @@ pub enum Error {
     },
     /// A header or table field holds a value outside its allowed set.
     BadField { what: &'static str, value: u32 },
+    /// A field of tensor record `index` holds a value outside its allowed set.
+    TensorField {
+        index: usize,
+        what: &'static str,
+        value: u32,
+    },
+    /// A field of layer record `index` holds a value outside its allowed set.
+    LayerField {
+        index: usize,
+        what: &'static str,
+        value: u32,
+    },
+    /// A structure is not where (or not as long as) the canonical layout puts it.
+    Layout {
+        what: &'static str,
+        expected: usize,
+        found: usize,
+    },
     /// Layer `index` is inconsistent (shape, parameter, blob length, ...).
     Layer { index: usize, problem: &'static str },
     /// Tensor `index` is inconsistent (size, offset, overlap, ...).
     Tensor { index: usize, problem: &'static str },
+    /// Layer `layer` writes tensor `output` over the workspace bytes of
+    /// tensor `live`, which is still needed during or after that layer.
+    Overlap {
+        layer: usize,
+        output: usize,
+        live: usize,
+    },
     /// Worst-case int32 accumulator of layer `index`, output channel `channel`, could overflow.
     AccumulatorOverflow { layer: usize, channel: usize },
     /// `run` got an input of the wrong byte length.
@@ -58,8 +83,21 @@ impl fmt::Display for Error {
                 write!(f, "{what} at offset {offset} with length {len} exceeds {limit} bytes")
             }
             Error::BadField { what, value } => write!(f, "invalid {what}: {value}"),
+            Error::TensorField { index, what, value } => {
+                write!(f, "tensor {index}: invalid {what}: {value}")
+            }
+            Error::LayerField { index, what, value } => {
+                write!(f, "layer {index}: invalid {what}: {value}")
+            }
+            Error::Layout { what, expected, found } => {
+                write!(f, "{what}: expected {expected}, found {found}")
+            }
             Error::Layer { index, problem } => write!(f, "layer {index}: {problem}"),
             Error::Tensor { index, problem } => write!(f, "tensor {index}: {problem}"),
+            Error::Overlap { layer, output, live } => write!(
+                f,
+                "layer {layer}: output tensor {output} overlaps live tensor {live} in the workspace"
+            ),
             Error::AccumulatorOverflow { layer, channel } => write!(
                 f,
                 "layer {layer}: worst-case int32 accumulator of output channel {channel} could overflow"

@@ -12,9 +12,19 @@ compile_error!(
     "midge-runtime views little-endian model bytes in place; big-endian targets are not supported"
 );
 
+pub mod crc;
+pub mod embed;
 pub mod error;
+pub mod exec;
+pub mod format;
 pub mod geometry;
+pub mod kernels;
+pub mod model;
 pub mod repr;
+pub mod requant;
+#[cfg(feature = "write")]
+pub mod write;
 
 pub use error::Error;
+pub use model::{Model, Observer, SectionSizes};
 pub use repr::*;

@@ -1,0 +1,156 @@
+//! The bench harness: parses the model QEMU's loader placed at `JOB_ADDR`,
+//! runs every input with per-layer SysTick readings, measures the stack
+//! high-water mark by painting, and prints the line protocol that
+//! `midge_bench::emulated` parses over semihosting stdout.
+#![no_std]
+#![no_main]
+
+use core::fmt::Write;
+use cortex_m_rt::{entry, exception};
+use cortex_m_semihosting::{debug, hio};
+use midge_firmware::*;
+use midge_runtime::{Model, Observer, TensorRecord};
+use panic_halt as _;
+
+/// Layers the harness keeps readings for; more are reported as an error.
+const MAX_LAYERS: usize = 512;
+
+struct Clock {
+    before: u64,
+    ticks: [u64; MAX_LAYERS],
+}
+
+impl Observer for Clock {
+    fn before_layer(&mut self, _index: usize) {
+        self.before = ticks();
+    }
+    fn after_layer(&mut self, index: usize, _out: &TensorRecord, _bytes: &[u8]) {
+        let now = ticks();
+        if let Some(slot) = self.ticks.get_mut(index) {
+            *slot = now.wrapping_sub(self.before);
+        }
+    }
+}
+
+#[exception]
+fn SysTick() {
+    clock_wrapped();
+}
+
+fn fail(out: &mut hio::HostStream, what: &str) -> ! {
+    let _ = writeln!(out, "error {what}");
+    debug::exit(debug::EXIT_FAILURE);
+    loop {
+        cortex_m::asm::nop();
+    }
+}
+
+fn hex_line(out: &mut hio::HostStream, bytes: &[u8]) {
+    const HEX: &[u8; 16] = b"0123456789abcdef";
+    let mut buf = [0u8; 128];
+    for chunk in bytes.chunks(64) {
+        for (i, b) in chunk.iter().enumerate() {
+            buf[2 * i] = HEX[(b >> 4) as usize];
+            buf[2 * i + 1] = HEX[(b & 15) as usize];
+        }
+        let _ = out.write_all(&buf[..2 * chunk.len()]);
+    }
+    let _ = out.write_all(b"\n");
+}
+
+#[entry]
+fn main() -> ! {
+    let mut out = match hio::hstdout() {
+        Ok(o) => o,
+        Err(_) => {
+            debug::exit(debug::EXIT_FAILURE);
+            loop {}
+        }
+    };
+    let mut cp = match cortex_m::Peripherals::take() {
+        Some(p) => p,
+        None => fail(&mut out, "core peripherals taken twice"),
+    };
+    clock_start(&mut cp.SYST);
+    let _ = writeln!(out, "harness 1");
+
+    // Calibration: the two loops differ by exactly 40 000 NOPs.
+    let t0 = ticks();
+    nops40(1000);
+    let t1 = ticks();
+    nops80(1000);
+    let t2 = ticks();
+    let _ = writeln!(out, "calibration a={} b={}", t1 - t0, t2 - t1);
+
+    // SAFETY: the host's loader wrote the job block there before reset; the
+    // harness's own data and stack live below JOB_ADDR (memory.x).
+    let head = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, JOB_HEADER_LEN) };
+    let job = match Job::parse_header(head) {
+        Ok(j) => j,
+        Err(e) => fail(&mut out, e),
+    };
+    if job.workspace_offset > JOB_CAPACITY {
+        fail(&mut out, "workspace offset outside the job area");
+    }
+    let block = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, job.workspace_offset) };
+    if let Err(e) = job.check(block) {
+        fail(&mut out, e);
+    }
+    let model_bytes = &block[job.model_offset..job.model_offset + job.model_len];
+    let model = match Model::parse(model_bytes) {
+        Ok(m) => m,
+        Err(e) => {
+            let _ = writeln!(out, "error model: {e}");
+            debug::exit(debug::EXIT_FAILURE);
+            loop {}
+        }
+    };
+    let ws_len = model.workspace_len();
+    if job.workspace_offset + ws_len > JOB_CAPACITY {
+        fail(&mut out, "workspace does not fit in the job area");
+    }
+    let layers = model.layer_count();
+    if layers > MAX_LAYERS {
+        fail(&mut out, "more layers than the harness keeps readings for");
+    }
+    let _ = writeln!(out, "model layers={layers} workspace={ws_len}");
+    let ws = unsafe {
+        core::slice::from_raw_parts_mut((JOB_ADDR + job.workspace_offset) as *mut u8, ws_len)
+    };
+
+    let mut clock = Clock {
+        before: 0,
+        ticks: [0; MAX_LAYERS],
+    };
+    let sp = paint_stack();
+    for k in 0..job.input_count {
+        let start = job.input_offset + k * job.input_len;
+        let input = &block[start..start + job.input_len];
+        let result = model.run_observed(input, ws, &mut clock);
+        let output = match result {
+            Ok(o) => o,
+            Err(e) => {
+                let _ = writeln!(out, "error run {k}: {e}");
+                debug::exit(debug::EXIT_FAILURE);
+                loop {}
+            }
+        };
+        let _ = writeln!(out, "run {k}");
+        for (i, t) in clock.ticks[..layers].iter().enumerate() {
+            let _ = writeln!(out, "layer {i} {t}");
+        }
+        let _ = write!(out, "output {k} ");
+        hex_line(&mut out, output);
+    }
+    let low = lowest_touched();
+    let (_, top) = stack_bounds();
+    let _ = writeln!(
+        out,
+        "stack total={} runtime={}",
+        top.saturating_sub(low),
+        sp.saturating_sub(low)
+    );
+    let _ = writeln!(out, "end");
+    debug::exit(debug::EXIT_SUCCESS);
+    loop {}
+}

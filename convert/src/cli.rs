@@ -1,0 +1,437 @@
+//! The `midge` command line: flag parsing (clap) and the wiring of library
+//! calls for `quantize`, `compare`, `classify` and `show`. `main.rs` only
+//! calls `run` and turns its result into an exit status.
+
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use clap::{Parser, Subcommand, ValueEnum};
+use midge_runtime::embed::AlignedBytes;
+use midge_runtime::{ElemType, Model, Op};
+
+use crate::calibrate::RangeMethod;
+use crate::compare::{self, op_name, CompareOptions};
+use crate::error::{Error, Result};
+use crate::firmware_module;
+use crate::graph::Precision;
+use crate::images::{self, ImageSpec};
+use crate::output;
+use crate::plan;
+use crate::quantize::{self, dequantize_tensor, QuantizeOptions};
+
+/// Exit status for bad input (missing file, parse error, ...).
+pub const EXIT_BAD_INPUT: i32 = 2;
+/// Exit status when `compare --max-drop` is exceeded.
+pub const EXIT_DROP_EXCEEDED: i32 = 3;
+
+#[derive(Parser, Debug)]
+#[command(
+    name = "midge",
+    version,
+    about = "Put small float CNN image classifiers onto microcontrollers: calibrate, quantize, plan memory, measure the accuracy drop"
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+pub enum Command {
+    /// Calibrate and quantize a model description into a .midge file.
+    Quantize(QuantizeArgs),
+    /// Quantize in memory and report the accuracy drop on labelled images.
+    Compare(CompareArgs),
+    /// Classify images with a .midge model (runs midge-runtime on the host).
+    Classify(ClassifyArgs),
+    /// Show a .midge model: layers, shapes, quantization, memory plan.
+    Show(ShowArgs),
+    // Further subcommands (e.g. `budget`) are added here and dispatched in `run`.
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
+pub enum PrecisionArg {
+    Int8,
+    Fp16,
+}
+
+impl From<PrecisionArg> for Precision {
+    fn from(p: PrecisionArg) -> Precision {
+        match p {
+            PrecisionArg::Int8 => Precision::Int8,
+            PrecisionArg::Fp16 => Precision::Fp16,
+        }
+    }
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
+pub enum MethodArg {
+    /// Smallest to largest value seen.
+    Minmax,
+    /// Clip both tails at --percentile.
+    Percentile,
+    /// Clip where the expected squared quantization error is least.
+    Mse,
+}
+
+/// Calibration and precision flags shared by `quantize` and `compare`.
+#[derive(clap::Args, Debug, Clone)]
+pub struct ConvertFlags {
+    /// Default precision of layers that set none in the description.
+    #[arg(long, value_enum)]
+    pub precision: Option<PrecisionArg>,
+    /// How activation ranges are chosen from calibration statistics.
+    #[arg(long, value_enum, default_value = "percentile")]
+    pub calibration_method: MethodArg,
+    /// Percentile (in percent, 50..=100) for --calibration-method percentile.
+    #[arg(long, default_value_t = 99.99)]
+    pub percentile: f64,
+    /// Calibration image folder instead of the description's `calibration`.
+    #[arg(long, value_name = "DIR")]
+    pub calibration: Option<PathBuf>,
+}
+
+impl ConvertFlags {
+    pub fn options(&self) -> QuantizeOptions {
+        QuantizeOptions {
+            precision: self.precision.map(Into::into),
+            method: match self.calibration_method {
+                MethodArg::Minmax => RangeMethod::MinMax,
+                MethodArg::Percentile => RangeMethod::Percentile(self.percentile),
+                MethodArg::Mse => RangeMethod::Mse,
+            },
+            calibration: self.calibration.clone(),
+            progress: true,
+        }
+    }
+}
+
+#[derive(clap::Args, Debug)]
+pub struct QuantizeArgs {
+    /// Model description (TOML).
+    pub description: PathBuf,
+    /// Output model file [default: the description's path with extension .midge].
+    #[arg(short, long, value_name = "FILE")]
+    pub output: Option<PathBuf>,
+    #[command(flatten)]
+    pub flags: ConvertFlags,
+    /// Also write a Rust module embedding the model (for firmware crates).
+    #[arg(long, value_name = "FILE")]
+    pub rust_module: Option<PathBuf>,
+}
+
+#[derive(clap::Args, Debug)]
+pub struct CompareArgs {
+    /// Model description (TOML).
+    pub description: PathBuf,
+    #[command(flatten)]
+    pub flags: ConvertFlags,
+    /// Also evaluate an all-fp16 conversion.
+    #[arg(long)]
+    pub also_fp16: bool,
+    /// Print the report as JSON instead of a table.
+    #[arg(long)]
+    pub json: bool,
+    /// Exit with status 3 when the top-1 drop exceeds this many percentage points.
+    #[arg(long, value_name = "PP")]
+    pub max_drop: Option<f64>,
+    /// Labelled image folder (one sub-folder per label) instead of the
+    /// description's `validation`.
+    #[arg(long, value_name = "DIR")]
+    pub images: Option<PathBuf>,
+}
+
+#[derive(clap::Args, Debug)]
+pub struct ClassifyArgs {
+    /// Model file (.midge).
+    pub model: PathBuf,
+    /// Images (PNG, JPEG or BMP).
+    #[arg(required = true)]
+    pub images: Vec<PathBuf>,
+    /// Resize images of another size (bilinear) instead of refusing them.
+    #[arg(long)]
+    pub resize: bool,
+    /// How many classes to list per image.
+    #[arg(long, default_value_t = 3)]
+    pub top: usize,
+}
+
+#[derive(clap::Args, Debug)]
+pub struct ShowArgs {
+    /// Model file (.midge).
+    pub model: PathBuf,
+}
+
+/// Run a parsed command line; `Ok(status)` with what to print already
+/// printed. Errors are bad input (exit status 2).
+pub fn run(cli: Cli) -> Result<i32> {
+    match cli.command {
+        Command::Quantize(a) => cmd_quantize(&a),
+        Command::Compare(a) => cmd_compare(&a),
+        Command::Classify(a) => cmd_classify(&a),
+        Command::Show(a) => cmd_show(&a),
+    }
+}
+
+fn default_output(desc: &Path) -> PathBuf {
+    desc.with_extension("midge")
+}
+
+fn method_text(m: RangeMethod) -> String {
+    match m {
+        RangeMethod::MinMax => "min/max".into(),
+        RangeMethod::Percentile(p) => format!("percentile {p}"),
+        RangeMethod::Mse => "MSE clip search".into(),
+    }
+}
+
+fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
+    let opts = a.flags.options();
+    let conv = quantize::quantize_description(&a.description, &opts)?;
+    let out = a.output.clone().unwrap_or_else(|| default_output(&a.description));
+    let q = &conv.quantized;
+    let module = a
+        .rust_module
+        .as_ref()
+        .map(|m| (m.clone(), firmware_module::module_source(&q.spec, &out, m)));
+    let mut files: Vec<(&Path, &[u8])> = vec![(&out, &q.bytes)];
+    if let Some((path, text)) = &module {
+        files.push((path, text.as_bytes()));
+    }
+    output::write_all_atomic(&files)?;
+    for w in &conv.warnings {
+        eprintln!("warning: {}: weight tensor {w} is not used by the description", a.description.display());
+    }
+    let int8 = conv.graph.nodes.iter().filter(|n| n.precision == Precision::Int8).count();
+    println!(
+        "wrote {} ({} bytes): model {}, {} layers ({} int8, {} fp16 of {} description nodes)",
+        out.display(),
+        q.bytes.len(),
+        q.spec.name,
+        q.spec.layers.len(),
+        int8,
+        conv.graph.nodes.len() - int8,
+        conv.graph.nodes.len()
+    );
+    println!(
+        "calibration: {} images, {}",
+        conv.calibration_images,
+        method_text(opts.method)
+    );
+    println!(
+        "memory plan: workspace {} bytes (lower bound {} bytes, {:.1} % above)",
+        q.plan.workspace_len,
+        q.plan.lower_bound,
+        over(q.plan.workspace_len, q.plan.lower_bound)
+    );
+    if let Some((path, _)) = &module {
+        println!("rust module: {}", path.display());
+    }
+    Ok(0)
+}
+
+fn over(achieved: usize, bound: usize) -> f64 {
+    if bound == 0 {
+        0.0
+    } else {
+        100.0 * (achieved as f64 - bound as f64) / bound as f64
+    }
+}
+
+fn cmd_compare(a: &CompareArgs) -> Result<i32> {
+    if let Some(d) = a.max_drop {
+        if !d.is_finite() {
+            return Err(Error::new("--max-drop", format!("must be a number of percentage points, found {d}")));
+        }
+    }
+    let opts = CompareOptions {
+        quantize: a.flags.options(),
+        also_fp16: a.also_fp16,
+        images: a.images.clone(),
+    };
+    let report = compare::compare(&a.description, &opts)?;
+    if a.json {
+        let text = serde_json::to_string_pretty(&report)
+            .map_err(|e| Error::new("report", format!("cannot write JSON: {e}")))?;
+        println!("{text}");
+    } else {
+        print!("{}", report.to_text());
+    }
+    if let Some(limit) = a.max_drop {
+        if report.drop_pp > limit {
+            eprintln!(
+                "midge: accuracy drop {:.2} pp exceeds --max-drop {limit}",
+                report.drop_pp
+            );
+            return Ok(EXIT_DROP_EXCEEDED);
+        }
+    }
+    Ok(0)
+}
+
+/// Read a model file into aligned bytes and check that it parses.
+pub fn read_model(path: &Path) -> Result<AlignedBytes> {
+    let place = path.display().to_string();
+    let raw = std::fs::read(path).map_err(|e| Error::new(&place, format!("cannot read: {e}")))?;
+    let bytes = AlignedBytes::from_slice(&raw);
+    Model::parse(&bytes).map_err(|e| Error::new(&place, format!("not a valid midge model: {e}")))?;
+    Ok(bytes)
+}
+
+fn parse_model<'a>(bytes: &'a AlignedBytes, path: &Path) -> Result<Model<'a>> {
+    Model::parse(bytes)
+        .map_err(|e| Error::new(path.display().to_string(), format!("not a valid midge model: {e}")))
+}
+
+/// Softmax of logits (host side, f64, shifted by the maximum).
+pub fn softmax(logits: &[f32]) -> Vec<f64> {
+    let m = logits.iter().fold(f32::NEG_INFINITY, |a, &b| a.max(b)) as f64;
+    let e: Vec<f64> = logits.iter().map(|&v| (v as f64 - m).exp()).collect();
+    let s: f64 = e.iter().sum();
+    e.iter().map(|v| v / s).collect()
+}
+
+fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
+    let bytes = read_model(&a.model)?;
+    let model = parse_model(&bytes, &a.model)?;
+    let inp = model.input();
+    let spec = ImageSpec {
+        h: inp.shape.h as u32,
+        w: inp.shape.w as u32,
+        c: inp.shape.c as u32,
+        resize: a.resize,
+    };
+    let mut ws = AlignedBytes::zeroed(model.workspace_len());
+    for img in &a.images {
+        let px = images::load_image(img, &spec)?;
+        let out = model
+            .run(&px, &mut ws)
+            .map_err(|e| Error::new(img.display().to_string(), format!("the runtime failed: {e}")))?;
+        let rec = model.output();
+        let logits = dequantize_tensor(&rec, out);
+        let top = midge_runtime::exec::top1(&rec, out).map(|(i, _)| i).unwrap_or(0);
+        let p = softmax(&logits);
+        let mut order: Vec<usize> = (0..p.len()).collect();
+        order.sort_by(|&i, &j| p[j].total_cmp(&p[i]).then(i.cmp(&j)));
+        let label = |i: usize| model.label(i).map(str::to_string).unwrap_or_else(|| format!("class {i}"));
+        let mut line = format!("{}: {} ({:.3})", img.display(), label(top), p.get(top).copied().unwrap_or(0.0));
+        let rest: Vec<String> = order
+            .iter()
+            .take(a.top.max(1))
+            .map(|&i| format!("{} {:.3}", label(i), p[i]))
+            .collect();
+        let _ = write!(line, "  [{}]", rest.join(", "));
+        println!("{line}");
+    }
+    Ok(0)
+}
+
+fn elem_name(e: ElemType) -> &'static str {
+    match e {
+        ElemType::U8 => "u8",
+        ElemType::I8 => "int8",
+        ElemType::F16 => "fp16",
+    }
+}
+
+/// The text `midge show` prints.
+pub fn show_text(model: &Model<'_>) -> String {
+    let mut s = String::new();
+    let labels: Vec<&str> = (0..model.label_count()).filter_map(|i| model.label(i)).collect();
+    let _ = writeln!(s, "model {} — {} bytes, {} layers, {} tensors", model.name(), model.bytes().len(), model.layer_count(), model.tensor_count());
+    let _ = writeln!(s, "labels: {}", labels.join(", "));
+    let sec = model.sections();
+    let _ = writeln!(
+        s,
+        "file: header {} B, tensor table {} B, layer table {} B, weights {} B, biases {} B, params {} B, strings {} B, padding {} B",
+        sec.header, sec.tensor_table, sec.layer_table, sec.weights, sec.biases, sec.params, sec.strings, sec.padding
+    );
+    let _ = writeln!(s);
+    let _ = writeln!(
+        s,
+        "  {:>3}  {:<15} {:<6} {:>9}  {:>4} {:<14} {:<5} {:>11} {:>5} {:>8} {:>7} {:>10}",
+        "#", "op", "act", "inputs", "out", "shape HxWxC", "type", "scale", "zp", "offset", "bytes", "MACs"
+    );
+    let mut sizes = vec![0usize; model.tensor_count()];
+    let mut steps = Vec::new();
+    for i in 0..model.layer_count() {
+        let Some(l) = model.layer(i) else { continue };
+        let h = l.header;
+        let ins: Vec<usize> = h.inputs[..h.op.arity()].iter().map(|&t| t as usize).collect();
+        steps.push((ins.clone(), h.output as usize));
+        let Some(t) = model.tensor(h.output as usize) else { continue };
+        sizes[h.output as usize] = t.byte_len();
+        let act = match h.act {
+            midge_runtime::Activation::None => "-",
+            midge_runtime::Activation::Relu => "relu",
+            midge_runtime::Activation::Relu6 => "relu6",
+        };
+        let ins_text: Vec<String> = ins.iter().map(|t| format!("t{t}")).collect();
+        let quant = if t.elem == ElemType::I8 {
+            (format!("{:.5e}", t.quant.scale), t.quant.zero_point.to_string())
+        } else {
+            ("-".into(), "-".into())
+        };
+        let win = if matches!(h.op, Op::Conv2d | Op::Depthwise | Op::MaxPool | Op::AvgPool) {
+            format!(" k{}x{} s{}", h.window.kh, h.window.kw, h.window.stride_h)
+        } else {
+            String::new()
+        };
+        let _ = writeln!(
+            s,
+            "  {:>3}  {:<15} {:<6} {:>9}  {:>4} {:<14} {:<5} {:>11} {:>5} {:>8} {:>7} {:>10}{}",
+            i,
+            op_name(h.op),
+            act,
+            ins_text.join(","),
+            format!("t{}", h.output),
+            format!("{}x{}x{}", t.shape.h, t.shape.w, t.shape.c),
+            elem_name(t.elem),
+            quant.0,
+            quant.1,
+            t.offset,
+            t.byte_len(),
+            model.layer_macs(i),
+            win
+        );
+    }
+    let inp = model.input();
+    let out = model.output();
+    let _ = writeln!(s);
+    let _ = writeln!(
+        s,
+        "input t0: {}x{}x{} {} (scale {}, passed by the caller)",
+        inp.shape.h, inp.shape.w, inp.shape.c, elem_name(inp.elem), inp.quant.scale
+    );
+    let _ = writeln!(
+        s,
+        "output t{}: {}x{}x{} {}",
+        model.output_id(), out.shape.h, out.shape.w, out.shape.c, elem_name(out.elem)
+    );
+    let lt = plan::lifetimes(&sizes, &steps, model.output_id(), &[0]);
+    let _ = writeln!(
+        s,
+        "memory plan: workspace {} bytes, lower bound {} bytes (max over layers of the live tensor bytes)",
+        model.workspace_len(),
+        plan::lower_bound(&lt)
+    );
+    for (t, l) in lt.iter().enumerate() {
+        if let (Some(l), Some(rec)) = (l, model.tensor(t)) {
+            let _ = writeln!(
+                s,
+                "  t{t:<3} [{:>7}, {:>7})  live layers {}..={}",
+                rec.offset,
+                rec.offset as usize + rec.byte_len(),
+                l.first,
+                l.last
+            );
+        }
+    }
+    s
+}
+
+fn cmd_show(a: &ShowArgs) -> Result<i32> {
+    let bytes = read_model(&a.model)?;
+    let model = parse_model(&bytes, &a.model)?;
+    print!("{}", show_text(&model));
+    Ok(0)
+}

@@ -1,0 +1,434 @@
+//! The accuracy-drop report: float reference vs the quantized model run by
+//! midge-runtime itself on a labelled folder — top-1, drop, agreement,
+//! per-class accuracy, confusion, per-layer SQNR and logit error.
+
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use midge_runtime::embed::AlignedBytes;
+use midge_runtime::{exec, ElemType, Model, Observer, TensorRecord};
+use serde::Serialize;
+
+use crate::calibrate::progress_bar;
+use crate::error::{Error, Result};
+use crate::float_ref;
+use crate::graph::{FloatGraph, Precision};
+use crate::images;
+use crate::quantize::{
+    dequantize_tensor, image_spec, quantize_description, quantize_graph, Conversion,
+    QuantizeOptions, Quantized,
+};
+
+/// Options of one comparison (the CLI's `compare` flags).
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct CompareOptions {
+    pub quantize: QuantizeOptions,
+    /// Also evaluate an all-fp16 conversion of the same model.
+    pub also_fp16: bool,
+    /// Labelled folder instead of the description's `validation`.
+    pub images: Option<PathBuf>,
+}
+
+/// Per-layer signal-to-quantization-noise ratio.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct LayerRow {
+    pub name: String,
+    pub op: String,
+    /// `int8` or `fp16` (the layer's output).
+    pub precision: String,
+    /// 10·log10(Σx² / Σ(x − x̂)²) over all images, x the float activation and
+    /// x̂ the dequantized runtime activation; `null` when the two are equal.
+    pub sqnr_db: Option<f64>,
+}
+
+/// Accuracy of one class.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct ClassRow {
+    pub label: String,
+    pub images: usize,
+    pub float_top1: f64,
+    pub quantized_top1: f64,
+}
+
+/// The all-fp16 variant, when asked for.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Fp16Row {
+    pub top1: f64,
+    pub drop_pp: f64,
+    pub agreement: f64,
+    pub mean_abs_logit_error: f64,
+    pub max_abs_logit_error: f64,
+}
+
+/// The accuracy-drop report. Accuracies and agreement are percentages;
+/// `drop_pp` is float minus quantized, in percentage points.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Report {
+    pub model: String,
+    pub images: usize,
+    /// Precision of the quantized model: `int8`, `fp16` or `mixed`.
+    pub precision: String,
+    pub float_top1: f64,
+    pub quantized_top1: f64,
+    pub drop_pp: f64,
+    pub agreement: f64,
+    pub mean_abs_logit_error: f64,
+    pub max_abs_logit_error: f64,
+    pub fp16: Option<Fp16Row>,
+    pub per_class: Vec<ClassRow>,
+    pub labels: Vec<String>,
+    /// Quantized model: `confusion[true][predicted]` image counts.
+    pub confusion: Vec<Vec<usize>>,
+    /// Float reference: `float_confusion[true][predicted]`.
+    pub float_confusion: Vec<Vec<usize>>,
+    pub layers: Vec<LayerRow>,
+    pub workspace_len: usize,
+    pub workspace_lower_bound: usize,
+    pub model_bytes: usize,
+}
+
+fn pct(n: usize, d: usize) -> f64 {
+    if d == 0 {
+        0.0
+    } else {
+        100.0 * n as f64 / d as f64
+    }
+}
+
+/// Index of the largest value, lowest index on ties, NaN skipped.
+pub fn argmax(v: &[f32]) -> Option<usize> {
+    let mut best: Option<usize> = None;
+    for (i, x) in v.iter().enumerate() {
+        if x.is_nan() {
+            continue;
+        }
+        if best.map_or(true, |b| *x > v[b]) {
+            best = Some(i);
+        }
+    }
+    best
+}
+
+/// Collects, per runtime layer, Σx² and Σ(x − x̂)² against the float tensors
+/// of the current image.
+struct Sqnr<'a> {
+    source: &'a [Option<usize>],
+    outputs: &'a [usize],
+    float: &'a [Vec<f32>],
+    signal: Vec<f64>,
+    noise: Vec<f64>,
+}
+
+impl Observer for Sqnr<'_> {
+    fn after_layer(&mut self, i: usize, out: &TensorRecord, bytes: &[u8]) {
+        let Some(t) = self.outputs.get(i).and_then(|&o| self.source.get(o).copied().flatten())
+        else {
+            return;
+        };
+        let Some(x) = self.float.get(t) else { return };
+        let q = dequantize_tensor(out, bytes);
+        for (a, b) in x.iter().zip(&q) {
+            let (a, b) = (*a as f64, *b as f64);
+            self.signal[i] += a * a;
+            self.noise[i] += (a - b) * (a - b);
+        }
+    }
+}
+
+/// One quantized model ready to run on the host.
+struct Runner {
+    bytes: AlignedBytes,
+    ws: AlignedBytes,
+}
+
+impl Runner {
+    fn new(q: &Quantized, place: &str) -> Result<Runner> {
+        let bytes = AlignedBytes::from_slice(&q.bytes);
+        let len = Model::parse(&bytes)
+            .map_err(|e| Error::new(place, format!("the runtime rejects the model: {e}")))?
+            .workspace_len();
+        Ok(Runner {
+            bytes,
+            ws: AlignedBytes::zeroed(len),
+        })
+    }
+
+    /// Run once; `(top-1, dequantized logits)`.
+    fn run(&mut self, px: &[u8], obs: &mut impl Observer, place: &str) -> Result<(usize, Vec<f32>)> {
+        let model = Model::parse(&self.bytes)
+            .map_err(|e| Error::new(place, format!("the runtime rejects the model: {e}")))?;
+        let out_rec = model.output();
+        let out = model
+            .run_observed(px, &mut self.ws, obs)
+            .map_err(|e| Error::new(place, format!("the runtime failed: {e}")))?;
+        let top = exec::top1(&out_rec, out)
+            .map(|(i, _)| i)
+            .ok_or_else(|| Error::new(place, "the model output has no top-1"))?;
+        Ok((top, dequantize_tensor(&out_rec, out)))
+    }
+}
+
+fn precision_name(graph: &FloatGraph) -> String {
+    let int8 = graph.nodes.iter().filter(|n| n.precision == Precision::Int8).count();
+    match int8 {
+        0 => "fp16".into(),
+        n if n == graph.nodes.len() => "int8".into(),
+        _ => "mixed".into(),
+    }
+}
+
+/// Quantize the description (in memory) and evaluate it. See [`evaluate`].
+pub fn compare(desc_path: &Path, opts: &CompareOptions) -> Result<Report> {
+    let conv = quantize_description(desc_path, &opts.quantize)?;
+    let dir = opts
+        .images
+        .clone()
+        .or_else(|| conv.desc.validation.clone())
+        .ok_or_else(|| {
+            Error::new(
+                desc_path.display().to_string(),
+                "no validation images: set `validation` in the description or pass a folder",
+            )
+        })?;
+    evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)
+}
+
+/// Evaluate a conversion on the labelled folder `dir`.
+pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) -> Result<Report> {
+    let graph = &conv.graph;
+    let q = &conv.quantized;
+    let labels = &graph.labels;
+    let files = images::labelled_folder(dir, labels)?;
+    let spec = image_spec(&conv.desc);
+    let place = graph.name.clone();
+    let mut main = Runner::new(q, &place)?;
+    let mut fp16 = if also_fp16 {
+        let mut g = graph.clone();
+        g.nodes.iter_mut().for_each(|n| n.precision = Precision::Fp16);
+        let q16 = quantize_graph(&g, &conv.ranges)?;
+        Some(Runner::new(&q16, &place)?)
+    } else {
+        None
+    };
+    let outputs: Vec<usize> = q.spec.layers.iter().map(|l| l.header.output as usize).collect();
+    let n_layers = outputs.len();
+    let mut signal = vec![0.0; n_layers];
+    let mut noise = vec![0.0; n_layers];
+    let k = labels.len();
+    let mut confusion = vec![vec![0usize; k]; k];
+    let mut float_confusion = vec![vec![0usize; k]; k];
+    let (mut f_ok, mut q_ok, mut agree) = (0, 0, 0);
+    let (mut h_ok, mut h_agree) = (0, 0);
+    let (mut err_sum, mut err_max, mut err_n) = (0.0f64, 0.0f64, 0usize);
+    let (mut h_sum, mut h_max) = (0.0f64, 0.0f64);
+    let bar = progress_bar(progress, files.len() as u64, "evaluating");
+    for (file, truth) in &files {
+        let px = images::load_image(file, &spec)?;
+        let tensors = float_ref::run(graph, &px);
+        let logits = tensors.last().cloned().unwrap_or_default();
+        let f_top = argmax(&logits).unwrap_or(0);
+        let mut obs = Sqnr {
+            source: &q.source,
+            outputs: &outputs,
+            float: &tensors,
+            signal: std::mem::take(&mut signal),
+            noise: std::mem::take(&mut noise),
+        };
+        let (q_top, q_logits) = main.run(&px, &mut obs, &place)?;
+        signal = obs.signal;
+        noise = obs.noise;
+        for (a, b) in logits.iter().zip(&q_logits) {
+            let e = (*a as f64 - *b as f64).abs();
+            err_sum += e;
+            err_max = err_max.max(e);
+            err_n += 1;
+        }
+        f_ok += (f_top == *truth) as usize;
+        q_ok += (q_top == *truth) as usize;
+        agree += (f_top == q_top) as usize;
+        if let Some(cell) = confusion.get_mut(*truth).and_then(|r| r.get_mut(q_top)) {
+            *cell += 1;
+        }
+        if let Some(cell) = float_confusion.get_mut(*truth).and_then(|r| r.get_mut(f_top)) {
+            *cell += 1;
+        }
+        if let Some(r) = fp16.as_mut() {
+            let (h_top, h_logits) = r.run(&px, &mut (), &place)?;
+            h_ok += (h_top == *truth) as usize;
+            h_agree += (h_top == f_top) as usize;
+            for (a, b) in logits.iter().zip(&h_logits) {
+                let e = (*a as f64 - *b as f64).abs();
+                h_sum += e;
+                h_max = h_max.max(e);
+            }
+        }
+        bar.inc(1);
+    }
+    bar.finish_and_clear();
+    let n = files.len();
+    let float_top1 = pct(f_ok, n);
+    let quantized_top1 = pct(q_ok, n);
+    let per_class = labels
+        .iter()
+        .enumerate()
+        .map(|(c, l)| {
+            let count = files.iter().filter(|(_, t)| *t == c).count();
+            ClassRow {
+                label: l.clone(),
+                images: count,
+                float_top1: pct(float_confusion[c][c], count),
+                quantized_top1: pct(confusion[c][c], count),
+            }
+        })
+        .collect();
+    let model = Model::parse(&main.bytes)
+        .map_err(|e| Error::new(&place, format!("the runtime rejects the model: {e}")))?;
+    let layers = (0..n_layers)
+        .map(|i| {
+            let h = model.layer(i).map(|l| l.header);
+            let out = model.tensor(outputs[i]);
+            LayerRow {
+                name: q.layer_names.get(i).cloned().unwrap_or_default(),
+                op: h.map(|h| op_name(h.op)).unwrap_or("?").into(),
+                precision: match out.map(|t| t.elem) {
+                    Some(ElemType::F16) => "fp16".into(),
+                    _ => "int8".into(),
+                },
+                sqnr_db: sqnr_db(signal[i], noise[i]),
+            }
+        })
+        .collect();
+    Ok(Report {
+        model: graph.name.clone(),
+        images: n,
+        precision: precision_name(graph),
+        float_top1,
+        quantized_top1,
+        drop_pp: float_top1 - quantized_top1,
+        agreement: pct(agree, n),
+        mean_abs_logit_error: if err_n > 0 { err_sum / err_n as f64 } else { 0.0 },
+        max_abs_logit_error: err_max,
+        fp16: fp16.map(|_| Fp16Row {
+            top1: pct(h_ok, n),
+            drop_pp: float_top1 - pct(h_ok, n),
+            agreement: pct(h_agree, n),
+            mean_abs_logit_error: if err_n > 0 { h_sum / err_n as f64 } else { 0.0 },
+            max_abs_logit_error: h_max,
+        }),
+        per_class,
+        labels: labels.clone(),
+        confusion,
+        float_confusion,
+        layers,
+        workspace_len: q.plan.workspace_len,
+        workspace_lower_bound: q.plan.lower_bound,
+        model_bytes: q.bytes.len(),
+    })
+}
+
+/// 10·log10(signal / noise); `None` when the noise is zero.
+pub fn sqnr_db(signal: f64, noise: f64) -> Option<f64> {
+    if noise > 0.0 {
+        Some(10.0 * (signal / noise).log10())
+    } else {
+        None
+    }
+}
+
+/// Our short names of the runtime ops, for tables.
+pub fn op_name(op: midge_runtime::Op) -> &'static str {
+    use midge_runtime::Op;
+    match op {
+        Op::Pixels => "pixels",
+        Op::Conv2d => "conv2d",
+        Op::Depthwise => "depthwise",
+        Op::MaxPool => "maxpool",
+        Op::AvgPool => "avgpool",
+        Op::GlobalAvgPool => "global_avgpool",
+        Op::Dense => "dense",
+        Op::Add => "add",
+        Op::Quantize => "quantize",
+        Op::Dequantize => "dequantize",
+    }
+}
+
+impl Report {
+    /// The terminal table.
+    pub fn to_text(&self) -> String {
+        let mut s = String::new();
+        let _ = writeln!(
+            s,
+            "{} — {} images, {} model ({} bytes, workspace {} B, lower bound {} B)",
+            self.model,
+            self.images,
+            self.precision,
+            self.model_bytes,
+            self.workspace_len,
+            self.workspace_lower_bound
+        );
+        let _ = writeln!(s);
+        let _ = writeln!(s, "  {:<10} {:>8} {:>10} {:>10} {:>12} {:>12}", "", "top-1 %", "drop pp", "agree %", "mean |err|", "max |err|");
+        let _ = writeln!(s, "  {:<10} {:>8.2} {:>10} {:>10} {:>12} {:>12}", "float", self.float_top1, "-", "-", "-", "-");
+        let _ = writeln!(
+            s,
+            "  {:<10} {:>8.2} {:>10.2} {:>10.2} {:>12.4} {:>12.4}",
+            self.precision, self.quantized_top1, self.drop_pp, self.agreement, self.mean_abs_logit_error, self.max_abs_logit_error
+        );
+        if let Some(h) = &self.fp16 {
+            let _ = writeln!(
+                s,
+                "  {:<10} {:>8.2} {:>10.2} {:>10.2} {:>12.4} {:>12.4}",
+                "all fp16", h.top1, h.drop_pp, h.agreement, h.mean_abs_logit_error, h.max_abs_logit_error
+            );
+        }
+        let _ = writeln!(s);
+        let _ = writeln!(s, "  per class        images  float %  quant %");
+        for c in &self.per_class {
+            let _ = writeln!(s, "  {:<16} {:>6} {:>8.1} {:>8.1}", c.label, c.images, c.float_top1, c.quantized_top1);
+        }
+        let _ = writeln!(s);
+        let _ = writeln!(s, "  confusion (quantized; rows true, columns predicted)");
+        let w = self.labels.iter().map(|l| l.len()).max().unwrap_or(4).clamp(4, 12);
+        let _ = write!(s, "  {:<w$}", "");
+        for l in &self.labels {
+            let _ = write!(s, " {:>w$}", truncate(l, w));
+        }
+        let _ = writeln!(s);
+        for (l, row) in self.labels.iter().zip(&self.confusion) {
+            let _ = write!(s, "  {:<w$}", truncate(l, w));
+            for v in row {
+                let _ = write!(s, " {v:>w$}");
+            }
+            let _ = writeln!(s);
+        }
+        let _ = writeln!(s);
+        let _ = writeln!(s, "  layer                    op              out    SQNR dB");
+        for l in &self.layers {
+            let db = match l.sqnr_db {
+                Some(v) => format!("{v:>9.1}"),
+                None => format!("{:>9}", "exact"),
+            };
+            let _ = writeln!(s, "  {:<24} {:<15} {:<5} {db}", truncate(&l.name, 24), l.op, l.precision);
+        }
+        s
+    }
+}
+
+fn truncate(s: &str, n: usize) -> String {
+    s.chars().take(n).collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sqnr_and_argmax() {
+        // Signal power 100, noise power 1 → 20 dB (definition of the decibel:
+        // 10·log10 of a power ratio; common practice).
+        assert!((sqnr_db(100.0, 1.0).unwrap() - 20.0).abs() < 1e-12);
+        assert_eq!(sqnr_db(5.0, 0.0), None);
+        assert_eq!(argmax(&[1.0, 3.0, 3.0, f32::NAN]), Some(1));
+        assert_eq!(argmax(&[f32::NAN]), None);
+    }
+}

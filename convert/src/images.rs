@@ -1,0 +1,245 @@
+//! Image input for calibration, evaluation and `classify`: PNG/JPEG/BMP files
+//! into HWC u8 pixels of the model's input size, plain folders (sorted) and
+//! labelled folders (one sub-folder per class label).
+
+use std::fs;
+use std::path::{Path, PathBuf};
+
+use image::imageops::FilterType;
+
+use crate::error::{Error, Result};
+
+/// What the model's input wants: size, channel count (1 = grey, 3 = RGB) and
+/// whether other sizes are resized (bilinear, `FilterType::Triangle`) or refused.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct ImageSpec {
+    pub h: u32,
+    pub w: u32,
+    pub c: u32,
+    pub resize: bool,
+}
+
+/// Load one image as HWC u8 pixels matching `spec`. Colour images become
+/// grey by the `image` crate's luma conversion (ITU-R BT.709 weights) when
+/// the model takes one channel; grey images are repeated into R, G and B
+/// when it takes three. Alpha is dropped.
+pub fn load_image(path: &Path, spec: &ImageSpec) -> Result<Vec<u8>> {
+    let place = path.display().to_string();
+    let img = image::ImageReader::open(path)
+        .map_err(|e| Error::new(&place, format!("cannot open: {e}")))?
+        .with_guessed_format()
+        .map_err(|e| Error::new(&place, format!("cannot read: {e}")))?
+        .decode()
+        .map_err(|e| Error::new(&place, format!("not a readable PNG/JPEG/BMP image: {e}")))?;
+    let (w, h) = (img.width(), img.height());
+    let img = if (h, w) != (spec.h, spec.w) {
+        if !spec.resize {
+            return Err(Error::new(
+                &place,
+                format!(
+                    "image is {w}×{h} (width×height), the model input is {}×{}; resize it or set `resize = true` in the description",
+                    spec.w, spec.h
+                ),
+            ));
+        }
+        img.resize_exact(spec.w, spec.h, FilterType::Triangle)
+    } else {
+        img
+    };
+    match spec.c {
+        1 => Ok(img.to_luma8().into_raw()),
+        3 => Ok(img.to_rgb8().into_raw()),
+        c => Err(Error::new(
+            &place,
+            format!("model input has {c} channels; images can feed 1 (grey) or 3 (RGB)"),
+        )),
+    }
+}
+
+fn is_hidden(p: &Path) -> bool {
+    p.file_name()
+        .map(|n| n.to_string_lossy().starts_with('.'))
+        .unwrap_or(false)
+}
+
+fn entries(dir: &Path) -> Result<Vec<PathBuf>> {
+    let place = dir.display().to_string();
+    let rd = fs::read_dir(dir).map_err(|e| Error::new(&place, format!("cannot list folder: {e}")))?;
+    let mut out = Vec::new();
+    for e in rd {
+        let e = e.map_err(|e| Error::new(&place, format!("cannot list folder: {e}")))?;
+        let p = e.path();
+        if !is_hidden(&p) {
+            out.push(p);
+        }
+    }
+    out.sort();
+    Ok(out)
+}
+
+/// The image files of a folder, sorted by name (deterministic). Hidden
+/// entries and sub-folders are skipped; an empty folder is an error. Files
+/// are checked when loaded: `load_folder` names any that are not images.
+pub fn folder_images(dir: &Path) -> Result<Vec<PathBuf>> {
+    let files: Vec<PathBuf> = entries(dir)?.into_iter().filter(|p| !p.is_dir()).collect();
+    if files.is_empty() {
+        return Err(Error::new(dir.display().to_string(), "folder holds no images"));
+    }
+    Ok(files)
+}
+
+/// Load every image of a folder (see `folder_images`).
+pub fn load_folder(dir: &Path, spec: &ImageSpec) -> Result<Vec<Vec<u8>>> {
+    folder_images(dir)?
+        .iter()
+        .map(|p| load_image(p, spec))
+        .collect()
+}
+
+/// Every image file in a folder and its immediate sub-folders (a flat or a
+/// labelled folder), sorted by path; hidden entries skipped. Used for
+/// calibration, where labels do not matter.
+pub fn all_images(dir: &Path) -> Result<Vec<PathBuf>> {
+    let mut out = Vec::new();
+    for p in entries(dir)? {
+        if p.is_dir() {
+            out.extend(entries(&p)?.into_iter().filter(|f| !f.is_dir()));
+        } else {
+            out.push(p);
+        }
+    }
+    out.sort();
+    if out.is_empty() {
+        return Err(Error::new(dir.display().to_string(), "folder holds no images"));
+    }
+    Ok(out)
+}
+
+/// A labelled folder: one sub-folder per class, named exactly as the labels.
+/// Returns (file, label index) for every image, by label then by file name.
+pub fn labelled_folder(dir: &Path, labels: &[String]) -> Result<Vec<(PathBuf, usize)>> {
+    let subs: Vec<String> = entries(dir)?
+        .into_iter()
+        .filter(|p| p.is_dir())
+        .filter_map(|p| p.file_name().map(|n| n.to_string_lossy().into_owned()))
+        .collect();
+    let missing: Vec<&str> = labels
+        .iter()
+        .filter(|l| !subs.contains(l))
+        .map(|s| s.as_str())
+        .collect();
+    let extra: Vec<&str> = subs
+        .iter()
+        .filter(|s| !labels.contains(s))
+        .map(|s| s.as_str())
+        .collect();
+    if !missing.is_empty() || !extra.is_empty() {
+        let mut parts = Vec::new();
+        if !missing.is_empty() {
+            parts.push(format!("missing class folders: {}", missing.join(", ")));
+        }
+        if !extra.is_empty() {
+            parts.push(format!("folders that are not labels: {}", extra.join(", ")));
+        }
+        return Err(Error::new(
+            dir.display().to_string(),
+            format!(
+                "expected one sub-folder per label ({}); {}",
+                labels.join(", "),
+                parts.join("; ")
+            ),
+        ));
+    }
+    let mut out = Vec::new();
+    for (k, l) in labels.iter().enumerate() {
+        for f in folder_images(&dir.join(l))? {
+            out.push((f, k));
+        }
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn scratch(tag: &str) -> PathBuf {
+        let d = std::env::temp_dir().join(format!("midge-images-{tag}-{}", std::process::id()));
+        let _ = fs::remove_dir_all(&d);
+        fs::create_dir_all(&d).unwrap();
+        d
+    }
+
+    fn rgb(w: u32, h: u32, f: impl Fn(u32, u32) -> [u8; 3]) -> image::RgbImage {
+        image::RgbImage::from_fn(w, h, |x, y| image::Rgb(f(x, y)))
+    }
+
+    #[test]
+    fn loads_hwc_and_converts_channels() {
+        let d = scratch("load");
+        let p = d.join("a.png");
+        rgb(3, 2, |x, y| [x as u8 * 10, y as u8 * 100, 7]).save(&p).unwrap();
+        let spec = ImageSpec { h: 2, w: 3, c: 3, resize: false };
+        let px = load_image(&p, &spec).unwrap();
+        // HWC: pixel (y=1, x=2) starts at (1·3 + 2)·3.
+        assert_eq!(&px[15..18], &[20, 100, 7]);
+        // Grey source into an RGB model: repeated channels.
+        let g = d.join("g.bmp");
+        image::GrayImage::from_fn(3, 2, |x, _| image::Luma([x as u8 * 50])).save(&g).unwrap();
+        let px = load_image(&g, &spec).unwrap();
+        assert_eq!(&px[3..6], &[50, 50, 50]);
+        let grey = load_image(&g, &ImageSpec { c: 1, ..spec }).unwrap();
+        assert_eq!(grey, vec![0, 50, 100, 0, 50, 100]);
+        fs::remove_dir_all(&d).unwrap();
+    }
+
+    #[test]
+    fn size_is_refused_or_resized() {
+        let d = scratch("size");
+        let p = d.join("big.png");
+        rgb(8, 8, |_, _| [200, 100, 50]).save(&p).unwrap();
+        let spec = ImageSpec { h: 4, w: 4, c: 3, resize: false };
+        let e = load_image(&p, &spec).unwrap_err();
+        assert!(e.place.contains("big.png"));
+        assert!(e.problem.contains("8×8") && e.problem.contains("4×4"), "{e}");
+        // A flat image stays flat under bilinear resizing.
+        let px = load_image(&p, &ImageSpec { resize: true, ..spec }).unwrap();
+        assert_eq!(px.len(), 48);
+        assert!(px.chunks(3).all(|c| c == [200, 100, 50]));
+        fs::remove_dir_all(&d).unwrap();
+    }
+
+    #[test]
+    fn folders_sorted_checked_and_labelled() {
+        let d = scratch("folders");
+        let spec = ImageSpec { h: 1, w: 1, c: 1, resize: false };
+        fs::create_dir_all(d.join("ok")).unwrap();
+        fs::create_dir_all(d.join("bad")).unwrap();
+        for n in ["b.png", "a.png", ".hidden"] {
+            fs::write(d.join("ok").join(n), b"x").unwrap();
+        }
+        for n in ["b.png", "a.png"] {
+            image::GrayImage::new(1, 1).save(d.join("ok").join(n)).unwrap();
+        }
+        let files = folder_images(&d.join("ok")).unwrap();
+        let names: Vec<_> = files.iter().map(|p| p.file_name().unwrap().to_owned()).collect();
+        assert_eq!(names, ["a.png", "b.png"]);
+        assert_eq!(load_folder(&d.join("ok"), &spec).unwrap().len(), 2);
+        fs::write(d.join("bad").join("notes.txt"), b"hello").unwrap();
+        let e = load_folder(&d.join("bad"), &spec).unwrap_err();
+        assert!(e.place.contains("notes.txt"), "{e}");
+        fs::create_dir_all(d.join("empty")).unwrap();
+        assert!(folder_images(&d.join("empty")).is_err());
+        let labels: Vec<String> = ["ok", "bad", "gone"].iter().map(|s| s.to_string()).collect();
+        fs::create_dir_all(d.join("odd")).unwrap();
+        let e = labelled_folder(&d, &labels).unwrap_err();
+        assert!(e.problem.contains("gone") && e.problem.contains("odd") && e.problem.contains("empty"), "{e}");
+        fs::remove_dir_all(d.join("odd")).unwrap();
+        fs::remove_dir_all(d.join("empty")).unwrap();
+        let e = labelled_folder(&d, &labels[..2]).unwrap();
+        assert_eq!(e.len(), 3);
+        assert_eq!(e[0].1, 0);
+        assert_eq!(e[2].1, 1);
+        fs::remove_dir_all(&d).unwrap();
+    }
+}

@@ -1,0 +1,220 @@
+//! Memory planning: places every activation tensor of a layer sequence in one
+//! workspace, reusing bytes of tensors whose lifetimes do not meet. Greedy by
+//! size with best-fit offsets; also reports the lower bound any placement needs.
+
+/// Offsets inside the workspace are multiples of this many bytes.
+pub const ALIGN: usize = 8;
+
+/// One tensor to place: its byte length and the inclusive range of layer
+/// steps during which it must keep its bytes.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Lifetime {
+    pub bytes: usize,
+    /// The step (layer index) that writes the tensor.
+    pub first: usize,
+    /// The last step that reads it (or the final step, for the model output).
+    pub last: usize,
+}
+
+impl Lifetime {
+    /// Whether two tensors are live at a common step. Inclusive ranges make a
+    /// layer's output (first = k) meet every input it reads (last ≥ k).
+    pub fn meets(&self, other: &Lifetime) -> bool {
+        self.first <= other.last && other.first <= self.last
+    }
+}
+
+/// The result of planning.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Plan {
+    /// Byte offset of each tensor; `None` for tensors not in the workspace
+    /// (the model input, tensors nobody writes).
+    pub offsets: Vec<Option<usize>>,
+    /// Lifetimes used, per tensor (same indexing as `offsets`).
+    pub lifetimes: Vec<Option<Lifetime>>,
+    /// Workspace length: the largest end offset of any placed tensor.
+    pub workspace_len: usize,
+    /// Max over steps of the summed byte length of the tensors live at that
+    /// step: no placement can use fewer bytes.
+    pub lower_bound: usize,
+}
+
+/// Lifetimes of the tensors of a layer sequence. `layers[k]` is (inputs,
+/// output) of step k; tensor ids index `sizes`. Tensors in `external` (the
+/// model input) get no lifetime. The `output` tensor lives to the last step.
+pub fn lifetimes(
+    sizes: &[usize],
+    layers: &[(Vec<usize>, usize)],
+    output: usize,
+    external: &[usize],
+) -> Vec<Option<Lifetime>> {
+    let mut out: Vec<Option<Lifetime>> = vec![None; sizes.len()];
+    for (k, (_, o)) in layers.iter().enumerate() {
+        if *o < sizes.len() && !external.contains(o) && out[*o].is_none() {
+            out[*o] = Some(Lifetime {
+                bytes: sizes[*o],
+                first: k,
+                last: k,
+            });
+        }
+    }
+    for (k, (ins, _)) in layers.iter().enumerate() {
+        for &i in ins {
+            if let Some(Some(l)) = out.get_mut(i) {
+                l.last = l.last.max(k);
+            }
+        }
+    }
+    if let Some(Some(l)) = out.get_mut(output) {
+        l.last = layers.len().saturating_sub(1).max(l.first);
+    }
+    out
+}
+
+/// Plan a layer sequence (see `lifetimes`) and place it.
+pub fn plan_layers(
+    sizes: &[usize],
+    layers: &[(Vec<usize>, usize)],
+    output: usize,
+    external: &[usize],
+) -> Plan {
+    place(&lifetimes(sizes, layers, output, external))
+}
+
+fn align_up(v: usize) -> usize {
+    v.div_ceil(ALIGN) * ALIGN
+}
+
+/// Place tensors with the given lifetimes. Greedy by size (Pisarchyk & Lee,
+/// "Efficient Memory Management for Deep Neural Net Inference", 2020, the
+/// greedy-by-size offset strategy): largest first (ties by index, so the
+/// result is deterministic); each goes into the smallest gap between
+/// already-placed, lifetime-meeting tensors that holds it, else after the
+/// last of them. Offsets are multiples of `ALIGN`.
+pub fn place(lifetimes: &[Option<Lifetime>]) -> Plan {
+    let mut order: Vec<usize> = (0..lifetimes.len())
+        .filter(|&i| lifetimes[i].is_some())
+        .collect();
+    order.sort_by(|&a, &b| {
+        let (la, lb) = (lifetimes[a].unwrap(), lifetimes[b].unwrap());
+        lb.bytes.cmp(&la.bytes).then(a.cmp(&b))
+    });
+    let mut offsets: Vec<Option<usize>> = vec![None; lifetimes.len()];
+    let mut placed: Vec<usize> = Vec::new();
+    for &t in &order {
+        let me = lifetimes[t].unwrap();
+        // Occupied intervals of meeting tensors, by offset.
+        let mut busy: Vec<(usize, usize)> = placed
+            .iter()
+            .filter(|&&p| lifetimes[p].unwrap().meets(&me))
+            .map(|&p| {
+                let o = offsets[p].unwrap();
+                (o, o + lifetimes[p].unwrap().bytes)
+            })
+            .collect();
+        busy.sort_unstable();
+        let mut best: Option<(usize, usize)> = None; // (gap size, offset)
+        let mut cursor = 0usize;
+        for &(start, end) in &busy {
+            let at = align_up(cursor);
+            if start >= at && start - at >= me.bytes {
+                let gap = start - at;
+                if best.map_or(true, |(g, _)| gap < g) {
+                    best = Some((gap, at));
+                }
+            }
+            cursor = cursor.max(end);
+        }
+        let offset = match best {
+            Some((_, at)) => at,
+            None => align_up(cursor),
+        };
+        offsets[t] = Some(offset);
+        placed.push(t);
+    }
+    let workspace_len = placed
+        .iter()
+        .map(|&p| offsets[p].unwrap() + lifetimes[p].unwrap().bytes)
+        .max()
+        .unwrap_or(0);
+    Plan {
+        offsets,
+        lifetimes: lifetimes.to_vec(),
+        workspace_len,
+        lower_bound: lower_bound(lifetimes),
+    }
+}
+
+/// Max over steps of the summed bytes of the tensors live at that step.
+pub fn lower_bound(lifetimes: &[Option<Lifetime>]) -> usize {
+    let steps = lifetimes
+        .iter()
+        .flatten()
+        .map(|l| l.last + 1)
+        .max()
+        .unwrap_or(0);
+    (0..steps)
+        .map(|s| {
+            lifetimes
+                .iter()
+                .flatten()
+                .filter(|l| l.first <= s && s <= l.last)
+                .map(|l| l.bytes)
+                .sum::<usize>()
+        })
+        .max()
+        .unwrap_or(0)
+}
+
+/// Pairs of tensors that are live together and share bytes (empty for a
+/// valid plan). Used by tests and as a self-check by the converter.
+pub fn conflicts(plan: &Plan) -> Vec<(usize, usize)> {
+    let mut out = Vec::new();
+    let n = plan.lifetimes.len();
+    for a in 0..n {
+        for b in a + 1..n {
+            if let (Some(la), Some(lb), Some(oa), Some(ob)) = (
+                plan.lifetimes[a],
+                plan.lifetimes[b],
+                plan.offsets[a],
+                plan.offsets[b],
+            ) {
+                let share = oa < ob + lb.bytes && ob < oa + la.bytes;
+                if la.meets(&lb) && share && la.bytes > 0 && lb.bytes > 0 {
+                    out.push((a, b));
+                }
+            }
+        }
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn chain_reuses_two_buffers() {
+        // input(0, external) → t1 → t2 → t3: each layer needs its input and
+        // output live, so two buffers of 64 suffice.
+        let sizes = [64, 64, 64, 64];
+        let layers = vec![(vec![0], 1), (vec![1], 2), (vec![2], 3)];
+        let p = plan_layers(&sizes, &layers, 3, &[0]);
+        assert_eq!(p.offsets[0], None);
+        assert_eq!(p.lower_bound, 128);
+        assert_eq!(p.workspace_len, 128);
+        assert!(conflicts(&p).is_empty());
+    }
+
+    #[test]
+    fn offsets_are_aligned() {
+        let sizes = [0, 5, 3, 7];
+        let layers = vec![(vec![0], 1), (vec![1], 2), (vec![1, 2], 3)];
+        let p = plan_layers(&sizes, &layers, 3, &[0]);
+        for o in p.offsets.iter().flatten() {
+            assert_eq!(o % ALIGN, 0);
+        }
+        assert!(conflicts(&p).is_empty());
+        assert!(p.workspace_len >= p.lower_bound);
+    }
+}

@@ -1,0 +1,180 @@
+//! int8 arithmetic: the conv2d/depthwise/dense accumulator with per-channel
+//! requantization, max and average pooling, pixels → int8 and add. Integer
+//! only — no floating point, so it runs on cores without an FPU.
+
+use super::{fault, Arith, Pool};
+use crate::error::Error;
+use crate::requant::{requantize, saturate_i32};
+
+/// `v` clamped to the inclusive `[lo, hi]` and then to the int8 range (so a
+/// bad clamp can never wrap).
+#[inline]
+pub fn clamp_i8(v: i32, clamp: [i32; 2]) -> i8 {
+    let v = if v < clamp[0] { clamp[0] } else { v };
+    let v = if v > clamp[1] { clamp[1] } else { v };
+    v.clamp(i8::MIN as i32, i8::MAX as i32) as i8
+}
+
+/// `sum / count` rounded to nearest, ties away from zero, in integers:
+/// `sign(sum) · ((|sum| + ⌊count/2⌋) / count)`. `count` = 0 gives 0.
+#[inline]
+pub fn div_round_half_away(sum: i32, count: u32) -> i32 {
+    if count == 0 {
+        return 0;
+    }
+    let n = count as i64;
+    let s = sum as i64;
+    let q = (s.abs() + n / 2) / n;
+    saturate_i32(if s < 0 { -q } else { q })
+}
+
+/// conv2d / depthwise / dense accumulator: `acc = bias[o] + Σ w·q_in` in
+/// i32 (padded taps read `q = zp_in`), then
+/// `q_out = clamp(zp_out + rq(acc, m[o], s[o]))`.
+///
+/// The sums use wrapping adds so an unchecked layer cannot panic; for a
+/// layer that passed `check_layer` the accumulator bound
+/// `|bias| + 255·Σ|w| ≤ i32::MAX` makes every partial sum exact.
+pub struct Int8Arith<'a> {
+    pub zp_in: i8,
+    pub zp_out: i32,
+    /// Per output channel; empty means zero bias.
+    pub bias: &'a [i32],
+    /// Per output channel `[multiplier, rshift]`, flat.
+    pub requant: &'a [i32],
+    pub clamp: [i32; 2],
+}
+
+impl Arith for Int8Arith<'_> {
+    type X = i8;
+    type W = i8;
+    type Acc = i32;
+    #[inline]
+    fn pad(&self) -> i8 {
+        self.zp_in
+    }
+    #[inline]
+    fn start(&self, o: usize) -> i32 {
+        self.bias.get(o).copied().unwrap_or(0)
+    }
+    #[inline]
+    fn mac(acc: i32, x: i8, w: i8) -> i32 {
+        acc.wrapping_add(x as i32 * w as i32)
+    }
+    #[inline]
+    fn finish(&self, acc: i32, o: usize) -> i8 {
+        let m = self.requant.get(2 * o).copied().unwrap_or(0);
+        let s = self.requant.get(2 * o + 1).copied().unwrap_or(1);
+        clamp_i8(
+            self.zp_out.saturating_add(requantize(acc, m, s)),
+            self.clamp,
+        )
+    }
+}
+
+/// Max pooling in int8 (same quantization in and out, so the max of the
+/// stored values is the stored max).
+pub struct MaxI8 {
+    pub clamp: [i32; 2],
+}
+
+impl Pool for MaxI8 {
+    type X = i8;
+    type Acc = i32;
+    fn init(&self) -> i32 {
+        i8::MIN as i32
+    }
+    fn step(&self, acc: i32, x: i8) -> i32 {
+        acc.max(x as i32)
+    }
+    fn finish(&self, acc: i32, _count: u32) -> i8 {
+        clamp_i8(acc, self.clamp)
+    }
+}
+
+/// Average pooling in int8 (same quantization in and out):
+/// `q_out = zp + round_half_away(Σ(q − zp) / n)` over the `n` in-bounds taps.
+/// Rounding is done on the zero-point-relative values, so ties round away
+/// from real zero (symmetric in real terms). The sum is exact for a checked
+/// layer (`n · 255 ≤ i32::MAX`); it wraps rather than panics otherwise.
+pub struct AvgI8 {
+    pub zp: i32,
+    pub clamp: [i32; 2],
+}
+
+impl Pool for AvgI8 {
+    type X = i8;
+    type Acc = i32;
+    fn init(&self) -> i32 {
+        0
+    }
+    fn step(&self, acc: i32, x: i8) -> i32 {
+        acc.wrapping_add((x as i32).wrapping_sub(self.zp))
+    }
+    fn finish(&self, acc: i32, count: u32) -> i8 {
+        clamp_i8(
+            self.zp.saturating_add(div_round_half_away(acc, count)),
+            self.clamp,
+        )
+    }
+}
+
+/// Camera bytes → int8, per channel `c` with params `[offset, m, rshift]`:
+/// `q = clamp(zp_out + rq(p·256 − offset, m, rshift))`. `x` and `y` are HWC
+/// with `params.len() / 3` channels. `p·256 − offset` is exact for every
+/// checked layer (offset ≠ i32::MIN); it wraps rather than panics otherwise.
+pub fn pixels(x: &[u8], params: &[i32], zp_out: i32, clamp: [i32; 2], y: &mut [i8]) -> Result<(), Error> {
+    let c = params.len() / 3;
+    if c == 0 || params.len() != 3 * c || x.len() != y.len() || !x.len().is_multiple_of(c) {
+        return Err(fault("pixels lengths do not match the channel count"));
+    }
+    for (x_px, y_px) in x.chunks_exact(c).zip(y.chunks_exact_mut(c)) {
+        for ((&p, y), prm) in x_px.iter().zip(y_px.iter_mut()).zip(params.chunks_exact(3)) {
+            let acc = (p as i32 * 256).wrapping_sub(prm[0]);
+            *y = clamp_i8(zp_out.saturating_add(requantize(acc, prm[1], prm[2])), clamp);
+        }
+    }
+    Ok(())
+}
+
+/// Parameters of an int8 add.
+#[derive(Clone, Copy, Debug)]
+pub struct AddI8 {
+    pub zp_a: i32,
+    pub zp_b: i32,
+    pub zp_out: i32,
+    pub ma: i32,
+    pub mb: i32,
+    pub rshift: i32,
+    pub clamp: [i32; 2],
+}
+
+impl AddI8 {
+    /// `clamp(zp_out + floor(((qa−zpa)·ma + (qb−zpb)·mb + 2^(rshift−1)) / 2^rshift))`
+    /// in i64 (ties toward +∞, as `requantize`). Exact for checked layers
+    /// (|q − zp| ≤ 255, multipliers < 2^31, so each product < 2^39); the
+    /// i64 arithmetic wraps rather than panics otherwise.
+    #[inline]
+    pub fn apply(&self, qa: i8, qb: i8) -> i8 {
+        let s = self.rshift.clamp(1, 62) as u32;
+        let da = (qa as i64).wrapping_sub(self.zp_a as i64);
+        let db = (qb as i64).wrapping_sub(self.zp_b as i64);
+        let sum = da
+            .wrapping_mul(self.ma as i64)
+            .wrapping_add(db.wrapping_mul(self.mb as i64))
+            .wrapping_add(1i64 << (s - 1));
+        let r = saturate_i32(sum >> s);
+        clamp_i8(self.zp_out.saturating_add(r), self.clamp)
+    }
+}
+
+/// Elementwise int8 add of two tensors of the same shape.
+pub fn add(p: &AddI8, a: &[i8], b: &[i8], y: &mut [i8]) -> Result<(), Error> {
+    if a.len() != y.len() || b.len() != y.len() {
+        return Err(fault("add inputs and output differ in length"));
+    }
+    for ((y, &qa), &qb) in y.iter_mut().zip(a).zip(b) {
+        *y = p.apply(qa, qb);
+    }
+    Ok(())
+}

@@ -1,0 +1,787 @@
+//! A parsed model: `Model::parse` validates a whole file once (layout, CRC,
+//! records, graph order, workspace lifetimes, then each layer via `exec`),
+//! and `run` walks the layers over one caller-provided workspace.
+//! Also the one place for MAC/parameter counts and section sizes.
+
+use crate::error::Error;
+use crate::exec;
+use crate::format::{
+    self, blob_types, canonical_sections, field, read_string, BlobType, FileHeader, HeaderView,
+    InfoView, LayerRecord, LayerView, ModelInfo, Span, TensorView, ALIGN, SECTIONS_START,
+};
+use crate::repr::{Bias, LayerRef, Op, Params, TensorRecord, Weights};
+
+/// Per-layer hooks called by `Model::run_observed` (tracing, timing, dumps).
+pub trait Observer {
+    /// Called before layer `index` runs.
+    fn before_layer(&mut self, index: usize) {
+        let _ = index;
+    }
+    /// Called after layer `index` wrote `bytes`, the whole output tensor `output`.
+    fn after_layer(&mut self, index: usize, output: &TensorRecord, bytes: &[u8]) {
+        let _ = (index, output, bytes);
+    }
+}
+
+/// The observer that does nothing; `run` uses it.
+impl Observer for () {}
+
+/// Byte counts of a model file by kind, for footprint reporting. They add up
+/// to `total`, the file length.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub struct SectionSizes {
+    /// Fixed header plus model-info block (section table included).
+    pub header: usize,
+    pub tensor_table: usize,
+    pub layer_table: usize,
+    /// Weight blobs (int8 or fp16).
+    pub weights: usize,
+    /// Bias blobs (int32 or f32).
+    pub biases: usize,
+    /// Parameter blobs: requantization multipliers/shifts, pixel and add parameters.
+    pub params: usize,
+    /// Model name and class labels with their length prefixes.
+    pub strings: usize,
+    /// Alignment padding between blobs and sections.
+    pub padding: usize,
+    pub total: usize,
+}
+
+/// A validated model borrowed from its bytes. Cheap to copy: it stores the
+/// validated file slice and its model-info block; records are re-read on demand.
+#[derive(Clone, Copy, Debug)]
+pub struct Model<'a> {
+    bytes: &'a [u8],
+    info: ModelInfo,
+}
+
+fn is_aligned(bytes: &[u8], align: usize) -> bool {
+    (bytes.as_ptr() as usize).is_multiple_of(align)
+}
+
+/// Byte length of a tensor computed in u64, so that huge shapes cannot
+/// overflow on 32-bit targets.
+fn tensor_len_u64(t: &TensorRecord) -> u64 {
+    t.shape.h as u64 * t.shape.w as u64 * t.shape.c as u64 * t.elem.size() as u64
+}
+
+fn all_zero(bytes: &[u8], from: usize, to: usize, what: &'static str) -> Result<(), Error> {
+    match bytes.get(from..to) {
+        Some(pad) => match pad.iter().position(|&b| b != 0) {
+            None => Ok(()),
+            Some(p) => Err(Error::Layout {
+                what,
+                expected: 0,
+                found: pad.get(p).copied().unwrap_or(0) as usize,
+            }),
+        },
+        None => Err(Error::OutOfBounds {
+            what,
+            offset: from,
+            len: to.saturating_sub(from),
+            limit: bytes.len(),
+        }),
+    }
+}
+
+impl<'a> Model<'a> {
+    /// Validates `bytes` (which must start 8-byte aligned) as a model file of
+    /// this format version. Bytes past the header's file length are ignored.
+    /// After `parse` succeeds, `run` fails only for wrong buffer lengths or alignment.
+    pub fn parse(bytes: &'a [u8]) -> Result<Model<'a>, Error> {
+        if !is_aligned(bytes, ALIGN) {
+            return Err(Error::Misaligned {
+                offset: 0,
+                align: ALIGN,
+            });
+        }
+        let header = FileHeader::parse(&HeaderView::new_checked(bytes)?)?;
+        let file_len = header.file_len as usize;
+        if file_len < SECTIONS_START || !file_len.is_multiple_of(ALIGN) {
+            return Err(Error::BadField {
+                what: "file length",
+                value: header.file_len,
+            });
+        }
+        let bytes = bytes.get(..file_len).ok_or(Error::Truncated {
+            needed: file_len,
+            available: bytes.len(),
+        })?;
+        let body = bytes.get(field::header::LEN..).unwrap_or(&[]);
+        let computed = crate::crc::crc32(body);
+        if computed != header.crc {
+            return Err(Error::CrcMismatch {
+                stored: header.crc,
+                computed,
+            });
+        }
+        let info = ModelInfo::parse(&InfoView::new_checked(body)?)?;
+        let model = Model { bytes, info };
+        model.check_layout()?;
+        model.check_strings()?;
+        model.check_tensors()?;
+        model.check_layers()?;
+        model.check_lifetimes()?;
+        for i in 0..model.layer_count() {
+            let (layer, a, b, out) = model.load_layer(i)?;
+            exec::check_layer(i, &layer, &a, b.as_ref(), &out)?;
+        }
+        Ok(model)
+    }
+
+    /// Sections in canonical places, zero padding between them.
+    fn check_layout(&self) -> Result<(), Error> {
+        let info = &self.info;
+        let (spans, file_len) = canonical_sections(
+            info.tensor_count,
+            info.layer_count,
+            info.blobs.len,
+            info.strings.len,
+        )
+        .ok_or(Error::BadField {
+            what: "section lengths",
+            value: info.blobs.len,
+        })?;
+        let found = [info.tensors, info.layers, info.blobs, info.strings];
+        let names = [
+            "tensor table",
+            "layer table",
+            "blob area",
+            "strings section",
+        ];
+        for ((want, got), name) in spans.iter().zip(found).zip(names) {
+            if want.offset != got.offset {
+                return Err(Error::Layout {
+                    what: name,
+                    expected: want.offset as usize,
+                    found: got.offset as usize,
+                });
+            }
+            if want.len != got.len {
+                return Err(Error::Layout {
+                    what: name,
+                    expected: want.len as usize,
+                    found: got.len as usize,
+                });
+            }
+        }
+        if file_len as usize != self.bytes.len() {
+            return Err(Error::Layout {
+                what: "file length",
+                expected: file_len as usize,
+                found: self.bytes.len(),
+            });
+        }
+        // Padding after each section up to the next one (or the file end).
+        let mut ends = [0usize; 4];
+        for (e, s) in ends.iter_mut().zip(spans) {
+            *e = s.range().map(|r| r.end).unwrap_or(0);
+        }
+        let starts = [
+            spans[1].offset as usize,
+            spans[2].offset as usize,
+            spans[3].offset as usize,
+            self.bytes.len(),
+        ];
+        for (end, next) in ends.iter().zip(starts) {
+            all_zero(self.bytes, *end, next, "padding between sections")?;
+        }
+        Ok(())
+    }
+
+    fn section(&self, span: Span) -> &'a [u8] {
+        span.range().and_then(|r| self.bytes.get(r)).unwrap_or(&[])
+    }
+
+    /// Name and labels: UTF-8 with length prefixes, exactly filling the section.
+    fn check_strings(&self) -> Result<(), Error> {
+        let s = self.section(self.info.strings);
+        let mut pos = 0;
+        read_string(s, &mut pos).ok_or(Error::BadField {
+            what: "model name (length or UTF-8)",
+            value: 0,
+        })?;
+        for i in 0..self.info.label_count {
+            read_string(s, &mut pos).ok_or(Error::BadField {
+                what: "class label (length or UTF-8), label index",
+                value: i as u32,
+            })?;
+        }
+        if pos != s.len() {
+            return Err(Error::Layout {
+                what: "strings section length",
+                expected: pos,
+                found: s.len(),
+            });
+        }
+        Ok(())
+    }
+
+    fn tensor_checked(&self, i: usize) -> Result<TensorRecord, Error> {
+        let start = (i.checked_mul(field::tensor::LEN)).ok_or(Error::BadField {
+            what: "tensor id",
+            value: i as u32,
+        })?;
+        let table = self.section(self.info.tensors);
+        let rec = table.get(start..).unwrap_or(&[]);
+        if i >= self.tensor_count() {
+            return Err(Error::BadField {
+                what: "tensor id",
+                value: i as u32,
+            });
+        }
+        TensorRecord::parse(&TensorView::new_checked(rec)?, i)
+    }
+
+    /// Every record valid; every tensor but the input inside the workspace at
+    /// an 8-aligned offset; the input's byte length fits in u32.
+    fn check_tensors(&self) -> Result<(), Error> {
+        if self.info.tensor_count == 0 {
+            return Err(Error::BadField {
+                what: "tensor count",
+                value: 0,
+            });
+        }
+        let ws = self.info.workspace_len as u64;
+        for i in 0..self.tensor_count() {
+            let t = self.tensor_checked(i)?;
+            let len = tensor_len_u64(&t);
+            if i == 0 {
+                if len > u32::MAX as u64 {
+                    return Err(Error::Tensor {
+                        index: 0,
+                        problem: "input tensor larger than 4 GiB",
+                    });
+                }
+                continue;
+            }
+            if !(t.offset as usize).is_multiple_of(ALIGN) {
+                return Err(Error::TensorField {
+                    index: i,
+                    what: "workspace offset (must be a multiple of 8)",
+                    value: t.offset,
+                });
+            }
+            if t.offset as u64 + len > ws {
+                return Err(Error::Tensor {
+                    index: i,
+                    problem: "does not fit inside the workspace",
+                });
+            }
+        }
+        Ok(())
+    }
+
+    fn record(&self, i: usize) -> Result<LayerRecord, Error> {
+        if i >= self.layer_count() {
+            return Err(Error::Layer {
+                index: i,
+                problem: "no such layer",
+            });
+        }
+        let start = i.checked_mul(field::layer::LEN).ok_or(Error::Layer {
+            index: i,
+            problem: "no such layer",
+        })?;
+        let table = self.section(self.info.layers);
+        LayerRecord::parse(
+            &LayerView::new_checked(table.get(start..).unwrap_or(&[]))?,
+            i,
+        )
+    }
+
+    /// Reads layer `i` with its tensors and typed blob views.
+    #[allow(clippy::type_complexity)]
+    fn load_layer(
+        &self,
+        i: usize,
+    ) -> Result<
+        (
+            LayerRef<'a>,
+            TensorRecord,
+            Option<TensorRecord>,
+            TensorRecord,
+        ),
+        Error,
+    > {
+        let rec = self.record(i)?;
+        let h = &rec.header;
+        let id = |what, v: u16| -> Result<TensorRecord, Error> {
+            if (v as usize) < self.tensor_count() {
+                self.tensor_checked(v as usize)
+            } else {
+                Err(Error::LayerField {
+                    index: i,
+                    what,
+                    value: v as u32,
+                })
+            }
+        };
+        let a = id("first input tensor id", h.inputs[0])?;
+        let b = if h.op.arity() == 2 {
+            Some(id("second input tensor id", h.inputs[1])?)
+        } else {
+            None
+        };
+        let out = id("output tensor id", h.output)?;
+        let types = blob_types(h.op, a.elem, b.map(|t| t.elem), out.elem)
+            .map_err(|problem| Error::Layer { index: i, problem })?;
+        let weights = match self.blob(i, "weights blob", rec.weights, types.weights)? {
+            Blob::None => Weights::None,
+            Blob::I8(s) => Weights::I8(s),
+            Blob::F16(s) => Weights::F16(s),
+            _ => return Err(internal(i)),
+        };
+        let bias = match self.blob(i, "bias blob", rec.bias, types.bias)? {
+            Blob::None => Bias::None,
+            Blob::I32(s) => Bias::I32(s),
+            Blob::F32(s) => Bias::F32(s),
+            _ => return Err(internal(i)),
+        };
+        let params = match self.blob(i, "params blob", rec.params, types.params)? {
+            Blob::None => Params::None,
+            Blob::I32(s) if types.requant => Params::Requant(s),
+            Blob::I32(s) => Params::I32(s),
+            Blob::F32(s) => Params::F32(s),
+            _ => return Err(internal(i)),
+        };
+        let layer = LayerRef {
+            header: rec.header,
+            weights,
+            bias,
+            params,
+        };
+        Ok((layer, a, b, out))
+    }
+
+    /// One blob: empty reference for `None`; otherwise inside the blob area,
+    /// 8-aligned, a whole number of elements, viewed in place.
+    fn blob(
+        &self,
+        layer: usize,
+        what: &'static str,
+        span: Span,
+        ty: BlobType,
+    ) -> Result<Blob<'a>, Error> {
+        if ty == BlobType::None {
+            return if span == Span::EMPTY {
+                Ok(Blob::None)
+            } else {
+                Err(Error::LayerField {
+                    index: layer,
+                    what: "blob reference length (op takes no such blob)",
+                    value: span.len,
+                })
+            };
+        }
+        if span.len == 0 {
+            if span.offset != 0 {
+                return Err(Error::LayerField {
+                    index: layer,
+                    what: "offset of an empty blob (must be 0)",
+                    value: span.offset,
+                });
+            }
+        } else {
+            let area = self.info.blobs.range().unwrap_or(0..0);
+            let r = span.range().unwrap_or(0..usize::MAX);
+            if r.start < area.start || r.end > area.end {
+                return Err(Error::OutOfBounds {
+                    what,
+                    offset: r.start,
+                    len: span.len as usize,
+                    limit: area.end,
+                });
+            }
+            if !r.start.is_multiple_of(ALIGN) {
+                return Err(Error::Misaligned {
+                    offset: r.start,
+                    align: ALIGN,
+                });
+            }
+        }
+        let bytes: &'a [u8] = if span.len == 0 {
+            &[]
+        } else {
+            span.range().and_then(|r| self.bytes.get(r)).unwrap_or(&[])
+        };
+        let bad_len = Error::LayerField {
+            index: layer,
+            what: "blob length (not a whole number of elements)",
+            value: span.len,
+        };
+        Ok(match ty {
+            BlobType::None => Blob::None,
+            BlobType::I8 => Blob::I8(bytemuck::try_cast_slice(bytes).map_err(|_| bad_len)?),
+            BlobType::F16 => Blob::F16(bytemuck::try_cast_slice(bytes).map_err(|_| bad_len)?),
+            BlobType::I32 => Blob::I32(bytemuck::try_cast_slice(bytes).map_err(|_| bad_len)?),
+            BlobType::F32 => Blob::F32(bytemuck::try_cast_slice(bytes).map_err(|_| bad_len)?),
+        })
+    }
+
+    /// Records valid, ids in range, one producer per tensor (the input none),
+    /// inputs produced earlier, output id valid, blobs packed canonically.
+    fn check_layers(&self) -> Result<(), Error> {
+        let tc = self.tensor_count();
+        let lc = self.layer_count();
+        let out_id = self.info.output as usize;
+        if out_id == 0 || out_id >= tc {
+            return Err(Error::BadField {
+                what: "output tensor id",
+                value: out_id as u32,
+            });
+        }
+        if lc + 1 != tc {
+            return Err(Error::Layout {
+                what: "layer count (one layer per tensor besides the input)",
+                expected: tc.saturating_sub(1),
+                found: lc,
+            });
+        }
+        let area = self.info.blobs.range().unwrap_or(0..0);
+        let mut cursor = area.start;
+        for i in 0..lc {
+            let (_, _, _, _) = self.load_layer(i)?;
+            let rec = self.record(i)?;
+            let h = rec.header;
+            if h.output == 0 {
+                return Err(Error::LayerField {
+                    index: i,
+                    what: "output tensor id (tensor 0 is the model input)",
+                    value: 0,
+                });
+            }
+            for k in 0..h.op.arity() {
+                let t = h.inputs.get(k).copied().unwrap_or(0);
+                if t != 0 && !(0..i).any(|j| self.output_of(j) == Some(t)) {
+                    return Err(Error::Layer {
+                        index: i,
+                        problem: "reads a tensor no earlier layer writes",
+                    });
+                }
+            }
+            if (0..i).any(|j| self.output_of(j) == Some(h.output)) {
+                return Err(Error::Tensor {
+                    index: h.output as usize,
+                    problem: "written by more than one layer",
+                });
+            }
+            for span in [rec.weights, rec.bias, rec.params] {
+                if span.len == 0 {
+                    continue;
+                }
+                let want = format::align_up(cursor).unwrap_or(usize::MAX);
+                if span.offset as usize != want {
+                    return Err(Error::Layout {
+                        what: "blob offset (blobs are packed in layer order)",
+                        expected: want,
+                        found: span.offset as usize,
+                    });
+                }
+                all_zero(self.bytes, cursor, want, "padding between blobs")?;
+                cursor = span.range().map(|r| r.end).unwrap_or(usize::MAX);
+            }
+        }
+        if cursor != area.end {
+            return Err(Error::Layout {
+                what: "blob area length",
+                expected: cursor.saturating_sub(area.start),
+                found: area.len(),
+            });
+        }
+        Ok(())
+    }
+
+    fn output_of(&self, layer: usize) -> Option<u16> {
+        self.record(layer).ok().map(|r| r.header.output)
+    }
+
+    /// Whether any layer from `from` on reads tensor `t`.
+    fn read_from(&self, t: u16, from: usize) -> bool {
+        (from..self.layer_count()).any(|k| match self.record(k) {
+            Ok(r) => r
+                .header
+                .inputs
+                .get(..r.header.op.arity())
+                .is_some_and(|ins| ins.contains(&t)),
+            Err(_) => false,
+        })
+    }
+
+    /// A tensor is live from the layer that writes it to the last layer that
+    /// reads it (the model output: to the end). Each layer's output must not
+    /// share a workspace byte with any tensor live during that layer, its
+    /// inputs included. Quadratic in the layer count (cubic at worst when
+    /// many tensors share bytes), with no allocation.
+    fn check_lifetimes(&self) -> Result<(), Error> {
+        let range = |t: &TensorRecord| {
+            let s = t.offset as u64;
+            s..s + tensor_len_u64(t)
+        };
+        for i in 0..self.layer_count() {
+            let o = self.output_of(i).unwrap_or(0);
+            let ro = range(&self.tensor_checked(o as usize)?);
+            for j in 0..i {
+                let t = self.output_of(j).unwrap_or(0);
+                let rt = range(&self.tensor_checked(t as usize)?);
+                let overlap = ro.start < rt.end && rt.start < ro.end;
+                if overlap && (t == self.info.output || self.read_from(t, i)) {
+                    return Err(Error::Overlap {
+                        layer: i,
+                        output: o as usize,
+                        live: t as usize,
+                    });
+                }
+            }
+        }
+        Ok(())
+    }
+
+    // ----------------------------------------------------------------- API
+
+    /// The validated file bytes (exactly the header's file length).
+    pub fn bytes(&self) -> &'a [u8] {
+        self.bytes
+    }
+
+    pub fn name(&self) -> &'a str {
+        let mut pos = 0;
+        read_string(self.section(self.info.strings), &mut pos).unwrap_or("")
+    }
+
+    pub fn label_count(&self) -> usize {
+        self.info.label_count as usize
+    }
+
+    /// Class label `i` (labels are few; this walks the strings section).
+    pub fn label(&self, i: usize) -> Option<&'a str> {
+        if i >= self.label_count() {
+            return None;
+        }
+        let s = self.section(self.info.strings);
+        let mut pos = 0;
+        read_string(s, &mut pos)?;
+        for _ in 0..i {
+            read_string(s, &mut pos)?;
+        }
+        read_string(s, &mut pos)
+    }
+
+    /// Bytes of workspace `run` needs.
+    pub fn workspace_len(&self) -> usize {
+        self.info.workspace_len as usize
+    }
+
+    /// Tensor 0, the model input.
+    pub fn input(&self) -> TensorRecord {
+        self.tensor(0).unwrap_or(PLACEHOLDER)
+    }
+
+    /// The tensor `run` returns.
+    pub fn output(&self) -> TensorRecord {
+        self.tensor(self.info.output as usize)
+            .unwrap_or(PLACEHOLDER)
+    }
+
+    /// Id of the output tensor.
+    pub fn output_id(&self) -> usize {
+        self.info.output as usize
+    }
+
+    pub fn tensor_count(&self) -> usize {
+        self.info.tensor_count as usize
+    }
+
+    pub fn tensor(&self, i: usize) -> Option<TensorRecord> {
+        self.tensor_checked(i).ok()
+    }
+
+    pub fn layer_count(&self) -> usize {
+        self.info.layer_count as usize
+    }
+
+    /// Layer `i` with its weights, bias and params viewed in place.
+    pub fn layer(&self, i: usize) -> Option<LayerRef<'a>> {
+        self.load_layer(i).ok().map(|(l, ..)| l)
+    }
+
+    /// Multiply-accumulates of layer `i` for one inference. Counting rule:
+    /// conv2d `out_h·out_w·out_c·kh·kw·in_c`; depthwise `out_h·out_w·c·kh·kw`;
+    /// dense `in_elems·out_elems`; every other op (pixels, pools, add,
+    /// quantize, dequantize) 0, as they multiply by no weights. Saturates at
+    /// u64::MAX; 0 for an unknown layer.
+    pub fn layer_macs(&self, i: usize) -> u64 {
+        let Ok((layer, a, _, out)) = self.load_layer(i) else {
+            return 0;
+        };
+        let h = &layer.header;
+        let w = &h.window;
+        let out_elems = out.shape.elems() as u64;
+        let k = w.kh as u64 * w.kw as u64;
+        match h.op {
+            Op::Conv2d => out_elems.saturating_mul(k).saturating_mul(a.shape.c as u64),
+            Op::Depthwise => out_elems.saturating_mul(k),
+            Op::Dense => (a.shape.elems() as u64).saturating_mul(out_elems),
+            _ => 0,
+        }
+    }
+
+    /// Learned parameters of layer `i`: weight elements plus bias elements.
+    /// Requantization and pixel/add parameters are derived, not learned, and
+    /// are not counted (their bytes show in `sections().params`).
+    pub fn layer_params(&self, i: usize) -> u64 {
+        let Some(layer) = self.layer(i) else {
+            return 0;
+        };
+        let w = match layer.weights {
+            Weights::None => 0,
+            Weights::I8(s) => s.len(),
+            Weights::F16(s) => s.len(),
+        };
+        let b = match layer.bias {
+            Bias::None => 0,
+            Bias::I32(s) => s.len(),
+            Bias::F32(s) => s.len(),
+        };
+        w as u64 + b as u64
+    }
+
+    /// Byte counts of the file by kind.
+    pub fn sections(&self) -> SectionSizes {
+        let info = &self.info;
+        let mut s = SectionSizes {
+            header: SECTIONS_START,
+            tensor_table: info.tensors.len as usize,
+            layer_table: info.layers.len as usize,
+            strings: info.strings.len as usize,
+            total: self.bytes.len(),
+            ..SectionSizes::default()
+        };
+        for i in 0..self.layer_count() {
+            if let Ok(r) = self.record(i) {
+                s.weights = s.weights.saturating_add(r.weights.len as usize);
+                s.biases = s.biases.saturating_add(r.bias.len as usize);
+                s.params = s.params.saturating_add(r.params.len as usize);
+            }
+        }
+        let used = [
+            s.tensor_table,
+            s.layer_table,
+            s.weights,
+            s.biases,
+            s.params,
+            s.strings,
+        ]
+        .iter()
+        .fold(s.header, |acc, &v| acc.saturating_add(v));
+        s.padding = s.total.saturating_sub(used);
+        s
+    }
+
+    /// Runs the model on `input` (exactly the input tensor's bytes) using
+    /// `workspace` (8-byte aligned, at least `workspace_len()` bytes; bytes
+    /// past that are not touched). Returns the output tensor's bytes inside
+    /// the workspace.
+    pub fn run<'w>(&self, input: &[u8], workspace: &'w mut [u8]) -> Result<&'w [u8], Error> {
+        self.run_observed(input, workspace, &mut ())
+    }
+
+    /// `run`, calling `observer` around every layer.
+    pub fn run_observed<'w, O: Observer>(
+        &self,
+        input: &[u8],
+        workspace: &'w mut [u8],
+        observer: &mut O,
+    ) -> Result<&'w [u8], Error> {
+        let expected = self.input().byte_len();
+        if input.len() != expected {
+            return Err(Error::InputLength {
+                expected,
+                found: input.len(),
+            });
+        }
+        if workspace.len() < self.workspace_len() {
+            return Err(Error::WorkspaceLength {
+                expected: self.workspace_len(),
+                found: workspace.len(),
+            });
+        }
+        if !is_aligned(workspace, ALIGN) {
+            return Err(Error::WorkspaceMisaligned);
+        }
+        for i in 0..self.layer_count() {
+            let (layer, a, b, out) = self.load_layer(i)?;
+            observer.before_layer(i);
+            let outside = |index| Error::Tensor {
+                index,
+                problem: "not inside the workspace",
+            };
+            let out_id = layer.header.output as usize;
+            let start = out.offset as usize;
+            let end = start.checked_add(out.byte_len()).ok_or(outside(out_id))?;
+            let (lo, rest) = workspace
+                .split_at_mut_checked(start)
+                .ok_or(outside(out_id))?;
+            let (out_bytes, hi) = rest
+                .split_at_mut_checked(end - start)
+                .ok_or(outside(out_id))?;
+            let (lo, hi): (&[u8], &[u8]) = (lo, hi);
+            let fetch = |id: u16, t: &TensorRecord| -> Result<&[u8], Error> {
+                if id == 0 {
+                    return Ok(input);
+                }
+                let s = t.offset as usize;
+                let e = s.checked_add(t.byte_len()).ok_or(outside(id as usize))?;
+                let got = if e <= start {
+                    lo.get(s..e)
+                } else if s >= end {
+                    hi.get(s - end..e - end)
+                } else {
+                    None
+                };
+                got.ok_or(outside(id as usize))
+            };
+            let a_bytes = fetch(layer.header.inputs[0], &a)?;
+            let b_pair = match &b {
+                Some(bt) => Some((bt, fetch(layer.header.inputs[1], bt)?)),
+                None => None,
+            };
+            exec::run_layer(&layer, (&a, a_bytes), b_pair, (&out, &mut *out_bytes))
+                .map_err(|e| exec::at_layer(e, i))?;
+            observer.after_layer(i, &out, out_bytes);
+        }
+        let out = self.output();
+        let ws: &'w [u8] = workspace;
+        let s = out.offset as usize;
+        s.checked_add(out.byte_len())
+            .and_then(|e| ws.get(s..e))
+            .ok_or(Error::Tensor {
+                index: self.output_id(),
+                problem: "not inside the workspace",
+            })
+    }
+}
+
+/// Returned only if a validated model could not re-read a record, which
+/// `parse` rules out.
+const PLACEHOLDER: TensorRecord = TensorRecord {
+    shape: crate::repr::Shape::new(0, 0, 0),
+    elem: crate::repr::ElemType::U8,
+    quant: crate::repr::Quant::IDENTITY,
+    offset: 0,
+};
+
+fn internal(index: usize) -> Error {
+    Error::Layer {
+        index,
+        problem: "blob type mismatch",
+    }
+}
+
+enum Blob<'a> {
+    None,
+    I8(&'a [i8]),
+    F16(&'a [half::f16]),
+    I32(&'a [i32]),
+    F32(&'a [f32]),
+}

@@ -1,0 +1,322 @@
+//! The candle network built from a model description: NCHW tensors (as
+//! PyTorch), parameters named `<tensor>.weight` / `.bias` / BatchNorm running
+//! statistics, seeded initialization, train/eval forward, safetensors export.
+
+use std::collections::HashMap;
+use std::path::Path;
+
+use candle_core::{DType, Device, Tensor, Var, D};
+use midge_convert::description::{Description, LayerInfo, LayerKind};
+use midge_convert::{Error, Result};
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
+/// PyTorch's BatchNorm momentum for running statistics (default 0.1).
+pub const BN_MOMENTUM: f64 = 0.1;
+
+/// Maps a candle error into ours, naming where it happened.
+pub fn ce(place: impl Into<String>) -> impl FnOnce(candle_core::Error) -> Error {
+    let place = place.into();
+    move |e| Error::new(place, format!("candle: {e}"))
+}
+
+/// Running statistics of one BatchNorm layer, as PyTorch keeps them.
+struct BnStats {
+    mean: Tensor,
+    var: Tensor,
+    batches: i64,
+}
+
+/// A trainable network that follows the description's layers.
+pub struct Net {
+    layers: Vec<LayerInfo>,
+    /// Trainable parameters in layer order: (safetensors name, variable).
+    params: Vec<(String, Var)>,
+    index: HashMap<String, usize>,
+    bn: HashMap<String, BnStats>,
+    /// Per-channel normalization: x = (p/255·range − mean) / std.
+    mean: Vec<f32>,
+    std: Vec<f32>,
+    pixel_range: f32,
+    pub input_hwc: (usize, usize, usize),
+    pub classes: usize,
+    device: Device,
+}
+
+fn gaussian(rng: &mut ChaCha8Rng) -> f32 {
+    // Box–Muller transform (common practice).
+    let u1: f32 = rng.gen_range(f32::EPSILON..1.0);
+    let u2: f32 = rng.gen();
+    (-2.0 * u1.ln()).sqrt() * (2.0 * std::f32::consts::PI * u2).cos()
+}
+
+impl Net {
+    /// Builds the layers of `desc` with weights drawn from ChaCha8(`seed`):
+    /// conv2d/depthwise He-normal (std √(2/fan_in)), dense std √(1/fan_in),
+    /// biases 0, BatchNorm weight 1, bias 0, running mean 0, variance 1.
+    pub fn new(desc: &Description, seed: u64) -> Result<Net> {
+        let place = desc.origin.display().to_string();
+        let layers = desc.topology()?;
+        let device = Device::Cpu;
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let mut params = Vec::new();
+        let mut bn = HashMap::new();
+        for l in &layers {
+            let lp = format!("{place}: layer {} ({})", l.index + 1, l.name);
+            for key in ["stride", "dilation"] {
+                if let Some(w) = l.window {
+                    let (a, b) = if key == "stride" {
+                        (w.stride_h, w.stride_w)
+                    } else {
+                        (w.dil_h, w.dil_w)
+                    };
+                    if a != b {
+                        return Err(Error::new(
+                            &lp,
+                            format!("the trainer needs equal {key} along height and width, found {a}×{b}"),
+                        ));
+                    }
+                }
+            }
+            if l.kind == LayerKind::MaxPool {
+                let w = l.window.unwrap_or_default();
+                if w.pad_top | w.pad_left | w.pad_bottom | w.pad_right != 0 || w.dil_h != 1 {
+                    return Err(Error::new(
+                        &lp,
+                        "the trainer supports maxpool without padding or dilation only",
+                    ));
+                }
+            }
+            let expected = l.expected_tensors();
+            for (name, shape) in expected {
+                let n: usize = shape.iter().product();
+                let is_bias = name.ends_with(".bias");
+                let data: Vec<f32> = match l.kind {
+                    LayerKind::BatchNorm => {
+                        let v = if name.ends_with(".weight") || name.ends_with(".running_var") {
+                            1.0
+                        } else {
+                            0.0
+                        };
+                        vec![v; n]
+                    }
+                    _ if is_bias => vec![0.0; n],
+                    _ => {
+                        let fan_in: usize = shape[1..].iter().product();
+                        let gain = if l.kind == LayerKind::Dense { 1.0 } else { 2.0 };
+                        let sd = (gain / fan_in.max(1) as f32).sqrt();
+                        (0..n).map(|_| sd * gaussian(&mut rng)).collect()
+                    }
+                };
+                let t = Tensor::from_vec(data, shape.as_slice(), &device).map_err(ce(&lp))?;
+                if name.ends_with(".running_mean") || name.ends_with(".running_var") {
+                    continue; // kept in `bn` below
+                }
+                params.push((name, Var::from_tensor(&t).map_err(ce(&lp))?));
+            }
+            if l.kind == LayerKind::BatchNorm {
+                let c = l.out_shape.c as usize;
+                let prefix = l.tensor.clone().unwrap_or_default();
+                bn.insert(
+                    prefix,
+                    BnStats {
+                        mean: Tensor::zeros(c, DType::F32, &device).map_err(ce(&lp))?,
+                        var: Tensor::ones(c, DType::F32, &device).map_err(ce(&lp))?,
+                        batches: 0,
+                    },
+                );
+            }
+        }
+        let index = params
+            .iter()
+            .enumerate()
+            .map(|(i, (n, _))| (n.clone(), i))
+            .collect();
+        let s = desc.input_shape();
+        let classes = layers.last().map_or(0, |l| l.out_shape.elems());
+        Ok(Net {
+            layers,
+            params,
+            index,
+            bn,
+            mean: desc.input.mean_values(),
+            std: desc.input.std_values(),
+            pixel_range: desc.input.pixel_range,
+            input_hwc: (s.h as usize, s.w as usize, s.c as usize),
+            classes,
+            device,
+        })
+    }
+
+    /// The trainable variables (weights, biases, BatchNorm scale and shift).
+    pub fn vars(&self) -> Vec<Var> {
+        self.params.iter().map(|(_, v)| v.clone()).collect()
+    }
+
+    fn param(&self, name: &str) -> candle_core::Result<Tensor> {
+        match self.index.get(name) {
+            Some(&i) => Ok(self.params[i].1.as_tensor().clone()),
+            None => candle_core::bail!("no parameter {name}"),
+        }
+    }
+
+    /// Camera bytes of `n` HWC images → normalized NCHW batch, exactly as the
+    /// description's `[input]` table says: (p/255·pixel_range − mean[c]) / std[c].
+    pub fn batch(&self, pixels: &[u8], n: usize) -> candle_core::Result<Tensor> {
+        let (h, w, c) = self.input_hwc;
+        let v: Vec<f32> = pixels
+            .iter()
+            .enumerate()
+            .map(|(i, &p)| {
+                let ch = i % c;
+                (p as f32 / 255.0 * self.pixel_range - self.mean[ch]) / self.std[ch]
+            })
+            .collect();
+        Tensor::from_vec(v, (n, h, w, c), &self.device)?
+            .permute((0, 3, 1, 2))?
+            .contiguous()
+    }
+
+    /// Logits (N × classes) for a normalized NCHW batch. In training mode
+    /// BatchNorm normalizes with the batch statistics and updates its running
+    /// statistics (PyTorch: momentum 0.1, unbiased variance in the running value).
+    pub fn forward(&mut self, x: &Tensor, train: bool) -> candle_core::Result<Tensor> {
+        let mut t: Vec<Tensor> = vec![x.clone()];
+        let layers = self.layers.clone();
+        for l in &layers {
+            let a = &t[l.inputs[0]];
+            let y = match l.kind {
+                LayerKind::Conv2d | LayerKind::Depthwise => self.conv(l, a)?,
+                LayerKind::MaxPool | LayerKind::AvgPool => {
+                    let w = l.window.unwrap_or_default();
+                    let (k, s) = ((w.kh as usize, w.kw as usize), (w.stride_h as usize, w.stride_w as usize));
+                    if l.kind == LayerKind::MaxPool {
+                        a.max_pool2d_with_stride(k, s)?
+                    } else {
+                        a.avg_pool2d_with_stride(k, s)?
+                    }
+                }
+                LayerKind::GlobalAvgPool => a.mean_keepdim((2, 3))?,
+                LayerKind::Dense => {
+                    let prefix = l.tensor.as_deref().unwrap_or_default();
+                    let flat = a.flatten_from(1)?;
+                    let mut y = flat.matmul(&self.param(&format!("{prefix}.weight"))?.t()?)?;
+                    if l.bias {
+                        y = y.broadcast_add(&self.param(&format!("{prefix}.bias"))?)?;
+                    }
+                    let n = y.dim(1)?;
+                    y.reshape((y.dim(0)?, n, 1, 1))?
+                }
+                LayerKind::Add => (a + &t[l.inputs[1]])?,
+                LayerKind::Relu => a.relu()?,
+                LayerKind::Relu6 => a.clamp(0f32, 6f32)?,
+                // NCHW flattened in C, H, W order, as PyTorch's `flatten(1)`.
+                LayerKind::Flatten => {
+                    let f = a.flatten_from(1)?;
+                    let n = f.dim(1)?;
+                    f.reshape((f.dim(0)?, n, 1, 1))?
+                }
+                LayerKind::BatchNorm => self.batchnorm(l, a, train)?,
+            };
+            t.push(y);
+        }
+        t.pop().unwrap_or_else(|| x.clone()).flatten_from(1)
+    }
+
+    fn conv(&self, l: &LayerInfo, x: &Tensor) -> candle_core::Result<Tensor> {
+        let prefix = l.tensor.as_deref().unwrap_or_default();
+        let w = l.window.unwrap_or_default();
+        let weight = self.param(&format!("{prefix}.weight"))?;
+        let groups = if l.kind == LayerKind::Depthwise {
+            l.in_shapes[0].c as usize
+        } else {
+            1
+        };
+        let (pt, pl, pb, pr) = (w.pad_top, w.pad_left, w.pad_bottom, w.pad_right);
+        let sym = pt == pb && pl == pr && pt == pl;
+        let (x, pad) = if sym {
+            (x.clone(), pt as usize)
+        } else {
+            let x = x.pad_with_zeros(2, pt as usize, pb as usize)?;
+            (x.pad_with_zeros(3, pl as usize, pr as usize)?, 0)
+        };
+        let mut y = x.conv2d(&weight, pad, w.stride_h as usize, w.dil_h as usize, groups)?;
+        if l.bias {
+            let b = self.param(&format!("{prefix}.bias"))?;
+            y = y.broadcast_add(&b.reshape((1, b.dim(0)?, 1, 1))?)?;
+        }
+        Ok(y)
+    }
+
+    fn batchnorm(&mut self, l: &LayerInfo, x: &Tensor, train: bool) -> candle_core::Result<Tensor> {
+        let prefix = l.tensor.clone().unwrap_or_default();
+        let c = x.dim(1)?;
+        let gamma = self.param(&format!("{prefix}.weight"))?.reshape((1, c, 1, 1))?;
+        let beta = self.param(&format!("{prefix}.bias"))?.reshape((1, c, 1, 1))?;
+        let Some(stats) = self.bn.get_mut(&prefix) else {
+            candle_core::bail!("no running statistics for {prefix}")
+        };
+        let (mean, var) = if train {
+            let mean = x.mean_keepdim((0, 2, 3))?;
+            let centred = x.broadcast_sub(&mean)?;
+            let var = centred.sqr()?.mean_keepdim((0, 2, 3))?;
+            let n = (x.elem_count() / c) as f64;
+            let unbiased = (var.detach().flatten_all()? * (n / (n - 1.0).max(1.0)))?;
+            stats.mean = ((&stats.mean * (1.0 - BN_MOMENTUM))?
+                + (mean.detach().flatten_all()? * BN_MOMENTUM)?)?;
+            stats.var = ((&stats.var * (1.0 - BN_MOMENTUM))? + (unbiased * BN_MOMENTUM)?)?;
+            stats.batches += 1;
+            (mean, var)
+        } else {
+            (
+                stats.mean.reshape((1, c, 1, 1))?,
+                stats.var.reshape((1, c, 1, 1))?,
+            )
+        };
+        let inv = (var + f64::from(l.eps))?.sqrt()?.recip()?;
+        x.broadcast_sub(&mean)?
+            .broadcast_mul(&inv)?
+            .broadcast_mul(&gamma)?
+            .broadcast_add(&beta)
+    }
+
+    /// Predicted class per image of an HWC byte batch (eval mode).
+    pub fn predict(&mut self, pixels: &[u8], n: usize) -> candle_core::Result<Vec<u32>> {
+        let x = self.batch(pixels, n)?;
+        self.forward(&x, false)?.argmax(D::Minus1)?.to_vec1::<u32>()
+    }
+
+    /// Every tensor as a PyTorch `state_dict` export names it: conv2d weights
+    /// O×I×kH×kW, dense O×I, BatchNorm weight, bias, running_mean, running_var
+    /// (F32) and num_batches_tracked (I64 scalar).
+    pub fn state_dict(&self) -> candle_core::Result<Vec<(String, Tensor)>> {
+        let mut out: Vec<(String, Tensor)> = self
+            .params
+            .iter()
+            .map(|(n, v)| (n.clone(), v.as_tensor().detach()))
+            .collect();
+        for (prefix, s) in &self.bn {
+            out.push((format!("{prefix}.running_mean"), s.mean.clone()));
+            out.push((format!("{prefix}.running_var"), s.var.clone()));
+            out.push((
+                format!("{prefix}.num_batches_tracked"),
+                Tensor::new(s.batches, &self.device)?,
+            ));
+        }
+        out.sort_by(|a, b| a.0.cmp(&b.0));
+        Ok(out)
+    }
+
+    /// Writes [`Net::state_dict`] to `path` (a temporary file, then renamed).
+    pub fn save(&self, path: &Path) -> Result<()> {
+        let place = path.display().to_string();
+        let map: HashMap<String, Tensor> = self
+            .state_dict()
+            .map_err(ce(&place))?
+            .into_iter()
+            .collect();
+        let tmp = path.with_extension("safetensors.tmp");
+        candle_core::safetensors::save(&map, &tmp).map_err(ce(&place))?;
+        std::fs::rename(&tmp, path).map_err(|e| Error::new(&place, format!("renaming: {e}")))
+    }
+}
