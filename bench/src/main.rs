@@ -1,1 +1,164 @@
-fn main() {}
+//! The `midge-bench` binary: parses flags and calls the midge-bench library
+//! (`bench_report`, `sweep::sweep`, the renderers); errors print one line.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+use std::time::Duration;
+
+use clap::{Parser, Subcommand};
+use midge_bench::report::{sweep_html, sweep_text};
+use midge_bench::{bench_report, sweep, ReportOptions, Result};
+use midge_convert::budget::{BudgetOptions, DEFAULT_SEED};
+use midge_convert::description::Description;
+use midge_convert::output::write_atomic;
+use midge_convert::target::Target;
+
+#[derive(Parser, Debug)]
+#[command(
+    name = "midge-bench",
+    version,
+    about = "Footprint, host and emulated Cortex-M latency, target budgets and architecture sweeps"
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(clap::Args, Debug)]
+struct Common {
+    /// Target profiles (names under models/targets or files), comma-separated.
+    #[arg(long, value_delimiter = ',')]
+    targets: Vec<String>,
+    /// Skip the emulated (QEMU) runs.
+    #[arg(long)]
+    no_emulate: bool,
+    /// Do not build firmware to measure the runtime's code size.
+    #[arg(long)]
+    no_runtime_size: bool,
+    /// Seed of synthetic weights and inputs.
+    #[arg(long, default_value_t = DEFAULT_SEED)]
+    seed: u64,
+    /// Seconds allowed for one emulated run.
+    #[arg(long, default_value_t = 300)]
+    timeout: u64,
+    /// Print JSON instead of tables.
+    #[arg(long)]
+    json: bool,
+    /// Also write a self-contained HTML report.
+    #[arg(long, value_name = "FILE")]
+    html: Option<PathBuf>,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Footprint, per-layer host latency, budgets and emulated runs of one
+    /// model file or description.
+    Report {
+        /// A .midge model file or a description (TOML).
+        model: PathBuf,
+        #[command(flatten)]
+        common: Common,
+        /// Timed host runs per input (0: none).
+        #[arg(long, default_value_t = 20)]
+        runs: usize,
+        /// Untimed runs first.
+        #[arg(long, default_value_t = 3)]
+        warmup: usize,
+        /// Number of seeded random inputs.
+        #[arg(long, default_value_t = 1)]
+        inputs: usize,
+        /// Include a compare run (per-layer SQNR) for a description with
+        /// weights, calibration and validation images.
+        #[arg(long)]
+        compare: bool,
+    },
+    /// Scale a description in width and resolution and budget every variant.
+    Sweep {
+        description: PathBuf,
+        /// Width multipliers, comma-separated.
+        #[arg(long, value_delimiter = ',', default_value = "1")]
+        width: Vec<f32>,
+        /// Square input sizes, comma-separated [default: the description's].
+        #[arg(long, value_delimiter = ',')]
+        resolution: Vec<u16>,
+        #[command(flatten)]
+        common: Common,
+    },
+}
+
+fn targets(names: &[String]) -> Result<Vec<Target>> {
+    names.iter().map(|n| Target::resolve(n)).collect()
+}
+
+fn run(cli: Cli) -> Result<u8> {
+    match cli.command {
+        Command::Report {
+            model,
+            common,
+            runs,
+            warmup,
+            inputs,
+            compare,
+        } => {
+            let opts = ReportOptions {
+                targets: targets(&common.targets)?,
+                runs,
+                warmup,
+                inputs,
+                emulate: !common.no_emulate,
+                measure_runtime: !common.no_runtime_size,
+                compare,
+                seed: common.seed,
+                timeout: Duration::from_secs(common.timeout),
+            };
+            let r = bench_report(&model, &opts)?;
+            if let Some(h) = &common.html {
+                write_atomic(h, r.render_html().as_bytes())?;
+            }
+            if common.json {
+                println!("{}", serde_json::to_string_pretty(&r).unwrap_or_default());
+            } else {
+                print!("{}", r.render_text());
+            }
+            Ok(0)
+        }
+        Command::Sweep {
+            description,
+            width,
+            resolution,
+            common,
+        } => {
+            let desc = Description::load(&description)?;
+            let opts = BudgetOptions {
+                measure_runtime: !common.no_runtime_size,
+                emulate: !common.no_emulate,
+                emulator_timeout: Duration::from_secs(common.timeout),
+            };
+            let t = targets(&common.targets)?;
+            let rows = sweep::sweep(&desc, &width, &resolution, &t, &opts, common.seed)?;
+            if let Some(h) = &common.html {
+                write_atomic(h, sweep_html(&desc.name, &rows).as_bytes())?;
+            }
+            if common.json {
+                println!(
+                    "{}",
+                    serde_json::to_string_pretty(&rows).unwrap_or_default()
+                );
+            } else {
+                print!("{}", sweep_text(&rows));
+            }
+            Ok(0)
+        }
+    }
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli) {
+        Ok(c) => ExitCode::from(c),
+        Err(e) => {
+            eprintln!("midge-bench: {e}");
+            ExitCode::from(2)
+        }
+    }
+}

@@ -146,7 +146,11 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
     let mut flash = vec![
         Item::measured("model weights", s.weights as u64, "model file"),
         Item::measured("model biases", s.biases as u64, "model file"),
-        Item::measured("model requantization parameters", s.params as u64, "model file"),
+        Item::measured(
+            "model requantization parameters",
+            s.params as u64,
+            "model file",
+        ),
         Item::measured(
             "model header, tables, strings, padding",
             (s.header + s.tensor_table + s.layer_table + s.strings + s.padding) as u64,
@@ -167,9 +171,21 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
         Ok(rc) => {
             let note = format!("firmware ELF for {triple}, minus baseline");
             flash.push(Item::measured("runtime code (.text)", rc.sizes.text, &note));
-            flash.push(Item::measured("runtime read-only data (.rodata)", rc.sizes.rodata, &note));
-            flash.push(Item::measured("runtime initialized data (.data)", rc.sizes.data, &note));
-            ram.push(Item::measured("runtime static data (.data + .bss)", rc.sizes.ram(), &note));
+            flash.push(Item::measured(
+                "runtime read-only data (.rodata)",
+                rc.sizes.rodata,
+                &note,
+            ));
+            flash.push(Item::measured(
+                "runtime initialized data (.data)",
+                rc.sizes.data,
+                &note,
+            ));
+            ram.push(Item::measured(
+                "runtime static data (.data + .bss)",
+                rc.sizes.ram(),
+                &note,
+            ));
         }
         Err(why) => {
             flash.push(Item::missing("runtime code and data", why));
@@ -189,11 +205,14 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
         )),
         Err(why) => ram.push(Item::missing("stack high-water", why)),
     }
-    let peak = fp.peak_layer.and_then(|i| fp.layers.get(i)).map(|r| PeakLayer {
-        index: r.index,
-        op: r.op.to_string(),
-        live_bytes: r.live_bytes as u64,
-    });
+    let peak = fp
+        .peak_layer
+        .and_then(|i| fp.layers.get(i))
+        .map(|r| PeakLayer {
+            index: r.index,
+            op: r.op.to_string(),
+            live_bytes: r.live_bytes as u64,
+        });
     let mut budget = verdict(target, &fp.name, flash, ram, peak);
     if let Ok(run) = &emulated {
         let instr: u64 = run.layer_instructions(0).iter().sum();
@@ -222,7 +241,7 @@ fn emulate_once(
 }
 
 /// Seed for synthetic weights when a description has none.
-pub const DEFAULT_SEED: u64 = 0x6D69_6467_65;
+pub const DEFAULT_SEED: u64 = 0x6D_6964_6765;
 
 /// Model bytes for `path`: a model file as is, or a description (`.toml`)
 /// quantized with its weights and calibration images when it names both,
@@ -232,9 +251,11 @@ pub fn model_bytes_for(path: &Path, seed: u64) -> Result<Vec<u8>> {
     if path.extension().and_then(|e| e.to_str()) == Some("toml") {
         let desc = Description::load(path)?;
         if desc.weights.is_some() && desc.calibration.is_some() {
-            return Ok(quantize::quantize_description(path, &QuantizeOptions::default())?
-                .quantized
-                .bytes);
+            return Ok(
+                quantize::quantize_description(path, &QuantizeOptions::default())?
+                    .quantized
+                    .bytes,
+            );
         }
         return Ok(synth::synth_quantize(&desc, seed)?.bytes);
     }
@@ -254,8 +275,20 @@ impl Budget {
     pub fn render_text(&self) -> String {
         let mut s = format!("budget of {} on {}\n", self.model, self.target);
         for (title, items, total, limit, margin) in [
-            ("flash", &self.flash, self.flash_bytes, self.flash_limit, self.flash_margin),
-            ("RAM", &self.ram, self.ram_bytes, self.ram_limit, self.ram_margin),
+            (
+                "flash",
+                &self.flash,
+                self.flash_bytes,
+                self.flash_limit,
+                self.flash_margin,
+            ),
+            (
+                "RAM",
+                &self.ram,
+                self.ram_bytes,
+                self.ram_limit,
+                self.ram_margin,
+            ),
         ] {
             s += &format!("\n{title}\n");
             for i in items {
@@ -263,9 +296,17 @@ impl Budget {
                 s += &format!("  {:<40} {:>22}  {}\n", i.name, b, i.note);
             }
             s += &format!("  {:<40} {:>22}\n", "total", fmt_bytes(total));
-            s += &format!("  {:<40} {:>22}\n", "available (total − reserved)", fmt_bytes(limit));
+            s += &format!(
+                "  {:<40} {:>22}\n",
+                "available (total − reserved)",
+                fmt_bytes(limit)
+            );
             let m = if margin >= 0 {
-                format!("{} free ({:.1}%)", fmt_bytes(margin as u64), 100.0 * margin as f64 / limit.max(1) as f64)
+                format!(
+                    "{} free ({:.1}%)",
+                    fmt_bytes(margin as u64),
+                    100.0 * margin as f64 / limit.max(1) as f64
+                )
             } else {
                 format!("over by {}", fmt_bytes(margin.unsigned_abs()))
             };
@@ -285,7 +326,11 @@ impl Budget {
         s += &format!(
             "\nverdict: {}{}\n",
             if self.fits { "FITS" } else { "DOES NOT FIT" },
-            if self.complete { "" } else { " (some items not measured, see above)" }
+            if self.complete {
+                ""
+            } else {
+                " (some items not measured, see above)"
+            }
         );
         s
     }
@@ -309,4 +354,53 @@ mod tests {
         assert_eq!(b.flash_margin, t.flash_available() as i64 - 10);
         assert!(b.render_text().contains("not measured: no qemu"));
     }
+}
+
+/// Exit status of `midge budget` when the model does not fit.
+pub const EXIT_DOES_NOT_FIT: i32 = 4;
+
+/// Flags of `midge budget`.
+#[derive(clap::Args, Debug)]
+pub struct BudgetArgs {
+    /// A .midge model file, or a description (TOML); a description without
+    /// weights gets seeded synthetic weights.
+    pub model: std::path::PathBuf,
+    /// Target profile: a name under models/targets (m4-80, m0plus-48,
+    /// m7-400) or a profile file.
+    #[arg(long)]
+    pub target: String,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    pub json: bool,
+    /// Skip the emulated run (no stack high-water mark).
+    #[arg(long)]
+    pub no_emulate: bool,
+    /// Do not build firmware to measure the runtime's code size.
+    #[arg(long)]
+    pub no_runtime_size: bool,
+    /// Seed of synthetic weights.
+    #[arg(long, default_value_t = DEFAULT_SEED)]
+    pub seed: u64,
+}
+
+/// `midge budget`: prints the bill and verdict; returns the exit status
+/// (0 fits, `EXIT_DOES_NOT_FIT` otherwise).
+pub fn cmd_budget(a: &BudgetArgs) -> Result<i32> {
+    let target = Target::resolve(&a.target)?;
+    let bytes = model_bytes_for(&a.model, a.seed)?;
+    let opts = BudgetOptions {
+        measure_runtime: !a.no_runtime_size,
+        emulate: !a.no_emulate,
+        ..BudgetOptions::default()
+    };
+    let ev = evaluate(&bytes, &target, &opts)
+        .map_err(|e| Error::new(a.model.display().to_string(), e.to_string()))?;
+    if a.json {
+        let text = serde_json::to_string_pretty(&ev.budget)
+            .map_err(|e| Error::new("budget", format!("cannot write JSON: {e}")))?;
+        println!("{text}");
+    } else {
+        print!("{}", ev.budget.render_text());
+    }
+    Ok(if ev.budget.fits { 0 } else { EXIT_DOES_NOT_FIT })
 }

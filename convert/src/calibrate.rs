@@ -306,7 +306,13 @@ mod tests {
     #[test]
     fn minmax_is_exact_extremes() {
         let s = stats_of(&[0.5, -3.25, 7.0, 2.0], RangeMethod::MinMax);
-        assert_eq!(s.range(RangeMethod::MinMax), Range { min: -3.25, max: 7.0 });
+        assert_eq!(
+            s.range(RangeMethod::MinMax),
+            Range {
+                min: -3.25,
+                max: 7.0
+            }
+        );
         assert!(s.hist.is_none());
     }
 
@@ -370,7 +376,12 @@ mod tests {
         let s = stats_of(&v, RangeMethod::Mse);
         let r = s.range(RangeMethod::Mse);
         let half_width = (r.max - r.min) / 2.0;
-        assert!(r.max < s.max && r.min > s.min, "{r:?} vs [{}, {}]", s.min, s.max);
+        assert!(
+            r.max < s.max && r.min > s.min,
+            "{r:?} vs [{}, {}]",
+            s.min,
+            s.max
+        );
         assert!((half_width - 9.9).abs() < 2.0, "{r:?}");
         // Plain uniform data: clipping only hurts, the range stays (nearly) full.
         let u: Vec<f32> = (0..100_000).map(|_| rng.gen_range(-1.0..1.0)).collect();
@@ -394,7 +405,17 @@ mod tests {
     fn with_zero_extends() {
         let r = Range { min: 0.5, max: 2.0 }.with_zero();
         assert_eq!(r, Range { min: 0.0, max: 2.0 });
-        let r = Range { min: -3.0, max: -1.0 }.with_zero();
-        assert_eq!(r, Range { min: -3.0, max: 0.0 });
+        let r = Range {
+            min: -3.0,
+            max: -1.0,
+        }
+        .with_zero();
+        assert_eq!(
+            r,
+            Range {
+                min: -3.0,
+                max: 0.0
+            }
+        );
     }
 }

@@ -45,7 +45,9 @@ pub enum Command {
     Classify(ClassifyArgs),
     /// Show a .midge model: layers, shapes, quantization, memory plan.
     Show(ShowArgs),
-    // Further subcommands (e.g. `budget`) are added here and dispatched in `run`.
+    /// Flash and RAM of a model on a target profile: fits or does not fit (exit 4).
+    Budget(crate::budget::BudgetArgs),
+    // Further subcommands are added here and dispatched in `run`.
 }
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
@@ -132,7 +134,7 @@ pub struct CompareArgs {
     #[arg(long)]
     pub json: bool,
     /// Exit with status 3 when the top-1 drop exceeds this many percentage points.
-    #[arg(long, value_name = "PP")]
+    #[arg(long, value_name = "PP", allow_negative_numbers = true)]
     pub max_drop: Option<f64>,
     /// Labelled image folder (one sub-folder per label) instead of the
     /// description's `validation`.
@@ -169,6 +171,7 @@ pub fn run(cli: Cli) -> Result<i32> {
         Command::Compare(a) => cmd_compare(&a),
         Command::Classify(a) => cmd_classify(&a),
         Command::Show(a) => cmd_show(&a),
+        Command::Budget(a) => crate::budget::cmd_budget(&a),
     }
 }
 
@@ -187,7 +190,10 @@ fn method_text(m: RangeMethod) -> String {
 fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
     let opts = a.flags.options();
     let conv = quantize::quantize_description(&a.description, &opts)?;
-    let out = a.output.clone().unwrap_or_else(|| default_output(&a.description));
+    let out = a
+        .output
+        .clone()
+        .unwrap_or_else(|| default_output(&a.description));
     let q = &conv.quantized;
     let module = a
         .rust_module
@@ -199,18 +205,26 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
     }
     output::write_all_atomic(&files)?;
     for w in &conv.warnings {
-        eprintln!("warning: {}: weight tensor {w} is not used by the description", a.description.display());
+        eprintln!(
+            "warning: {}: weight tensor {w} is not used by the description",
+            a.description.display()
+        );
     }
-    let int8 = conv.graph.nodes.iter().filter(|n| n.precision == Precision::Int8).count();
+    let int8 = conv
+        .graph
+        .nodes
+        .iter()
+        .filter(|n| n.precision == Precision::Int8)
+        .count();
     println!(
-        "wrote {} ({} bytes): model {}, {} layers ({} int8, {} fp16 of {} description nodes)",
+        "wrote {} ({} bytes): model {}, {} runtime layers for {} folded layers ({} int8, {} fp16)",
         out.display(),
         q.bytes.len(),
         q.spec.name,
         q.spec.layers.len(),
+        conv.graph.nodes.len(),
         int8,
-        conv.graph.nodes.len() - int8,
-        conv.graph.nodes.len()
+        conv.graph.nodes.len() - int8
     );
     println!(
         "calibration: {} images, {}",
@@ -240,7 +254,10 @@ fn over(achieved: usize, bound: usize) -> f64 {
 fn cmd_compare(a: &CompareArgs) -> Result<i32> {
     if let Some(d) = a.max_drop {
         if !d.is_finite() {
-            return Err(Error::new("--max-drop", format!("must be a number of percentage points, found {d}")));
+            return Err(Error::new(
+                "--max-drop",
+                format!("must be a number of percentage points, found {d}"),
+            ));
         }
     }
     let opts = CompareOptions {
@@ -273,13 +290,18 @@ pub fn read_model(path: &Path) -> Result<AlignedBytes> {
     let place = path.display().to_string();
     let raw = std::fs::read(path).map_err(|e| Error::new(&place, format!("cannot read: {e}")))?;
     let bytes = AlignedBytes::from_slice(&raw);
-    Model::parse(&bytes).map_err(|e| Error::new(&place, format!("not a valid midge model: {e}")))?;
+    Model::parse(&bytes)
+        .map_err(|e| Error::new(&place, format!("not a valid midge model: {e}")))?;
     Ok(bytes)
 }
 
 fn parse_model<'a>(bytes: &'a AlignedBytes, path: &Path) -> Result<Model<'a>> {
-    Model::parse(bytes)
-        .map_err(|e| Error::new(path.display().to_string(), format!("not a valid midge model: {e}")))
+    Model::parse(bytes).map_err(|e| {
+        Error::new(
+            path.display().to_string(),
+            format!("not a valid midge model: {e}"),
+        )
+    })
 }
 
 /// Softmax of logits (host side, f64, shifted by the maximum).
@@ -303,17 +325,32 @@ fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
     let mut ws = AlignedBytes::zeroed(model.workspace_len());
     for img in &a.images {
         let px = images::load_image(img, &spec)?;
-        let out = model
-            .run(&px, &mut ws)
-            .map_err(|e| Error::new(img.display().to_string(), format!("the runtime failed: {e}")))?;
+        let out = model.run(&px, &mut ws).map_err(|e| {
+            Error::new(
+                img.display().to_string(),
+                format!("the runtime failed: {e}"),
+            )
+        })?;
         let rec = model.output();
         let logits = dequantize_tensor(&rec, out);
-        let top = midge_runtime::exec::top1(&rec, out).map(|(i, _)| i).unwrap_or(0);
+        let top = midge_runtime::exec::top1(&rec, out)
+            .map(|(i, _)| i)
+            .unwrap_or(0);
         let p = softmax(&logits);
         let mut order: Vec<usize> = (0..p.len()).collect();
         order.sort_by(|&i, &j| p[j].total_cmp(&p[i]).then(i.cmp(&j)));
-        let label = |i: usize| model.label(i).map(str::to_string).unwrap_or_else(|| format!("class {i}"));
-        let mut line = format!("{}: {} ({:.3})", img.display(), label(top), p.get(top).copied().unwrap_or(0.0));
+        let label = |i: usize| {
+            model
+                .label(i)
+                .map(str::to_string)
+                .unwrap_or_else(|| format!("class {i}"))
+        };
+        let mut line = format!(
+            "{}: {} ({:.3})",
+            img.display(),
+            label(top),
+            p.get(top).copied().unwrap_or(0.0)
+        );
         let rest: Vec<String> = order
             .iter()
             .take(a.top.max(1))
@@ -336,8 +373,17 @@ fn elem_name(e: ElemType) -> &'static str {
 /// The text `midge show` prints.
 pub fn show_text(model: &Model<'_>) -> String {
     let mut s = String::new();
-    let labels: Vec<&str> = (0..model.label_count()).filter_map(|i| model.label(i)).collect();
-    let _ = writeln!(s, "model {} — {} bytes, {} layers, {} tensors", model.name(), model.bytes().len(), model.layer_count(), model.tensor_count());
+    let labels: Vec<&str> = (0..model.label_count())
+        .filter_map(|i| model.label(i))
+        .collect();
+    let _ = writeln!(
+        s,
+        "model {} — {} bytes, {} layers, {} tensors",
+        model.name(),
+        model.bytes().len(),
+        model.layer_count(),
+        model.tensor_count()
+    );
     let _ = writeln!(s, "labels: {}", labels.join(", "));
     let sec = model.sections();
     let _ = writeln!(
@@ -349,16 +395,32 @@ pub fn show_text(model: &Model<'_>) -> String {
     let _ = writeln!(
         s,
         "  {:>3}  {:<15} {:<6} {:>9}  {:>4} {:<14} {:<5} {:>11} {:>5} {:>8} {:>7} {:>10}",
-        "#", "op", "act", "inputs", "out", "shape HxWxC", "type", "scale", "zp", "offset", "bytes", "MACs"
+        "#",
+        "op",
+        "act",
+        "inputs",
+        "out",
+        "shape HxWxC",
+        "type",
+        "scale",
+        "zp",
+        "offset",
+        "bytes",
+        "MACs"
     );
     let mut sizes = vec![0usize; model.tensor_count()];
     let mut steps = Vec::new();
     for i in 0..model.layer_count() {
         let Some(l) = model.layer(i) else { continue };
         let h = l.header;
-        let ins: Vec<usize> = h.inputs[..h.op.arity()].iter().map(|&t| t as usize).collect();
+        let ins: Vec<usize> = h.inputs[..h.op.arity()]
+            .iter()
+            .map(|&t| t as usize)
+            .collect();
         steps.push((ins.clone(), h.output as usize));
-        let Some(t) = model.tensor(h.output as usize) else { continue };
+        let Some(t) = model.tensor(h.output as usize) else {
+            continue;
+        };
         sizes[h.output as usize] = t.byte_len();
         let act = match h.act {
             midge_runtime::Activation::None => "-",
@@ -367,7 +429,10 @@ pub fn show_text(model: &Model<'_>) -> String {
         };
         let ins_text: Vec<String> = ins.iter().map(|t| format!("t{t}")).collect();
         let quant = if t.elem == ElemType::I8 {
-            (format!("{:.5e}", t.quant.scale), t.quant.zero_point.to_string())
+            (
+                format!("{:.5e}", t.quant.scale),
+                t.quant.zero_point.to_string(),
+            )
         } else {
             ("-".into(), "-".into())
         };
@@ -400,12 +465,20 @@ pub fn show_text(model: &Model<'_>) -> String {
     let _ = writeln!(
         s,
         "input t0: {}x{}x{} {} (scale {}, passed by the caller)",
-        inp.shape.h, inp.shape.w, inp.shape.c, elem_name(inp.elem), inp.quant.scale
+        inp.shape.h,
+        inp.shape.w,
+        inp.shape.c,
+        elem_name(inp.elem),
+        inp.quant.scale
     );
     let _ = writeln!(
         s,
         "output t{}: {}x{}x{} {}",
-        model.output_id(), out.shape.h, out.shape.w, out.shape.c, elem_name(out.elem)
+        model.output_id(),
+        out.shape.h,
+        out.shape.w,
+        out.shape.c,
+        elem_name(out.elem)
     );
     let lt = plan::lifetimes(&sizes, &steps, model.output_id(), &[0]);
     let _ = writeln!(

@@ -102,7 +102,7 @@ pub fn argmax(v: &[f32]) -> Option<usize> {
         if x.is_nan() {
             continue;
         }
-        if best.map_or(true, |b| *x > v[b]) {
+        if best.is_none_or(|b| *x > v[b]) {
             best = Some(i);
         }
     }
@@ -121,7 +121,10 @@ struct Sqnr<'a> {
 
 impl Observer for Sqnr<'_> {
     fn after_layer(&mut self, i: usize, out: &TensorRecord, bytes: &[u8]) {
-        let Some(t) = self.outputs.get(i).and_then(|&o| self.source.get(o).copied().flatten())
+        let Some(t) = self
+            .outputs
+            .get(i)
+            .and_then(|&o| self.source.get(o).copied().flatten())
         else {
             return;
         };
@@ -154,7 +157,12 @@ impl Runner {
     }
 
     /// Run once; `(top-1, dequantized logits)`.
-    fn run(&mut self, px: &[u8], obs: &mut impl Observer, place: &str) -> Result<(usize, Vec<f32>)> {
+    fn run(
+        &mut self,
+        px: &[u8],
+        obs: &mut impl Observer,
+        place: &str,
+    ) -> Result<(usize, Vec<f32>)> {
         let model = Model::parse(&self.bytes)
             .map_err(|e| Error::new(place, format!("the runtime rejects the model: {e}")))?;
         let out_rec = model.output();
@@ -169,7 +177,11 @@ impl Runner {
 }
 
 fn precision_name(graph: &FloatGraph) -> String {
-    let int8 = graph.nodes.iter().filter(|n| n.precision == Precision::Int8).count();
+    let int8 = graph
+        .nodes
+        .iter()
+        .filter(|n| n.precision == Precision::Int8)
+        .count();
     match int8 {
         0 => "fp16".into(),
         n if n == graph.nodes.len() => "int8".into(),
@@ -204,13 +216,20 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
     let mut main = Runner::new(q, &place)?;
     let mut fp16 = if also_fp16 {
         let mut g = graph.clone();
-        g.nodes.iter_mut().for_each(|n| n.precision = Precision::Fp16);
+        g.nodes
+            .iter_mut()
+            .for_each(|n| n.precision = Precision::Fp16);
         let q16 = quantize_graph(&g, &conv.ranges)?;
         Some(Runner::new(&q16, &place)?)
     } else {
         None
     };
-    let outputs: Vec<usize> = q.spec.layers.iter().map(|l| l.header.output as usize).collect();
+    let outputs: Vec<usize> = q
+        .spec
+        .layers
+        .iter()
+        .map(|l| l.header.output as usize)
+        .collect();
     let n_layers = outputs.len();
     let mut signal = vec![0.0; n_layers];
     let mut noise = vec![0.0; n_layers];
@@ -249,7 +268,10 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
         if let Some(cell) = confusion.get_mut(*truth).and_then(|r| r.get_mut(q_top)) {
             *cell += 1;
         }
-        if let Some(cell) = float_confusion.get_mut(*truth).and_then(|r| r.get_mut(f_top)) {
+        if let Some(cell) = float_confusion
+            .get_mut(*truth)
+            .and_then(|r| r.get_mut(f_top))
+        {
             *cell += 1;
         }
         if let Some(r) = fp16.as_mut() {
@@ -306,7 +328,11 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
         quantized_top1,
         drop_pp: float_top1 - quantized_top1,
         agreement: pct(agree, n),
-        mean_abs_logit_error: if err_n > 0 { err_sum / err_n as f64 } else { 0.0 },
+        mean_abs_logit_error: if err_n > 0 {
+            err_sum / err_n as f64
+        } else {
+            0.0
+        },
         max_abs_logit_error: err_max,
         fp16: fp16.map(|_| Fp16Row {
             top1: pct(h_ok, n),
@@ -367,28 +393,56 @@ impl Report {
             self.workspace_lower_bound
         );
         let _ = writeln!(s);
-        let _ = writeln!(s, "  {:<10} {:>8} {:>10} {:>10} {:>12} {:>12}", "", "top-1 %", "drop pp", "agree %", "mean |err|", "max |err|");
-        let _ = writeln!(s, "  {:<10} {:>8.2} {:>10} {:>10} {:>12} {:>12}", "float", self.float_top1, "-", "-", "-", "-");
+        let _ = writeln!(
+            s,
+            "  {:<10} {:>8} {:>10} {:>10} {:>12} {:>12}",
+            "", "top-1 %", "drop pp", "agree %", "mean |err|", "max |err|"
+        );
+        let _ = writeln!(
+            s,
+            "  {:<10} {:>8.2} {:>10} {:>10} {:>12} {:>12}",
+            "float", self.float_top1, "-", "-", "-", "-"
+        );
         let _ = writeln!(
             s,
             "  {:<10} {:>8.2} {:>10.2} {:>10.2} {:>12.4} {:>12.4}",
-            self.precision, self.quantized_top1, self.drop_pp, self.agreement, self.mean_abs_logit_error, self.max_abs_logit_error
+            self.precision,
+            self.quantized_top1,
+            self.drop_pp,
+            self.agreement,
+            self.mean_abs_logit_error,
+            self.max_abs_logit_error
         );
         if let Some(h) = &self.fp16 {
             let _ = writeln!(
                 s,
                 "  {:<10} {:>8.2} {:>10.2} {:>10.2} {:>12.4} {:>12.4}",
-                "all fp16", h.top1, h.drop_pp, h.agreement, h.mean_abs_logit_error, h.max_abs_logit_error
+                "all fp16",
+                h.top1,
+                h.drop_pp,
+                h.agreement,
+                h.mean_abs_logit_error,
+                h.max_abs_logit_error
             );
         }
         let _ = writeln!(s);
         let _ = writeln!(s, "  per class        images  float %  quant %");
         for c in &self.per_class {
-            let _ = writeln!(s, "  {:<16} {:>6} {:>8.1} {:>8.1}", c.label, c.images, c.float_top1, c.quantized_top1);
+            let _ = writeln!(
+                s,
+                "  {:<16} {:>6} {:>8.1} {:>8.1}",
+                c.label, c.images, c.float_top1, c.quantized_top1
+            );
         }
         let _ = writeln!(s);
         let _ = writeln!(s, "  confusion (quantized; rows true, columns predicted)");
-        let w = self.labels.iter().map(|l| l.len()).max().unwrap_or(4).clamp(4, 12);
+        let w = self
+            .labels
+            .iter()
+            .map(|l| l.len())
+            .max()
+            .unwrap_or(4)
+            .clamp(4, 12);
         let _ = write!(s, "  {:<w$}", "");
         for l in &self.labels {
             let _ = write!(s, " {:>w$}", truncate(l, w));
@@ -402,13 +456,22 @@ impl Report {
             let _ = writeln!(s);
         }
         let _ = writeln!(s);
-        let _ = writeln!(s, "  layer                    op              out    SQNR dB");
+        let _ = writeln!(
+            s,
+            "  layer                    op              out    SQNR dB"
+        );
         for l in &self.layers {
             let db = match l.sqnr_db {
                 Some(v) => format!("{v:>9.1}"),
                 None => format!("{:>9}", "exact"),
             };
-            let _ = writeln!(s, "  {:<24} {:<15} {:<5} {db}", truncate(&l.name, 24), l.op, l.precision);
+            let _ = writeln!(
+                s,
+                "  {:<24} {:<15} {:<5} {db}",
+                truncate(&l.name, 24),
+                l.op,
+                l.precision
+            );
         }
         s
     }

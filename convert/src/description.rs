@@ -34,6 +34,41 @@ impl Precision {
 /// One deployment job as written in a description file. Relative paths are
 /// resolved against the folder of the file by [`Description::load`] and
 /// [`Description::from_toml_str`], so the fields hold usable paths.
+///
+/// ```toml
+/// name = "capcheck-plain"
+/// labels = ["sealed", "missing", "tilted", "torn"]
+/// weights = "weights.safetensors"   # optional; relative to this file
+/// calibration = "calib"             # optional folder of images
+/// validation = "val"                # optional, one sub-folder per label
+/// target = "../targets/m4-80.toml"  # optional default target profile
+/// precision = "int8"                # layer default: "int8" | "fp16"
+/// [input]
+/// height = 32
+/// width = 32
+/// channels = 1
+/// mean = [0.5]        # per channel, after pixel_range (default 0)
+/// std = [0.25]        # per channel (default 1)
+/// pixel_range = 1.0   # byte 255 maps to this before normalization
+/// resize = true       # resize other sizes instead of rejecting them
+/// [[layer]]
+/// name = "stem"       # default "<op><n>", n = 1-based layer number
+/// op = "conv2d"       # conv2d depthwise maxpool avgpool global_avgpool
+///                     # dense add relu relu6 flatten batchnorm
+/// tensor = "features.0"  # safetensors prefix; default: the name
+/// from = "input"      # or ["a", "b"] for add; default: previous layer
+/// out_channels = 8    # conv2d; dense takes out_features
+/// kernel = 3          # or [kh, kw]
+/// stride = 1          # or [sh, sw]; pools default to the kernel
+/// dilation = 1        # conv2d, depthwise, maxpool
+/// padding = "same"    # "valid" | "same" | p | [ph, pw] | [t, l, b, r]
+/// bias = true         # conv2d, depthwise, dense (default true)
+/// eps = 1e-5          # batchnorm
+/// precision = "fp16"  # per-layer override
+/// ```
+///
+/// Keys that do not apply to a layer's op are errors. Avgpool takes no
+/// padding (PyTorch's count_include_pad differs from in-bounds averaging).
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct Description {
@@ -431,6 +466,16 @@ impl Description {
             }
         }
         let last = out.last().expect("checked non-empty");
+        let s = last.in_shapes[0];
+        if last.kind == LayerKind::Flatten && s.h as usize * s.w as usize > 1 && s.c > 1 {
+            return Err(Error::new(
+                self.layer_place(last.index, &last.name),
+                format!(
+                    "the model ends in a flatten of a {}×{}×{} tensor: its output order (PyTorch's C,H,W) is not the device's H,W,C; end in a dense or global_avgpool",
+                    s.h, s.w, s.c
+                ),
+            ));
+        }
         if last.out_shape.elems() != self.labels.len() {
             return Err(Error::new(
                 format!("{place}: labels"),
@@ -739,7 +784,7 @@ impl Description {
 
     /// Names and PyTorch shapes of every tensor the description reads
     /// (conv2d O×I×kH×kW, depthwise C×1×kH×kW, dense O×I, batchnorm
-    /// weight/bias/running_mean/running_var [C]). BatchNorm's optional
+    /// weight/bias/running_mean/running_var `[C]`). BatchNorm's optional
     /// `num_batches_tracked` is not listed (see `LayerInfo::optional_tensors`).
     pub fn expected_tensors(&self) -> Result<Vec<(String, Vec<usize>)>> {
         Ok(self

@@ -63,7 +63,13 @@ fn rustc_sysroot() -> Option<PathBuf> {
 /// Whether the standard library for `triple` is installed, or how to add it.
 pub fn rust_target_installed(triple: &str) -> Result<()> {
     let ok = rustc_sysroot()
-        .map(|s| s.join("lib").join("rustlib").join(triple).join("lib").is_dir())
+        .map(|s| {
+            s.join("lib")
+                .join("rustlib")
+                .join(triple)
+                .join("lib")
+                .is_dir()
+        })
         .unwrap_or(false);
     if ok {
         Ok(())
@@ -108,7 +114,14 @@ fn build_uncached(triple: &str) -> Result<FirmwareBuild> {
     let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
     let out = Command::new(cargo)
         .current_dir(&dir)
-        .args(["build", "--release", "--quiet", "--bins", "--target", triple])
+        .args([
+            "build",
+            "--release",
+            "--quiet",
+            "--bins",
+            "--target",
+            triple,
+        ])
         .env("CARGO_TARGET_DIR", &target_dir)
         .env_remove("RUSTFLAGS")
         .env_remove("CARGO_ENCODED_RUSTFLAGS")
@@ -149,7 +162,10 @@ pub fn job_block(model: &[u8], inputs: &[&[u8]], workspace_len: usize) -> Result
     if let Some(i) = inputs.iter().position(|i| i.len() != input_len) {
         return Err(Error::new(
             format!("input {i}"),
-            format!("expected {input_len} bytes like input 0, found {}", inputs[i].len()),
+            format!(
+                "expected {input_len} bytes like input 0, found {}",
+                inputs[i].len()
+            ),
         ));
     }
     let model_offset = JOB_HEADER_LEN;
@@ -227,13 +243,14 @@ impl EmulatedRun {
 /// Runs `harness` on `machine` with `job` loaded at `JOB_ADDR`.
 pub fn run(machine: &str, harness: &Path, job: &[u8], timeout: Duration) -> Result<EmulatedRun> {
     let qemu = qemu_version()?;
-    let job_file = std::env::temp_dir().join(format!(
-        "midge-job-{}-{:?}.bin",
-        std::process::id(),
-        std::thread::current().id()
-    ))
-    .to_string_lossy()
-    .replace(['(', ')', ' '], "");
+    let job_file = std::env::temp_dir()
+        .join(format!(
+            "midge-job-{}-{:?}.bin",
+            std::process::id(),
+            std::thread::current().id()
+        ))
+        .to_string_lossy()
+        .replace(['(', ')', ' '], "");
     std::fs::write(&job_file, job)
         .map_err(|e| Error::new(&job_file, format!("cannot write job block: {e}")))?;
     let result = run_qemu(machine, harness, &job_file, timeout);
@@ -245,7 +262,15 @@ pub fn run(machine: &str, harness: &Path, job: &[u8], timeout: Duration) -> Resu
 fn run_qemu(machine: &str, harness: &Path, job_file: &str, timeout: Duration) -> Result<String> {
     let place = format!("qemu-system-arm -M {machine}");
     let mut child = Command::new("qemu-system-arm")
-        .args(["-M", machine, "-nographic", "-monitor", "none", "-serial", "none"])
+        .args([
+            "-M",
+            machine,
+            "-nographic",
+            "-monitor",
+            "none",
+            "-serial",
+            "none",
+        ])
         .args(["-semihosting-config", "enable=on,target=native"])
         .args(["-icount", "shift=0"])
         .arg("-kernel")
@@ -258,7 +283,12 @@ fn run_qemu(machine: &str, harness: &Path, job_file: &str, timeout: Duration) ->
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
         .spawn()
-        .map_err(|e| Error::new(&place, format!("cannot start: {e}; install with `{INSTALL_QEMU}`")))?;
+        .map_err(|e| {
+            Error::new(
+                &place,
+                format!("cannot start: {e}; install with `{INSTALL_QEMU}`"),
+            )
+        })?;
     // Drain stdout on a thread so a chatty harness cannot block on a full pipe.
     let mut stdout = child.stdout.take().expect("piped stdout");
     let reader = std::thread::spawn(move || {
@@ -360,7 +390,10 @@ pub fn parse_report(text: &str, machine: &str, qemu: &str) -> Result<EmulatedRun
         }
     }
     if !ended {
-        return Err(Error::new(&place, "the harness stopped before its `end` line"));
+        return Err(Error::new(
+            &place,
+            "the harness stopped before its `end` line",
+        ));
     }
     let diff = run.calibration.1.saturating_sub(run.calibration.0);
     if diff == 0 {

@@ -33,7 +33,11 @@ pub fn relative_path(from_dir: &Path, to: &Path) -> String {
     let bc: Vec<_> = b.components().collect();
     let common = ac.iter().zip(&bc).take_while(|(x, y)| x == y).count();
     let mut parts: Vec<String> = vec!["..".into(); ac.len() - common];
-    parts.extend(bc[common..].iter().map(|c| c.as_os_str().to_string_lossy().into_owned()));
+    parts.extend(
+        bc[common..]
+            .iter()
+            .map(|c| c.as_os_str().to_string_lossy().into_owned()),
+    );
     parts.join("/")
 }
 
@@ -87,8 +91,17 @@ mod tests {
 
     #[test]
     fn relative_paths() {
-        assert_eq!(relative_path(Path::new("/a/b"), Path::new("/a/b/m.midge")), "m.midge");
-        assert_eq!(relative_path(Path::new("/a/b/src"), Path::new("/a/m.midge")), "../../m.midge");
-        assert_eq!(relative_path(Path::new("/a/./b"), Path::new("/a/c/../b/x")), "x");
+        assert_eq!(
+            relative_path(Path::new("/a/b"), Path::new("/a/b/m.midge")),
+            "m.midge"
+        );
+        assert_eq!(
+            relative_path(Path::new("/a/b/src"), Path::new("/a/m.midge")),
+            "../../m.midge"
+        );
+        assert_eq!(
+            relative_path(Path::new("/a/./b"), Path::new("/a/c/../b/x")),
+            "x"
+        );
     }
 }

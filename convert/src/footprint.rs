@@ -2,9 +2,10 @@
 //! runtime's own code measured from firmware ELFs, RAM by workspace, input,
 //! stack and static data, and the per-layer table with the memory timeline.
 
-use midge_runtime::{Bias, ElemType, Model, Op, Params, Weights};
+use midge_runtime::{Bias, ElemType, Model, Params, Weights};
 use serde::Serialize;
 
+use crate::compare::op_name;
 use crate::firmware;
 use crate::plan;
 use crate::{Error, Result};
@@ -172,22 +173,6 @@ pub struct ModelFootprint {
     pub peak_layer: Option<usize>,
 }
 
-/// Our short name of an op.
-pub fn op_name(op: Op) -> &'static str {
-    match op {
-        Op::Pixels => "pixels",
-        Op::Conv2d => "conv2d",
-        Op::Depthwise => "depthwise",
-        Op::MaxPool => "maxpool",
-        Op::AvgPool => "avgpool",
-        Op::GlobalAvgPool => "global_avgpool",
-        Op::Dense => "dense",
-        Op::Add => "add",
-        Op::Quantize => "quantize",
-        Op::Dequantize => "dequantize",
-    }
-}
-
 fn elem_name(e: ElemType) -> &'static str {
     match e {
         ElemType::U8 => "u8",
@@ -327,7 +312,10 @@ mod tests {
         );
         assert_eq!((s.flash(), s.ram()), (1320, 84));
         b[4] = 2;
-        assert!(elf_sizes(&b, "x.elf").unwrap_err().to_string().contains("32-bit"));
+        assert!(elf_sizes(&b, "x.elf")
+            .unwrap_err()
+            .to_string()
+            .contains("32-bit"));
         assert!(elf_sizes(&b[..40], "x.elf").is_err());
     }
 }

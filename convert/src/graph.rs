@@ -240,23 +240,26 @@ impl FloatGraph {
                 } => {
                     absorber(&out, src, false, readers(src, &last_old))
                         .map_err(|why| fail("folded", format!("{why}; only a conv2d, depthwise or dense read by nothing else can absorb it")))?;
-                    let k: Vec<f32> = gamma
+                    // Folding arithmetic in f64, rounded once to f32.
+                    let k: Vec<f64> = gamma
                         .iter()
                         .zip(var)
-                        .map(|(g, v)| g / (v + eps).sqrt())
+                        .map(|(&g, &v)| g as f64 / (v as f64 + *eps as f64).sqrt())
                         .collect();
                     let p = &mut out[src - 1];
                     match &mut p.op {
                         FloatOp::Conv2d { weight, bias, .. } | FloatOp::Dense { weight, bias } => {
                             let per = weight.len() / k.len();
                             for (row, k) in weight.chunks_mut(per).zip(&k) {
-                                row.iter_mut().for_each(|w| *w *= k);
+                                row.iter_mut().for_each(|w| *w = (*w as f64 * k) as f32);
                             }
                             fold_bias(bias, &k, beta, mean);
                         }
                         FloatOp::Depthwise { weight, bias, .. } => {
                             for tap in weight.chunks_mut(k.len()) {
-                                tap.iter_mut().zip(&k).for_each(|(w, k)| *w *= k);
+                                tap.iter_mut()
+                                    .zip(&k)
+                                    .for_each(|(w, k)| *w = (*w as f64 * k) as f32);
                             }
                             fold_bias(bias, &k, beta, mean);
                         }
@@ -343,9 +346,10 @@ fn absorber(
     }
 }
 
-fn fold_bias(bias: &mut [f32], k: &[f32], beta: &[f32], mean: &[f32]) {
-    for c in 0..bias.len() {
-        bias[c] = (bias[c] - mean[c]) * k[c] + beta[c];
+/// b' = (b − mean) · k + beta, with k = gamma / sqrt(var + eps).
+fn fold_bias(bias: &mut [f32], k: &[f64], beta: &[f32], mean: &[f32]) {
+    for (c, b) in bias.iter_mut().enumerate() {
+        *b = ((*b as f64 - mean[c] as f64) * k[c] + beta[c] as f64) as f32;
     }
 }
 

@@ -64,7 +64,8 @@ fn is_hidden(p: &Path) -> bool {
 
 fn entries(dir: &Path) -> Result<Vec<PathBuf>> {
     let place = dir.display().to_string();
-    let rd = fs::read_dir(dir).map_err(|e| Error::new(&place, format!("cannot list folder: {e}")))?;
+    let rd =
+        fs::read_dir(dir).map_err(|e| Error::new(&place, format!("cannot list folder: {e}")))?;
     let mut out = Vec::new();
     for e in rd {
         let e = e.map_err(|e| Error::new(&place, format!("cannot list folder: {e}")))?;
@@ -83,7 +84,10 @@ fn entries(dir: &Path) -> Result<Vec<PathBuf>> {
 pub fn folder_images(dir: &Path) -> Result<Vec<PathBuf>> {
     let files: Vec<PathBuf> = entries(dir)?.into_iter().filter(|p| !p.is_dir()).collect();
     if files.is_empty() {
-        return Err(Error::new(dir.display().to_string(), "folder holds no images"));
+        return Err(Error::new(
+            dir.display().to_string(),
+            "folder holds no images",
+        ));
     }
     Ok(files)
 }
@@ -110,7 +114,10 @@ pub fn all_images(dir: &Path) -> Result<Vec<PathBuf>> {
     }
     out.sort();
     if out.is_empty() {
-        return Err(Error::new(dir.display().to_string(), "folder holds no images"));
+        return Err(Error::new(
+            dir.display().to_string(),
+            "folder holds no images",
+        ));
     }
     Ok(out)
 }
@@ -178,14 +185,23 @@ mod tests {
     fn loads_hwc_and_converts_channels() {
         let d = scratch("load");
         let p = d.join("a.png");
-        rgb(3, 2, |x, y| [x as u8 * 10, y as u8 * 100, 7]).save(&p).unwrap();
-        let spec = ImageSpec { h: 2, w: 3, c: 3, resize: false };
+        rgb(3, 2, |x, y| [x as u8 * 10, y as u8 * 100, 7])
+            .save(&p)
+            .unwrap();
+        let spec = ImageSpec {
+            h: 2,
+            w: 3,
+            c: 3,
+            resize: false,
+        };
         let px = load_image(&p, &spec).unwrap();
         // HWC: pixel (y=1, x=2) starts at (1·3 + 2)·3.
         assert_eq!(&px[15..18], &[20, 100, 7]);
         // Grey source into an RGB model: repeated channels.
         let g = d.join("g.bmp");
-        image::GrayImage::from_fn(3, 2, |x, _| image::Luma([x as u8 * 50])).save(&g).unwrap();
+        image::GrayImage::from_fn(3, 2, |x, _| image::Luma([x as u8 * 50]))
+            .save(&g)
+            .unwrap();
         let px = load_image(&g, &spec).unwrap();
         assert_eq!(&px[3..6], &[50, 50, 50]);
         let grey = load_image(&g, &ImageSpec { c: 1, ..spec }).unwrap();
@@ -198,12 +214,27 @@ mod tests {
         let d = scratch("size");
         let p = d.join("big.png");
         rgb(8, 8, |_, _| [200, 100, 50]).save(&p).unwrap();
-        let spec = ImageSpec { h: 4, w: 4, c: 3, resize: false };
+        let spec = ImageSpec {
+            h: 4,
+            w: 4,
+            c: 3,
+            resize: false,
+        };
         let e = load_image(&p, &spec).unwrap_err();
         assert!(e.place.contains("big.png"));
-        assert!(e.problem.contains("8×8") && e.problem.contains("4×4"), "{e}");
+        assert!(
+            e.problem.contains("8×8") && e.problem.contains("4×4"),
+            "{e}"
+        );
         // A flat image stays flat under bilinear resizing.
-        let px = load_image(&p, &ImageSpec { resize: true, ..spec }).unwrap();
+        let px = load_image(
+            &p,
+            &ImageSpec {
+                resize: true,
+                ..spec
+            },
+        )
+        .unwrap();
         assert_eq!(px.len(), 48);
         assert!(px.chunks(3).all(|c| c == [200, 100, 50]));
         fs::remove_dir_all(&d).unwrap();
@@ -212,17 +243,27 @@ mod tests {
     #[test]
     fn folders_sorted_checked_and_labelled() {
         let d = scratch("folders");
-        let spec = ImageSpec { h: 1, w: 1, c: 1, resize: false };
+        let spec = ImageSpec {
+            h: 1,
+            w: 1,
+            c: 1,
+            resize: false,
+        };
         fs::create_dir_all(d.join("ok")).unwrap();
         fs::create_dir_all(d.join("bad")).unwrap();
         for n in ["b.png", "a.png", ".hidden"] {
             fs::write(d.join("ok").join(n), b"x").unwrap();
         }
         for n in ["b.png", "a.png"] {
-            image::GrayImage::new(1, 1).save(d.join("ok").join(n)).unwrap();
+            image::GrayImage::new(1, 1)
+                .save(d.join("ok").join(n))
+                .unwrap();
         }
         let files = folder_images(&d.join("ok")).unwrap();
-        let names: Vec<_> = files.iter().map(|p| p.file_name().unwrap().to_owned()).collect();
+        let names: Vec<_> = files
+            .iter()
+            .map(|p| p.file_name().unwrap().to_owned())
+            .collect();
         assert_eq!(names, ["a.png", "b.png"]);
         assert_eq!(load_folder(&d.join("ok"), &spec).unwrap().len(), 2);
         fs::write(d.join("bad").join("notes.txt"), b"hello").unwrap();
@@ -230,10 +271,16 @@ mod tests {
         assert!(e.place.contains("notes.txt"), "{e}");
         fs::create_dir_all(d.join("empty")).unwrap();
         assert!(folder_images(&d.join("empty")).is_err());
-        let labels: Vec<String> = ["ok", "bad", "gone"].iter().map(|s| s.to_string()).collect();
+        let labels: Vec<String> = ["ok", "bad", "gone"]
+            .iter()
+            .map(|s| s.to_string())
+            .collect();
         fs::create_dir_all(d.join("odd")).unwrap();
         let e = labelled_folder(&d, &labels).unwrap_err();
-        assert!(e.problem.contains("gone") && e.problem.contains("odd") && e.problem.contains("empty"), "{e}");
+        assert!(
+            e.problem.contains("gone") && e.problem.contains("odd") && e.problem.contains("empty"),
+            "{e}"
+        );
         fs::remove_dir_all(d.join("odd")).unwrap();
         fs::remove_dir_all(d.join("empty")).unwrap();
         let e = labelled_folder(&d, &labels[..2]).unwrap();

@@ -93,7 +93,10 @@ mod tests {
         let p = d.join("m.bin");
         write_atomic(&p, b"abc").unwrap();
         assert_eq!(fs::read(&p).unwrap(), b"abc");
-        let names: Vec<_> = fs::read_dir(&d).unwrap().map(|e| e.unwrap().file_name()).collect();
+        let names: Vec<_> = fs::read_dir(&d)
+            .unwrap()
+            .map(|e| e.unwrap().file_name())
+            .collect();
         assert_eq!(names.len(), 1);
         fs::remove_dir_all(&d).unwrap();
     }

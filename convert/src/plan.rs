@@ -119,7 +119,7 @@ pub fn place(lifetimes: &[Option<Lifetime>]) -> Plan {
             let at = align_up(cursor);
             if start >= at && start - at >= me.bytes {
                 let gap = start - at;
-                if best.map_or(true, |(g, _)| gap < g) {
+                if best.is_none_or(|(g, _)| gap < g) {
                     best = Some((gap, at));
                 }
             }

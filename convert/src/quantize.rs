@@ -24,7 +24,7 @@
 //! `(max − min) / 255` over the calibrated range extended to hold 0, zero
 //! point `round(−128 − min / scale)` in −128..=127. Bias: int32 at scale
 //! `s_in · s_w[c]` with `−zp_in · Σ q_w` folded in. Requantization multiplier
-//! per channel `s_in · s_w[c] / s_out` via `midge_runtime::requant::quantize_multiplier`.
+//! per channel `s_in · s_w[c] / s_out` via `midge_runtime::requant::requant_from_real`.
 //! Host-side rounding of real values to integers is to nearest, ties away
 //! from zero (`f64::round`).
 
@@ -32,7 +32,7 @@ use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
 use half::f16;
-use midge_runtime::requant::quantize_multiplier;
+use midge_runtime::requant::requant_from_real;
 use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
 use midge_runtime::{
     Activation, ElemType, LayerHeader, Op, Quant, Requant, Shape, TensorRecord, Window,
@@ -92,7 +92,9 @@ pub fn activation_quant(r: Range) -> Quant {
         1.0
     };
     let scale = scale as f32;
-    let zp = (-128.0 - r.min as f64 / scale as f64).round().clamp(-128.0, 127.0) as i32;
+    let zp = (-128.0 - r.min as f64 / scale as f64)
+        .round()
+        .clamp(-128.0, 127.0) as i32;
     Quant {
         scale,
         zero_point: zp,
@@ -113,7 +115,13 @@ pub fn quantize_weights(
     }
     let scales: Vec<f32> = max
         .iter()
-        .map(|&m| if m > 0.0 && m.is_finite() { m / 127.0 } else { 1.0 })
+        .map(|&m| {
+            if m > 0.0 && m.is_finite() {
+                m / 127.0
+            } else {
+                1.0
+            }
+        })
         .collect();
     let q = w
         .iter()
@@ -241,9 +249,8 @@ impl<'g> Builder<'g> {
     }
 
     fn new_tensor(&mut self, shape: Shape, elem: ElemType, quant: Quant) -> Result<u16> {
-        let id = u16::try_from(self.tensors.len()).map_err(|_| {
-            Error::new(self.graph.name.clone(), "more than 65535 tensors")
-        })?;
+        let id = u16::try_from(self.tensors.len())
+            .map_err(|_| Error::new(self.graph.name.clone(), "more than 65535 tensors"))?;
         self.tensors.push(TensorRecord {
             shape,
             elem,
@@ -308,7 +315,10 @@ impl<'g> Builder<'g> {
         }
         let range = inp.pixel_range as f64;
         if !(range.is_finite() && range > 0.0) {
-            return Err(Error::new(place, format!("pixel_range must be positive, found {range}")));
+            return Err(Error::new(
+                place,
+                format!("pixel_range must be positive, found {range}"),
+            ));
         }
         for (k, &s) in inp.std.iter().enumerate() {
             if !(s.is_finite() && s != 0.0) {
@@ -355,7 +365,7 @@ impl<'g> Builder<'g> {
                     let real = range / (255.0 * s * q.scale as f64 * 256.0);
                     // A negative std flips the sign, which the non-negative
                     // multiplier cannot express.
-                    let rq = quantize_multiplier(real).ok_or_else(|| {
+                    let rq = requant_from_real(real).ok_or_else(|| {
                         Error::new(
                             place.clone(),
                             format!("pixel multiplier {real:e} of channel {k} cannot be expressed (std must be positive)"),
@@ -416,7 +426,10 @@ impl<'g> Builder<'g> {
             other => {
                 return Err(Error::new(
                     place,
-                    format!("{} is left after folding; the quantizer takes folded graphs only", other.name()),
+                    format!(
+                        "{} is left after folding; the quantizer takes folded graphs only",
+                        other.name()
+                    ),
                 ))
             }
         };
@@ -432,7 +445,10 @@ impl<'g> Builder<'g> {
         h.clamp_i8 = clamp_i8(node.act, quant);
         h.clamp_f32 = clamp_f32(node.act);
         let (weights, bias, params) = match (&node.op, elem) {
-            (FloatOp::Conv2d { .. } | FloatOp::Depthwise { .. } | FloatOp::Dense { .. }, ElemType::I8) => {
+            (
+                FloatOp::Conv2d { .. } | FloatOp::Depthwise { .. } | FloatOp::Dense { .. },
+                ElemType::I8,
+            ) => {
                 let (w, b) = node.op.weight_bias().unwrap_or((&[], &[]));
                 let oc = node.out_shape.c as usize;
                 let depthwise = op == Op::Depthwise;
@@ -478,7 +494,7 @@ fn int8_weighted(
     qin: Quant,
     qout: Quant,
 ) -> Result<(WeightsBuf, BiasBuf, ParamsBuf)> {
-    if oc == 0 || w.len() % oc != 0 || b.len() != oc {
+    if oc == 0 || !w.len().is_multiple_of(oc) || b.len() != oc {
         return Err(Error::new(
             place,
             format!(
@@ -517,7 +533,7 @@ fn int8_weighted(
         }
         bias.push(folded as i32);
         let real = s_acc / qout.scale as f64;
-        let Requant { multiplier, rshift } = quantize_multiplier(real).ok_or_else(|| {
+        let Requant { multiplier, rshift } = requant_from_real(real).ok_or_else(|| {
             Error::new(
                 place,
                 format!("requantization multiplier {real:e} of output channel {c} is outside the range a (multiplier, shift) pair can express"),
@@ -525,7 +541,11 @@ fn int8_weighted(
         })?;
         params.extend([multiplier, rshift]);
     }
-    Ok((WeightsBuf::I8(q), BiasBuf::I32(bias), ParamsBuf::I32(params)))
+    Ok((
+        WeightsBuf::I8(q),
+        BiasBuf::I32(bias),
+        ParamsBuf::I32(params),
+    ))
 }
 
 /// `[ma, mb, rshift]` with `ma·2^−rshift ≈ s_a/s_out`, `mb·2^−rshift ≈ s_b/s_out`:
@@ -533,10 +553,12 @@ fn int8_weighted(
 fn add_params(place: &str, sa: f32, sb: f32, so: f32) -> Result<Vec<i32>> {
     let (ra, rb) = (sa as f64 / so as f64, sb as f64 / so as f64);
     let big = ra.max(rb);
-    let rq = quantize_multiplier(big).ok_or_else(|| {
+    let rq = requant_from_real(big).ok_or_else(|| {
         Error::new(
             place,
-            format!("add rescale {big:e} is outside the range a (multiplier, shift) pair can express"),
+            format!(
+                "add rescale {big:e} is outside the range a (multiplier, shift) pair can express"
+            ),
         )
     })?;
     let scale = (rq.rshift as f64).exp2();
@@ -583,7 +605,10 @@ pub fn quantize_graph(graph: &FloatGraph, ranges: &[Range]) -> Result<Quantized>
         .iter()
         .map(|l| {
             let h = &l.header;
-            let ins = h.inputs[..h.op.arity()].iter().map(|&t| t as usize).collect();
+            let ins = h.inputs[..h.op.arity()]
+                .iter()
+                .map(|&t| t as usize)
+                .collect();
             (ins, h.output as usize)
         })
         .collect();
@@ -624,7 +649,10 @@ pub fn quantize_graph(graph: &FloatGraph, ranges: &[Range]) -> Result<Quantized>
             ),
             _ => graph.name.clone(),
         };
-        Error::new(place, format!("the runtime rejects the quantized model: {e}"))
+        Error::new(
+            place,
+            format!("the runtime rejects the quantized model: {e}"),
+        )
     })?;
     let mut source = vec![None; spec.tensors.len()];
     for (&(t, _), &id) in &b.have {
@@ -726,7 +754,10 @@ pub fn calibrate_graph(
     let stats = calibrate::collect(pixels.len(), method, progress, |i| {
         Ok(float_ref::run(graph, &pixels[i]))
     })?;
-    Ok((stats.iter().map(|s| s.range(method)).collect(), pixels.len()))
+    Ok((
+        stats.iter().map(|s| s.range(method)).collect(),
+        pixels.len(),
+    ))
 }
 
 /// The whole conversion the CLI's `quantize` runs: load, calibrate,
@@ -767,7 +798,10 @@ mod tests {
     #[test]
     fn onnx_quantize_linear_example() {
         let x = [0.0f32, 2.0, 3.0, 1000.0, -254.0, -1000.0];
-        let y: Vec<i32> = x.iter().map(|&v| quantize_value(v, 2.0, 128, 0, 255)).collect();
+        let y: Vec<i32> = x
+            .iter()
+            .map(|&v| quantize_value(v, 2.0, 128, 0, 255))
+            .collect();
         assert_eq!(y, [128, 129, 130, 255, 1, 0]);
     }
 
@@ -795,12 +829,18 @@ mod tests {
     #[test]
     fn activation_quant_holds_zero_and_ends() {
         // [0, 2.55]: scale 0.01, zero point −128 (ReLU output).
-        let q = activation_quant(Range { min: 0.0, max: 2.55 });
+        let q = activation_quant(Range {
+            min: 0.0,
+            max: 2.55,
+        });
         assert!((q.scale - 0.01).abs() < 1e-7);
         assert_eq!(q.zero_point, -128);
         // [−1, 3]: scale 4/255, zero point round(−128 + 63.75) = −64; the
         // ends map to −128 and 127, 0 to the zero point exactly.
-        let q = activation_quant(Range { min: -1.0, max: 3.0 });
+        let q = activation_quant(Range {
+            min: -1.0,
+            max: 3.0,
+        });
         assert_eq!(q.zero_point, -64);
         assert_eq!(quantize_value(-1.0, q.scale, q.zero_point, -128, 127), -128);
         assert_eq!(quantize_value(3.0, q.scale, q.zero_point, -128, 127), 127);

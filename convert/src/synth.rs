@@ -67,7 +67,7 @@ pub fn synth_weights(desc: &Description, seed: u64) -> Result<TensorMap> {
 
 /// `count` seeded random images of the description's input size (HWC bytes).
 pub fn synth_pixels(desc: &Description, count: usize, seed: u64) -> Vec<Vec<u8>> {
-    let mut rng = SplitMix::new(seed ^ 0x5EED_0F_1A7A);
+    let mut rng = SplitMix::new(seed ^ 0x5EED_0F1A_7A00);
     let n = desc.input_shape().elems();
     (0..count)
         .map(|_| (0..n).map(|_| (rng.next_u64() >> 56) as u8).collect())

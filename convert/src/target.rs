@@ -89,7 +89,10 @@ impl Target {
         let t: Target = toml::from_str(text).map_err(|e| {
             Error::new(
                 place,
-                format!("target profile: {}", e.to_string().trim().replace('\n', " ")),
+                format!(
+                    "target profile: {}",
+                    e.to_string().trim().replace('\n', " ")
+                ),
             )
         })?;
         t.check(place)?;
@@ -101,7 +104,11 @@ impl Target {
         if self.name.trim().is_empty() {
             return Err(bad("name", "expected a non-empty name, found \"\"".into()));
         }
-        if !self.core.rust_targets().contains(&self.rust_target.as_str()) {
+        if !self
+            .core
+            .rust_targets()
+            .contains(&self.rust_target.as_str())
+        {
             return Err(bad(
                 "rust_target",
                 format!(
@@ -113,7 +120,10 @@ impl Target {
             ));
         }
         if self.clock_hz == 0 {
-            return Err(bad("clock_hz", "expected a clock above 0 Hz, found 0".into()));
+            return Err(bad(
+                "clock_hz",
+                "expected a clock above 0 Hz, found 0".into(),
+            ));
         }
         let cpi = self.cycles_per_instruction;
         if !(cpi.is_finite() && cpi > 0.0) {
@@ -253,8 +263,8 @@ machine = "mps2-an386"
         )
         .unwrap_err();
         assert!(e.to_string().contains("reserved_ram_bytes"), "{e}");
-        let e = Target::from_toml_str(&GOOD.replace("mps2-an386", "mps2-an505"), "t.toml")
-            .unwrap_err();
+        let e =
+            Target::from_toml_str(&GOOD.replace("mps2-an386", "mps2-an505"), "t.toml").unwrap_err();
         assert!(e.to_string().contains("emulator.machine"), "{e}");
         let e = Target::from_toml_str(&GOOD.replace("thumbv7em-none-eabihf", "x86"), "t.toml")
             .unwrap_err();

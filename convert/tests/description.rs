@@ -5,6 +5,8 @@
 use std::path::{Path, PathBuf};
 
 use midge_convert::description::{Description, LayerKind, Precision};
+use midge_convert::float_ref;
+use midge_convert::graph::load_graph;
 use midge_runtime::Shape;
 
 const EXAMPLE: &str = r#"
@@ -217,6 +219,13 @@ fn shape_errors_say_expected_and_found() {
         "op = \"relu\"\n",
     ));
     assert!(e.contains("add a flatten layer"), "{e}");
+    // A model ending in a flatten of a spatial tensor would give logits in
+    // PyTorch's C,H,W order.
+    let e = err(&EXAMPLE.replace(
+        "op = \"global_avgpool\"\n[[layer]]\nop = \"flatten\"\n[[layer]]\nname = \"head\"\nop = \"dense\"\ntensor = \"classifier\"\nout_features = 4\n",
+        "op = \"conv2d\"\nout_channels = 2\nkernel = 7\n[[layer]]\nop = \"flatten\"\n",
+    ));
+    assert!(e.contains("ends in a flatten of a 2×2×2 tensor"), "{e}");
 }
 
 #[test]
@@ -309,4 +318,35 @@ fn load_reads_a_file_and_reports_missing_ones() {
         "{e}"
     );
     std::fs::remove_dir_all(&dir).unwrap();
+}
+
+#[test]
+fn repository_descriptions_load() {
+    // Every model description shipped in models/ (target profiles live in
+    // models/targets and are another format).
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("../models");
+    let mut stack = vec![root];
+    let mut loaded = 0;
+    while let Some(dir) = stack.pop() {
+        for entry in std::fs::read_dir(&dir).unwrap() {
+            let p = entry.unwrap().path();
+            if p.is_dir() && p.file_name().is_some_and(|n| n != "targets") {
+                stack.push(p);
+            } else if p.extension().is_some_and(|e| e == "toml") {
+                let d = Description::load(&p).unwrap_or_else(|e| panic!("{e}"));
+                d.expected_tensors().unwrap();
+                // Trained weights, when present, fit the description and
+                // give finite logits on a mid-grey image.
+                if d.weights.as_ref().is_some_and(|w| w.exists()) {
+                    let (_, g, _) = load_graph(&p).unwrap_or_else(|e| panic!("{e}"));
+                    let px = vec![128u8; d.input_shape().elems()];
+                    let logits = float_ref::logits(&g, &px);
+                    assert_eq!(logits.len(), d.labels.len());
+                    assert!(logits.iter().all(|v| v.is_finite()), "{}", p.display());
+                }
+                loaded += 1;
+            }
+        }
+    }
+    assert!(loaded >= 1, "no descriptions found");
 }

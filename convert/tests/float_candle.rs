@@ -9,7 +9,7 @@ use std::path::Path;
 use candle_core::{DType, Device, Module, ModuleT, Tensor as Ct};
 use midge_convert::description::{Description, LayerKind};
 use midge_convert::float_ref;
-use midge_convert::graph::{FloatGraph, FloatOp};
+use midge_convert::graph::{FloatGraph, FloatOp, Precision};
 use midge_convert::weights::TensorMap;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -154,8 +154,9 @@ fn candle_run(d: &Description, pt: &Pt, pixels: &[u8]) -> BTreeMap<String, Ct> {
     .unwrap()
     .broadcast_div(&std)
     .unwrap();
-    let mut outs: Vec<Ct> = vec![x];
     let mut named = BTreeMap::new();
+    named.insert("input".to_string(), x.clone());
+    let mut outs: Vec<Ct> = vec![x];
     for l in d.topology().unwrap() {
         let x = &outs[l.inputs[0]];
         let prefix = l.tensor.clone().unwrap_or_default();
@@ -284,6 +285,7 @@ fn check_against_candle(d: &Description, pt: &Pt, pixels: &[u8]) -> (FloatGraph,
     let g = our_graph(d, pt);
     let ours = float_ref::run(&g, pixels);
     let theirs = candle_run(d, pt, pixels);
+    assert_close("normalized input", &ours[0], &to_hwc(&theirs["input"]), TOL);
     for (k, node) in g.nodes.iter().enumerate() {
         let t = &theirs[&node.name];
         assert_close(
@@ -530,6 +532,7 @@ name = "pw"
 op = "conv2d"
 out_channels = 4
 kernel = 1
+precision = "fp16"
 [[layer]]
 name = "pw_bn"
 op = "batchnorm"
@@ -564,6 +567,10 @@ out_features = 2
             "dense"
         ]
     );
+    // Per-layer precision survives folding; folding a folded graph changes nothing.
+    assert_eq!(folded.nodes[2].precision, Precision::Fp16);
+    assert_eq!(folded.nodes[3].precision, Precision::Int8);
+    assert_eq!(folded.fold().unwrap(), folded);
     let f = float_ref::run(&folded, &px);
     assert_close(
         "folded logits",
@@ -721,4 +728,36 @@ fn unfoldable_batchnorm_and_relu_are_errors_naming_the_layer() {
         "{head}[[layer]]\nname = \"r\"\nop = \"relu\"\n[[layer]]\nop = \"global_avgpool\"\n"
     ));
     assert!(e.contains("layer r") && e.contains("model input"), "{e}");
+}
+
+#[test]
+fn repository_models_with_weights_match_candle() {
+    // The shipped descriptions whose trained weights are present, on
+    // random images: every layer against candle.
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("../models");
+    let mut rng = ChaCha8Rng::seed_from_u64(9);
+    for sub in ["digits", "caps"] {
+        let Ok(dir) = std::fs::read_dir(root.join(sub)) else {
+            continue;
+        };
+        for entry in dir {
+            let p = entry.unwrap().path();
+            if p.extension().is_none_or(|e| e != "toml") {
+                continue;
+            }
+            let d = Description::load(&p).unwrap();
+            let Some(w) = d.weights.clone().filter(|w| w.exists()) else {
+                continue;
+            };
+            let tensors = TensorMap::load(&w).unwrap();
+            let mut pt = Pt::new();
+            for (name, _) in d.expected_tensors().unwrap() {
+                let t = tensors.get(&name).unwrap();
+                pt.insert(name, (t.shape.clone(), t.data.clone()));
+            }
+            let px = random_pixels(&d, &mut rng);
+            check_against_candle(&d, &pt, &px);
+            eprintln!("checked {}", p.display());
+        }
+    }
 }

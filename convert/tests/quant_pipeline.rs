@@ -5,15 +5,15 @@
 
 mod quant_support;
 
+use midge_convert::calibrate::RangeMethod;
 use midge_convert::float_ref;
+use midge_convert::graph::{FloatOp, Precision};
 use midge_convert::images;
 use midge_convert::plan;
 use midge_convert::quantize::{
     dequantize_tensor, image_spec, quantize_description, quantize_graph, Conversion,
     QuantizeOptions,
 };
-use midge_convert::calibrate::RangeMethod;
-use midge_convert::graph::{FloatOp, Precision};
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::{ElemType, Model, Op};
 use quant_support::*;
@@ -92,7 +92,11 @@ fn fp16_model_is_close_to_float() {
 
 #[test]
 fn mixed_precision_inserts_boundary_layers() {
-    let (dir, c) = convert("qp-mixed", "precision = \"fp16\"", &QuantizeOptions::default());
+    let (dir, c) = convert(
+        "qp-mixed",
+        "precision = \"fp16\"",
+        &QuantizeOptions::default(),
+    );
     let bytes = AlignedBytes::from_slice(&c.quantized.bytes);
     let model = Model::parse(&bytes).unwrap();
     let ops: Vec<Op> = (0..model.layer_count())
@@ -100,20 +104,37 @@ fn mixed_precision_inserts_boundary_layers() {
         .collect();
     // block reads stem (int8) → dequantize; add is int8 and reads block
     // (fp16) → quantize.
-    assert!(ops.contains(&Op::Dequantize) && ops.contains(&Op::Quantize), "{ops:?}");
-    let block = c.graph.nodes.iter().position(|n| n.name == "block").unwrap();
+    assert!(
+        ops.contains(&Op::Dequantize) && ops.contains(&Op::Quantize),
+        "{ops:?}"
+    );
+    let block = c
+        .graph
+        .nodes
+        .iter()
+        .position(|n| n.name == "block")
+        .unwrap();
     let t = model.tensor(c.quantized.map[block + 1] as usize).unwrap();
     assert_eq!(t.elem, ElemType::F16);
     let (worst, _, _) = follow(&dir, &c);
     assert!(worst < 0.10, "{worst}");
-    // --precision fp16 does not override the explicit key, int8 default does
-    // not either: the block stays fp16 and the rest follow the flag.
+    std::fs::remove_dir_all(&dir).unwrap();
+    // The run-wide --precision is a default: a layer's own key wins.
+    let dir = scratch("qp-mixed-flag");
+    let desc = write_model(&dir, "precision = \"int8\"", 1);
     let opts = QuantizeOptions {
         precision: Some(Precision::Fp16),
         ..Default::default()
     };
-    let c2 = quantize_description(&dir.join("model.toml"), &opts).unwrap();
-    assert!(c2.graph.nodes.iter().all(|n| n.precision == Precision::Fp16));
+    let c2 = quantize_description(&desc, &opts).unwrap();
+    for n in &c2.graph.nodes {
+        let want = if n.name == "block" {
+            Precision::Int8
+        } else {
+            Precision::Fp16
+        };
+        assert_eq!(n.precision, want, "{}", n.name);
+    }
     std::fs::remove_dir_all(&dir).unwrap();
 }
 
@@ -121,7 +142,11 @@ fn mixed_precision_inserts_boundary_layers() {
 fn conversion_is_deterministic() {
     let dir = scratch("qp-det");
     let desc = write_model(&dir, "", 3);
-    for method in [RangeMethod::MinMax, RangeMethod::Percentile(99.9), RangeMethod::Mse] {
+    for method in [
+        RangeMethod::MinMax,
+        RangeMethod::Percentile(99.9),
+        RangeMethod::Mse,
+    ] {
         let opts = QuantizeOptions {
             method,
             ..Default::default()
@@ -184,5 +209,81 @@ fn accumulator_overflow_is_refused_with_the_layer_name() {
     let e = quantize_graph(&g, &c.ranges).unwrap_err();
     assert!(e.place.contains("stem"), "{e}");
     assert!(e.problem.contains("overflow"), "{e}");
+    std::fs::remove_dir_all(&dir).unwrap();
+}
+
+/// Records the bytes of one layer's output.
+struct Grab {
+    layer: usize,
+    bytes: Vec<u8>,
+}
+
+impl midge_runtime::Observer for Grab {
+    fn after_layer(&mut self, i: usize, _out: &midge_runtime::TensorRecord, bytes: &[u8]) {
+        if i == self.layer {
+            self.bytes = bytes.to_vec();
+        }
+    }
+}
+
+#[test]
+fn pixels_layer_is_the_normalization_formula() {
+    // What the device does with a pixel byte must match quantizing the float
+    // model's normalized input x = (p/255·range − mean[c]) / std[c] with the
+    // input tensor's scale and zero point, to within one step (the offset
+    // and multiplier are rounded to fixed point).
+    let (dir, c) = convert("qp-pixels", "", &QuantizeOptions::default());
+    let bytes = AlignedBytes::from_slice(&c.quantized.bytes);
+    let model = Model::parse(&bytes).unwrap();
+    let t1 = model.tensor(1).unwrap();
+    assert_eq!(t1.elem, ElemType::I8);
+    let mut ws = AlignedBytes::zeroed(model.workspace_len());
+    // Every byte value in every channel: 8·8·3 = 192 bytes hold 0..=191,
+    // then 64..=255.
+    for start in [0u32, 64] {
+        let px: Vec<u8> = (0..192u32).map(|i| (start + i) as u8).collect();
+        let mut g = Grab {
+            layer: 0,
+            bytes: Vec::new(),
+        };
+        model.run_observed(&px, &mut ws, &mut g).unwrap();
+        let x = float_ref::normalize(&c.graph.input, &px);
+        for (i, (&q, &x)) in g.bytes.iter().zip(&x).enumerate() {
+            let want = midge_convert::quantize::quantize_value(
+                x,
+                t1.quant.scale,
+                t1.quant.zero_point,
+                -128,
+                127,
+            );
+            assert!(
+                (q as i8 as i32 - want).abs() <= 1,
+                "byte {} ch {}: {q} vs {want}",
+                px[i],
+                i % 3
+            );
+        }
+    }
+    // fp16: x = p·a + b must be the formula to binary16 precision.
+    let opts = QuantizeOptions {
+        precision: Some(Precision::Fp16),
+        ..Default::default()
+    };
+    let c16 = quantize_description(&dir.join("model.toml"), &opts).unwrap();
+    let bytes = AlignedBytes::from_slice(&c16.quantized.bytes);
+    let model = Model::parse(&bytes).unwrap();
+    let mut ws = AlignedBytes::zeroed(model.workspace_len());
+    let px: Vec<u8> = (0..192u32).map(|i| (i * 4 / 3) as u8).collect();
+    let mut g = Grab {
+        layer: 0,
+        bytes: Vec::new(),
+    };
+    model.run_observed(&px, &mut ws, &mut g).unwrap();
+    let got = dequantize_tensor(&model.tensor(1).unwrap(), &g.bytes);
+    let x = float_ref::normalize(&c16.graph.input, &px);
+    for (a, b) in got.iter().zip(&x) {
+        // binary16 relative precision 2^-11 (IEEE 754-2008).
+        assert!((a - b).abs() <= b.abs() * 1e-3 + 1e-3, "{a} vs {b}");
+    }
     std::fs::remove_dir_all(&dir).unwrap();
 }

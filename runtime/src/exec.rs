@@ -87,7 +87,10 @@ fn clamp_f32_ok(c: [f32; 2]) -> bool {
 fn check_requant(index: usize, p: &Params<'_>, out_c: usize) -> Result<(), Error> {
     let s = params_i32(p).ok_or(bad(index, "int8 layer needs i32 requant parameters"))?;
     if Some(s.len()) != out_c.checked_mul(2) {
-        return Err(bad(index, "requant parameters must be 2 per output channel"));
+        return Err(bad(
+            index,
+            "requant parameters must be 2 per output channel",
+        ));
     }
     if !s.chunks_exact(2).all(|r| requant_in_range(r[0], r[1])) {
         return Err(bad(
@@ -106,17 +109,16 @@ fn check_requant(index: usize, p: &Params<'_>, out_c: usize) -> Result<(), Error
 /// order, is bounded by `|bias| + 128·Σ|w|`. We use 255 instead of 128 so
 /// the bound also holds for the zero-point-relative form `Σ w·(q − zp_in)`
 /// the converter reasons in (|q − zp_in| ≤ 255).
-/// `weight_of(o, i)` yields the `i`-th weight of channel `o`, `None` past
-/// its end.
+/// `abs_weights_of(o)` is Σ|w| over the weights of output channel `o`.
 fn check_accumulator(
     index: usize,
     out_c: usize,
     bias: &[i32],
-    mut weights_of: impl FnMut(usize) -> u64,
+    mut abs_weights_of: impl FnMut(usize) -> u64,
 ) -> Result<(), Error> {
     for o in 0..out_c {
         let b = bias.get(o).map_or(0, |b| b.unsigned_abs() as u64);
-        let bound = weights_of(o).saturating_mul(SPAN).saturating_add(b);
+        let bound = abs_weights_of(o).saturating_mul(SPAN).saturating_add(b);
         if bound > ACC_LIMIT {
             return Err(Error::AccumulatorOverflow {
                 layer: index,
@@ -132,8 +134,8 @@ fn abs_sum(w: impl Iterator<Item = i8>) -> u64 {
 }
 
 /// Weights, bias and parameters of a conv2d, depthwise or dense layer with
-/// `out_c` output channels and `w_len` weights; `per_channel(o)` gives the
-/// weight indices of output channel `o` (for the accumulator bound).
+/// `out_c` output channels and `w_len` weights; `abs_sum_of(w, o)` is
+/// Σ|w| over output channel `o` (for the accumulator bound).
 fn check_weighted(
     index: usize,
     layer: &LayerRef<'_>,
@@ -172,7 +174,9 @@ fn check_weighted(
             match layer.bias {
                 Bias::F32(b) if b.is_empty() || b.len() == out_c => {}
                 Bias::None => {}
-                Bias::F32(_) => return Err(bad(index, "bias length must equal the output channels")),
+                Bias::F32(_) => {
+                    return Err(bad(index, "bias length must equal the output channels"))
+                }
                 Bias::I32(_) => return Err(bad(index, "fp16 layer needs f32 bias")),
             }
             if !params_absent(&layer.params) {
@@ -216,7 +220,10 @@ pub fn check_layer(
     }
     match out.elem {
         ElemType::I8 if !clamp_i8_ok(h.clamp_i8) => {
-            return Err(bad(index, "int8 clamp must be ordered and within -128..=127"))
+            return Err(bad(
+                index,
+                "int8 clamp must be ordered and within -128..=127",
+            ))
         }
         ElemType::F16 if !clamp_f32_ok(h.clamp_f32) => {
             return Err(bad(index, "fp16 clamp must be ordered and not NaN"))
@@ -244,7 +251,10 @@ pub fn check_layer(
         Ok(())
     };
     let no_blobs = |what: &'static str| -> Result<(), Error> {
-        if weights_absent(&layer.weights) && bias_absent(&layer.bias) && params_absent(&layer.params) {
+        if weights_absent(&layer.weights)
+            && bias_absent(&layer.bias)
+            && params_absent(&layer.params)
+        {
             Ok(())
         } else {
             Err(bad(index, what))
@@ -305,7 +315,10 @@ pub fn check_layer(
         Op::Depthwise => {
             let elem = same_elem("depthwise input and output must both be int8 or both fp16")?;
             if ic != oc {
-                return Err(bad(index, "depthwise (multiplier 1) keeps the channel count"));
+                return Err(bad(
+                    index,
+                    "depthwise (multiplier 1) keeps the channel count",
+                ));
             }
             window_shape()?;
             let w_len = (win.kh as usize)
@@ -331,7 +344,10 @@ pub fn check_layer(
                 return Err(bad(index, "pooling keeps the channel count"));
             }
             if elem == ElemType::I8 && a.quant != out.quant {
-                return Err(bad(index, "int8 pooling needs the same quantization in and out"));
+                return Err(bad(
+                    index,
+                    "int8 pooling needs the same quantization in and out",
+                ));
             }
             no_blobs("pooling takes no weights, bias or parameters")?;
             let pw = if op == Op::GlobalAvgPool {
@@ -357,7 +373,10 @@ pub fn check_layer(
             // int8 average: Σ(q − zp) over kh·kw taps must fit i32.
             let taps = pw.kh as u64 * pw.kw as u64;
             if elem == ElemType::I8 && taps.saturating_mul(SPAN) > ACC_LIMIT {
-                return Err(bad(index, "pooling window too large for an exact int32 sum"));
+                return Err(bad(
+                    index,
+                    "pooling window too large for an exact int32 sum",
+                ));
             }
         }
         Op::Add => {
@@ -376,10 +395,16 @@ pub fn check_layer(
                 let p = params_i32(&layer.params)
                     .ok_or(bad(index, "int8 add needs i32 parameters [ma, mb, rshift]"))?;
                 let [ma, mb, s] = *p else {
-                    return Err(bad(index, "int8 add needs exactly 3 parameters [ma, mb, rshift]"));
+                    return Err(bad(
+                        index,
+                        "int8 add needs exactly 3 parameters [ma, mb, rshift]",
+                    ));
                 };
                 if !requant_in_range(ma, s) || !requant_in_range(mb, s) {
-                    return Err(bad(index, "add multipliers must be in 0..2^31 and rshift in 1..=62"));
+                    return Err(bad(
+                        index,
+                        "add multipliers must be in 0..2^31 and rshift in 1..=62",
+                    ));
                 }
             } else if !params_absent(&layer.params) {
                 return Err(bad(index, "fp16 add takes no parameters"));
@@ -393,7 +418,10 @@ pub fn check_layer(
                 return Err(bad(index, "quantize keeps the shape"));
             }
             if !scale_ok(out) {
-                return Err(bad(index, "quantize output scale must be finite and positive"));
+                return Err(bad(
+                    index,
+                    "quantize output scale must be finite and positive",
+                ));
             }
             no_blobs("quantize takes no weights, bias or parameters")?;
         }
@@ -405,7 +433,10 @@ pub fn check_layer(
                 return Err(bad(index, "dequantize keeps the shape"));
             }
             if !scale_ok(a) {
-                return Err(bad(index, "dequantize input scale must be finite and positive"));
+                return Err(bad(
+                    index,
+                    "dequantize input scale must be finite and positive",
+                ));
             }
             no_blobs("dequantize takes no weights, bias or parameters")?;
         }
@@ -503,7 +534,8 @@ fn run(
     let fast = path == Path::Fast;
     match (h.op, ta.elem, to.elem) {
         (Op::Pixels, ElemType::U8, ElemType::I8) => {
-            let p = params_i32(&layer.params).ok_or(fault("pixels to int8 needs i32 parameters"))?;
+            let p =
+                params_i32(&layer.params).ok_or(fault("pixels to int8 needs i32 parameters"))?;
             int8::pixels(xa, p, to.quant.zero_point, h.clamp_i8, as_i8_mut(y)?)
         }
         (Op::Pixels, ElemType::U8, ElemType::F16) => {
@@ -520,10 +552,21 @@ fn run(
                 zp_in: clamp_zp(ta.quant.zero_point),
                 zp_out: to.quant.zero_point,
                 bias: i8_bias(&layer.bias)?,
-                requant: params_i32(&layer.params).ok_or(fault("int8 layer needs requant parameters"))?,
+                requant: params_i32(&layer.params)
+                    .ok_or(fault("int8 layer needs requant parameters"))?,
                 clamp: h.clamp_i8,
             };
-            weighted(&ar, h.op, as_i8(xa)?, xs, w, &h.window, as_i8_mut(y)?, ys, fast)
+            weighted(
+                &ar,
+                h.op,
+                as_i8(xa)?,
+                xs,
+                w,
+                &h.window,
+                as_i8_mut(y)?,
+                ys,
+                fast,
+            )
         }
         (Op::Conv2d | Op::Depthwise | Op::Dense, ElemType::F16, ElemType::F16) => {
             let Weights::F16(w) = layer.weights else {
@@ -533,7 +576,17 @@ fn run(
                 bias: f32_bias(&layer.bias)?,
                 clamp: h.clamp_f32,
             };
-            weighted(&ar, h.op, as_f16(xa)?, xs, w, &h.window, as_f16_mut(y)?, ys, fast)
+            weighted(
+                &ar,
+                h.op,
+                as_f16(xa)?,
+                xs,
+                w,
+                &h.window,
+                as_f16_mut(y)?,
+                ys,
+                fast,
+            )
         }
         (Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool, ElemType::I8, ElemType::I8) => {
             let win = pool_window(h.op, xs, &h.window);
@@ -671,11 +724,17 @@ pub fn top1(out: &TensorRecord, bytes: &[u8]) -> Option<(usize, Logit)> {
         }
         ElemType::F16 => {
             let v: &[f16] = bytemuck::try_cast_slice(bytes).ok()?;
-            let (i, &x) = v
-                .iter()
-                .enumerate()
-                .filter(|(_, x)| !x.is_nan())
-                .reduce(|best, cur| if f16_key(*cur.1) > f16_key(*best.1) { cur } else { best })?;
+            let (i, &x) =
+                v.iter()
+                    .enumerate()
+                    .filter(|(_, x)| !x.is_nan())
+                    .reduce(|best, cur| {
+                        if f16_key(*cur.1) > f16_key(*best.1) {
+                            cur
+                        } else {
+                            best
+                        }
+                    })?;
             Some((i, Logit::F16(x)))
         }
         ElemType::U8 => None,

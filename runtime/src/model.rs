@@ -326,19 +326,34 @@ impl<'a> Model<'a> {
         let out = id("output tensor id", h.output)?;
         let types = blob_types(h.op, a.elem, b.map(|t| t.elem), out.elem)
             .map_err(|problem| Error::Layer { index: i, problem })?;
-        let weights = match self.blob(i, "weights blob", rec.weights, types.weights)? {
+        let weights = match self.blob(
+            i,
+            "weights blob offset (outside the blob area or not a multiple of 8)",
+            rec.weights,
+            types.weights,
+        )? {
             Blob::None => Weights::None,
             Blob::I8(s) => Weights::I8(s),
             Blob::F16(s) => Weights::F16(s),
             _ => return Err(internal(i)),
         };
-        let bias = match self.blob(i, "bias blob", rec.bias, types.bias)? {
+        let bias = match self.blob(
+            i,
+            "bias blob offset (outside the blob area or not a multiple of 8)",
+            rec.bias,
+            types.bias,
+        )? {
             Blob::None => Bias::None,
             Blob::I32(s) => Bias::I32(s),
             Blob::F32(s) => Bias::F32(s),
             _ => return Err(internal(i)),
         };
-        let params = match self.blob(i, "params blob", rec.params, types.params)? {
+        let params = match self.blob(
+            i,
+            "params blob offset (outside the blob area or not a multiple of 8)",
+            rec.params,
+            types.params,
+        )? {
             Blob::None => Params::None,
             Blob::I32(s) if types.requant => Params::Requant(s),
             Blob::I32(s) => Params::I32(s),
@@ -385,18 +400,11 @@ impl<'a> Model<'a> {
         } else {
             let area = self.info.blobs.range().unwrap_or(0..0);
             let r = span.range().unwrap_or(0..usize::MAX);
-            if r.start < area.start || r.end > area.end {
-                return Err(Error::OutOfBounds {
+            if r.start < area.start || r.end > area.end || !r.start.is_multiple_of(ALIGN) {
+                return Err(Error::LayerField {
+                    index: layer,
                     what,
-                    offset: r.start,
-                    len: span.len as usize,
-                    limit: area.end,
-                });
-            }
-            if !r.start.is_multiple_of(ALIGN) {
-                return Err(Error::Misaligned {
-                    offset: r.start,
-                    align: ALIGN,
+                    value: span.offset,
                 });
             }
         }

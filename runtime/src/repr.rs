@@ -61,9 +61,16 @@ impl Shape {
     pub const fn new(h: u16, w: u16, c: u16) -> Self {
         Shape { h, w, c }
     }
-    /// Number of elements, H·W·C.
+    /// Number of elements, H·W·C, saturating at `usize::MAX` (a shape that
+    /// large never fits a workspace, so `parse` rejects it; no overflow on
+    /// 32-bit targets).
     pub const fn elems(self) -> usize {
-        self.h as usize * self.w as usize * self.c as usize
+        let n = self.h as u64 * self.w as u64 * self.c as u64;
+        if n > usize::MAX as u64 {
+            usize::MAX
+        } else {
+            n as usize
+        }
     }
 }
 
@@ -79,8 +86,9 @@ pub struct TensorRecord {
 }
 
 impl TensorRecord {
+    /// Bytes of the tensor, saturating at `usize::MAX`.
     pub const fn byte_len(&self) -> usize {
-        self.shape.elems() * self.elem.size()
+        self.shape.elems().saturating_mul(self.elem.size())
     }
 }
 

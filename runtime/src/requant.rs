@@ -46,15 +46,15 @@ pub const fn requant_in_range(m: i32, rshift: i32) -> bool {
 /// Host-side: the `(multiplier, rshift)` with multiplier in [2^30, 2^31) and
 /// rshift in 1..=62 whose value `multiplier · 2^−rshift` is nearest to
 /// `real` (ties of the multiplier rounded up). `None` when `real` is not
-/// finite, not positive, or outside [2^−32·(1 − 2^−31), 2^30) — the range
+/// finite, not positive, or outside [2^−32 − 2^−64, 2^30 − 2^−2) — the range
 /// such a pair can express.
 ///
-/// Error bound: |multiplier · 2^−rshift − real| ≤ 2^−(rshift+1)
-/// ≤ 2^−31 · real (relative), because multiplier ≥ 2^30.
+/// Error bound: |multiplier · 2^−rshift − real| ≤ 2^−(rshift+1), which is
+/// at most 2^−31·(1 + 2^−30) · real (relative), because real ≥ (2^30 − ½)·2^−rshift.
 ///
 /// Uses only f64 multiplication by powers of two (exact) and one cast, so
 /// it needs no `libm` and builds for `no_std` targets.
-pub fn quantize_multiplier(real: f64) -> Option<Requant> {
+pub fn requant_from_real(real: f64) -> Option<Requant> {
     if !real.is_finite() || real <= 0.0 {
         return None;
     }
@@ -124,35 +124,53 @@ mod tests {
         assert_eq!(requantize(8, 1, 100), requantize(8, 1, 62));
     }
 
-    // 0.5 = 2^30 · 2^−31; 1.0 would need rshift 30; 0.75 = 3·2^28·2^−30... = 0.75·2^31 · 2^−31.
+    // Hand-worked: 0.5 = 2^30·2^−31; 1.0 = 2^30·2^−30; 0.75 = 3·2^29·2^−31.
     #[test]
     fn multiplier_powers_of_two() {
         assert_eq!(
-            quantize_multiplier(0.5),
+            requant_from_real(0.5),
             Some(Requant {
                 multiplier: 1 << 30,
                 rshift: 31
             })
         );
         assert_eq!(
-            quantize_multiplier(1.0),
+            requant_from_real(1.0),
             Some(Requant {
                 multiplier: 1 << 30,
                 rshift: 30
             })
         );
         assert_eq!(
-            quantize_multiplier(0.75),
+            requant_from_real(0.75),
             Some(Requant {
                 multiplier: 3 << 29,
                 rshift: 31
             })
         );
-        assert_eq!(quantize_multiplier(0.0), None);
-        assert_eq!(quantize_multiplier(-1.0), None);
-        assert_eq!(quantize_multiplier(f64::NAN), None);
-        assert_eq!(quantize_multiplier(f64::INFINITY), None);
-        assert_eq!(quantize_multiplier((1u64 << 30) as f64), None);
-        assert_eq!(quantize_multiplier(1e-30), None);
+        assert_eq!(requant_from_real(0.0), None);
+        assert_eq!(requant_from_real(-1.0), None);
+        assert_eq!(requant_from_real(f64::NAN), None);
+        assert_eq!(requant_from_real(f64::INFINITY), None);
+        assert_eq!(requant_from_real((1u64 << 30) as f64), None);
+        assert_eq!(requant_from_real(1e-30), None);
+        // The ends of the expressible range (see the doc comment).
+        let two = |e: i32| 2f64.powi(e);
+        assert_eq!(
+            requant_from_real(two(-32) - two(-64)),
+            Some(Requant {
+                multiplier: 1 << 30,
+                rshift: 62
+            })
+        );
+        assert_eq!(requant_from_real(two(-32) - two(-63)), None);
+        assert_eq!(
+            requant_from_real(two(30) - 0.5),
+            Some(Requant {
+                multiplier: i32::MAX,
+                rshift: 1
+            })
+        );
+        assert_eq!(requant_from_real(two(30) - 0.25), None);
     }
 }

@@ -50,7 +50,10 @@ fn half_padding() {
     }
     // The `Same` resolution must give the same explicit padding here.
     let w = Padding::Same.resolve((5, 5), (3, 3), (1, 1), (1, 1));
-    assert_eq!((w.pad_top, w.pad_left, w.pad_bottom, w.pad_right), (1, 1, 1, 1));
+    assert_eq!(
+        (w.pad_top, w.pad_left, w.pad_bottom, w.pad_right),
+        (1, 1, 1, 1)
+    );
 }
 
 #[test]
@@ -105,13 +108,18 @@ fn relationship_15_over_a_grid() {
             for s in 1u16..=3 {
                 for d in 1u16..=3 {
                     for p in 0u16..=3 {
-                        let num = i as i64 + 2 * p as i64 - k as i64 - (k as i64 - 1) * (d as i64 - 1);
+                        let num =
+                            i as i64 + 2 * p as i64 - k as i64 - (k as i64 - 1) * (d as i64 - 1);
                         let expect = if num < 0 {
                             None
                         } else {
                             Some((num / s as i64 + 1) as u16)
                         };
-                        assert_eq!(output_len(i, k, s, d, p, p), expect, "i={i} k={k} s={s} d={d} p={p}");
+                        assert_eq!(
+                            output_len(i, k, s, d, p, p),
+                            expect,
+                            "i={i} k={k} s={s} d={d} p={p}"
+                        );
                     }
                 }
             }
@@ -121,13 +129,17 @@ fn relationship_15_over_a_grid() {
 
 #[test]
 fn same_padding_gives_ceil() {
-    // Common practice: "same" padding gives o = ⌈i/s⌋, extra padding at the bottom/right.
+    // Common practice: "same" padding gives o = ⌈i/s⌉, extra padding at the bottom/right.
     for i in 1u16..=20 {
         for k in 1u16..=5 {
             for s in 1u16..=3 {
                 let w = Padding::Same.resolve((i, i), (k, k), (s, s), (1, 1));
                 let (oh, ow) = w.output_hw(i, i).expect("same padding always fits");
-                assert_eq!((oh, ow), (i.div_ceil(s), i.div_ceil(s)), "i={i} k={k} s={s}");
+                assert_eq!(
+                    (oh, ow),
+                    (i.div_ceil(s), i.div_ceil(s)),
+                    "i={i} k={k} s={s}"
+                );
                 assert!(w.pad_bottom >= w.pad_top && w.pad_bottom - w.pad_top <= 1);
             }
         }

@@ -471,3 +471,94 @@ fn shared_workspace_matches_separate_buffers() {
     // Not a trivial model: the output is not all one value.
     assert!(store[3].iter().any(|&v| v != store[3][0]));
 }
+
+/// An all-fp16 model: pixels → F16, conv2d (valid), average pool, add.
+fn fp16_spec() -> ModelSpec {
+    use ElemType::*;
+    let conv = Padding::Valid.resolve((4, 4), (3, 3), (1, 1), (1, 1));
+    let pool = Padding::Valid.resolve((2, 2), (2, 2), (1, 1), (1, 1));
+    let w: Vec<f32> = (0..18).map(|i| ((i % 5) as f32 - 2.0) * 0.25).collect();
+    ModelSpec {
+        name: "fp16".into(),
+        labels: vec![],
+        tensors: vec![
+            t(4, 4, 1, U8, 1.0 / 255.0, 0, 0),
+            t(4, 4, 1, F16, 1.0, 0, 0),  // bytes 0..32, live 0..=1
+            t(2, 2, 2, F16, 1.0, 0, 32), // bytes 32..48, live 1..=2
+            t(1, 1, 2, F16, 1.0, 0, 0),  // bytes 0..4 (tensor 1 is dead), live 2..=3
+            t(1, 1, 2, F16, 1.0, 0, 8),  // output
+        ],
+        layers: vec![
+            spec(
+                layer(Op::Pixels, Activation::None, [0, 0], 1, Window::default()),
+                WeightsBuf::None,
+                BiasBuf::None,
+                ParamsBuf::F32(vec![1.0 / 255.0, 0.0]),
+            ),
+            spec(
+                layer(Op::Conv2d, Activation::None, [1, 0], 2, conv),
+                WeightsBuf::F16(w.iter().map(|&v| half::f16::from_f32(v)).collect()),
+                BiasBuf::F32(vec![0.1, -0.2]),
+                ParamsBuf::None,
+            ),
+            none(layer(Op::AvgPool, Activation::None, [2, 0], 3, pool)),
+            none(layer(
+                Op::Add,
+                Activation::None,
+                [3, 3],
+                4,
+                Window::default(),
+            )),
+        ],
+        output: 4,
+        workspace_len: 48,
+    }
+}
+
+#[test]
+fn fp16_model_round_trips_and_runs() {
+    let bytes = fp16_spec().emit().unwrap();
+    let buf = AlignedBytes::from_slice(&bytes);
+    let m = Model::parse(&buf).unwrap();
+    assert_eq!(ModelSpec::from_model(&m), fp16_spec());
+    assert_eq!(ModelSpec::from_model(&m).emit().unwrap(), bytes);
+    for len in 0..bytes.len() {
+        assert!(parse_owned(&bytes[..len]).is_err(), "length {len}");
+    }
+
+    // Independent f64 evaluation of the same network from its definition
+    // (HWC, conv weights [out_c][kh][kw][in_c], mean pool, x + x).
+    let p: Vec<u8> = (0..16).map(|i| (i * 16 + 5) as u8).collect();
+    let x: Vec<f64> = p.iter().map(|&v| v as f64 / 255.0).collect();
+    let w: Vec<f64> = (0..18).map(|i| ((i % 5) as f64 - 2.0) * 0.25).collect();
+    let bias = [0.1, -0.2];
+    let mut want = [0.0f64; 2];
+    for (o, want_o) in want.iter_mut().enumerate() {
+        let mut pooled = 0.0;
+        for oy in 0..2 {
+            for ox in 0..2 {
+                let mut acc = bias[o];
+                for ky in 0..3 {
+                    for kx in 0..3 {
+                        acc += w[o * 9 + ky * 3 + kx] * x[(oy + ky) * 4 + ox + kx];
+                    }
+                }
+                pooled += acc / 4.0;
+            }
+        }
+        *want_o = 2.0 * pooled;
+    }
+    let mut ws = AlignedBytes::zeroed(m.workspace_len());
+    let out = m.run(&p, &mut ws).unwrap();
+    let got: Vec<f64> = out
+        .chunks_exact(2)
+        .map(|c| half::f16::from_le_bytes([c[0], c[1]]).to_f64())
+        .collect();
+    for (g, w) in got.iter().zip(want) {
+        // fp16 keeps 11 significant bits; a few roundings along the way.
+        assert!(
+            (g - w).abs() <= 0.01 * w.abs().max(1.0),
+            "got {g}, want {w}"
+        );
+    }
+}

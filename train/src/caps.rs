@@ -56,7 +56,12 @@ pub fn render(seed: u64, index: u64) -> (Vec<u8>, Cap) {
     let scene = Scene::draw(&mut rng);
     canvas.fill(scene.background);
     // Bottle shoulder around the neck, a little brighter or darker than the belt.
-    canvas.disk(scene.cx, scene.cy, scene.r + rng.gen_range(2.5..5.5), scene.shoulder);
+    canvas.disk(
+        scene.cx,
+        scene.cy,
+        scene.r + rng.gen_range(2.5..5.5),
+        scene.shoulder,
+    );
     match cap {
         Cap::Sealed => sealed(&mut canvas, &scene, &mut rng),
         Cap::Missing => missing(&mut canvas, &scene, &mut rng),
@@ -184,7 +189,12 @@ fn tilted(c: &mut Canvas, s: &Scene, rng: &mut ChaCha8Rng) {
     let tilt_dir = rng.gen_range(0.0..2.0 * PI);
     let (tx, ty) = (tilt_dir.cos(), tilt_dir.sin());
     let shift = rng.gen_range(1.5..4.0);
-    c.disk(s.cx, s.cy, s.r * rng.gen_range(0.55..0.7), rng.gen_range(5.0..45.0));
+    c.disk(
+        s.cx,
+        s.cy,
+        s.r * rng.gen_range(0.55..0.7),
+        rng.gen_range(5.0..45.0),
+    );
     // The cap: an ellipse squeezed along the tilt direction, moved away from the opening.
     let squeeze = rng.gen_range(0.62..0.88);
     let (ex, ey) = (s.cx + shift * tx, s.cy + shift * ty);
@@ -193,7 +203,14 @@ fn tilted(c: &mut Canvas, s: &Scene, rng: &mut ChaCha8Rng) {
     c.ellipse(ex, ey, a, b, tilt_dir, wall);
     // The top face sits off-centre inside the outline; the side wall shows as a crescent.
     let lift = (a - b) * rng.gen_range(0.5..0.9);
-    c.ellipse(ex + lift * tx, ey + lift * ty, a - 1.2, b - 1.0, tilt_dir, s.cap);
+    c.ellipse(
+        ex + lift * tx,
+        ey + lift * ty,
+        a - 1.2,
+        b - 1.0,
+        tilt_dir,
+        s.cap,
+    );
     highlight(c, s, shift + lift, rng);
 }
 
@@ -213,7 +230,8 @@ fn torn(c: &mut Canvas, s: &Scene, rng: &mut ChaCha8Rng) {
                 da = 2.0 * PI - da;
             }
             let edge = half + 0.08 * (jag * d).sin();
-            let cov = coverage((edge - da) * d.max(1.0)) * coverage(d - inner) * coverage(s.r - 0.6 - d);
+            let cov =
+                coverage((edge - da) * d.max(1.0)) * coverage(d - inner) * coverage(s.r - 0.6 - d);
             (cov, dark)
         });
     } else {
@@ -371,7 +389,10 @@ impl Canvas {
     }
 
     fn to_bytes(&self) -> Vec<u8> {
-        self.px.iter().map(|&p| p.round().clamp(0.0, 255.0) as u8).collect()
+        self.px
+            .iter()
+            .map(|&p| p.round().clamp(0.0, 255.0) as u8)
+            .collect()
     }
 }
 

@@ -36,7 +36,8 @@ pub fn level_to_byte(v: u8) -> u8 {
 /// already mapped to bytes with [`level_to_byte`].
 pub fn load(path: &Path) -> Result<GreySet> {
     let place = path.display().to_string();
-    let file = std::fs::File::open(path).map_err(|e| Error::new(&place, format!("opening: {e}")))?;
+    let file =
+        std::fs::File::open(path).map_err(|e| Error::new(&place, format!("opening: {e}")))?;
     let mut text = String::new();
     flate2::read::GzDecoder::new(file)
         .read_to_string(&mut text)
@@ -57,7 +58,11 @@ fn parse_csv(text: &str, place: &str) -> Result<GreySet> {
         if fields.len() != SIDE * SIDE + 1 {
             return Err(Error::new(
                 at(),
-                format!("expected {} fields, found {}", SIDE * SIDE + 1, fields.len()),
+                format!(
+                    "expected {} fields, found {}",
+                    SIDE * SIDE + 1,
+                    fields.len()
+                ),
             ));
         }
         row.clear();
@@ -126,7 +131,9 @@ pub fn split(all: &GreySet) -> Result<Split> {
 pub fn export(dir: &Path) -> Result<Split> {
     let parts = split(&load(&dir.join("digits.csv.gz"))?)?;
     parts.calibration.write_flat(&dir.join("calib"), "c")?;
-    parts.test.write_by_label(&dir.join("test"), &CLASS_NAMES, "t")?;
+    parts
+        .test
+        .write_by_label(&dir.join("test"), &CLASS_NAMES, "t")?;
     Ok(parts)
 }
 

@@ -100,7 +100,9 @@ pub fn fit(
         for chunk in order.chunks(cfg.batch) {
             // Half-cosine decay from lr to 0.02·lr over all steps.
             let progress = step as f64 / total.max(1) as f64;
-            opt.set_learning_rate(cfg.lr * (0.02 + 0.98 * 0.5 * (1.0 + (std::f64::consts::PI * progress).cos())));
+            opt.set_learning_rate(
+                cfg.lr * (0.02 + 0.98 * 0.5 * (1.0 + (std::f64::consts::PI * progress).cos())),
+            );
             let mut px = Vec::with_capacity(chunk.len() * data.h * data.w);
             let mut labels = Vec::with_capacity(chunk.len());
             for &i in chunk {
@@ -155,9 +157,10 @@ pub fn accuracy(net: &mut Net, set: &GreySet) -> Result<f64> {
 /// Loads the description's `validation` folder (one sub-folder per label)
 /// through the converter's image reader, as a grey set.
 pub fn validation_set(desc: &Description) -> Result<GreySet> {
-    let dir = desc.validation.as_ref().ok_or_else(|| {
-        Error::new(desc.origin.display().to_string(), "no `validation` key")
-    })?;
+    let dir = desc
+        .validation
+        .as_ref()
+        .ok_or_else(|| Error::new(desc.origin.display().to_string(), "no `validation` key"))?;
     let s = desc.input_shape();
     if s.c != 1 {
         return Err(Error::new(

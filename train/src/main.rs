@@ -12,7 +12,10 @@ use midge_train::net::Net;
 use midge_train::{caps, digits};
 
 #[derive(Parser)]
-#[command(name = "midge-train", about = "Maintainers' aid: bundled data and float training")]
+#[command(
+    name = "midge-train",
+    about = "Maintainers' aid: bundled data and float training"
+)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -61,6 +64,12 @@ enum Command {
         #[arg(long, default_value = "models/digits/digits.csv.gz")]
         digits: PathBuf,
     },
+    /// Top-1 of the converter's float reference on the description's
+    /// validation images, reading its committed weights (no training).
+    Check {
+        #[arg(long)]
+        model: PathBuf,
+    },
 }
 
 #[derive(Clone, Copy, clap::ValueEnum)]
@@ -80,7 +89,10 @@ fn run_fit(
 ) -> Result<()> {
     let desc = Description::load(&model)?;
     let weights = desc.weights.clone().ok_or_else(|| {
-        Error::new(model.display().to_string(), "no `weights` key: nowhere to write")
+        Error::new(
+            model.display().to_string(),
+            "no `weights` key: nowhere to write",
+        )
     })?;
     let val = fit::validation_set(&desc)?;
     let mut source: Box<dyn TrainSource> = match data {
@@ -99,7 +111,9 @@ fn run_fit(
     println!("wrote {}", weights.display());
     println!(
         "candle float top-1 on {} ({} images): {:.2} %",
-        desc.validation.as_ref().map_or(String::new(), |p| p.display().to_string()),
+        desc.validation
+            .as_ref()
+            .map_or(String::new(), |p| p.display().to_string()),
         val.len(),
         100.0 * ours
     );
@@ -108,13 +122,21 @@ fn run_fit(
         Err(e) => println!("converter float reference not available: {e}"),
     }
     match fit::logit_gap(&mut net, &model, &val, 64) {
-        Ok(g) => println!("largest logit difference candle vs float reference (64 images): {g:.2e}"),
+        Ok(g) => {
+            println!("largest logit difference candle vs float reference (64 images): {g:.2e}")
+        }
         Err(e) => println!("logit comparison not available: {e}"),
     }
     Ok(())
 }
 
 fn main() -> ExitCode {
+    // One compute thread unless the caller says otherwise: these models are
+    // too small to gain from candle's thread pool on a busy 2-core machine
+    // (measured: ~5× less CPU time), and one thread keeps the summation order fixed.
+    if std::env::var_os("RAYON_NUM_THREADS").is_none() {
+        std::env::set_var("RAYON_NUM_THREADS", "1");
+    }
     let cli = Cli::parse();
     let result = match cli.command {
         Command::DigitsData { dir } => digits::export(&dir).map(|s| {
@@ -140,6 +162,18 @@ fn main() -> ExitCode {
             }
             Ok(())
         }),
+        Command::Check { model } => Description::load(&model)
+            .and_then(|d| fit::validation_set(&d))
+            .and_then(|val| {
+                let r = fit::reference_accuracy(&model, &val)?;
+                println!(
+                    "{}: converter float reference top-1 {:.2} % on {} images",
+                    model.display(),
+                    100.0 * r,
+                    val.len()
+                );
+                Ok(())
+            }),
         Command::Fit {
             model,
             data,

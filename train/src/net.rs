@@ -50,6 +50,114 @@ fn gaussian(rng: &mut ChaCha8Rng) -> f32 {
     (-2.0 * u1.ln()).sqrt() * (2.0 * std::f32::consts::PI * u2).cos()
 }
 
+/// Every stride-th element along height and width of an NCHW tensor.
+fn subsample(t: &Tensor, stride: usize) -> candle_core::Result<Tensor> {
+    if stride == 1 {
+        return Ok(t.clone());
+    }
+    let (n, c, h, w) = t.dims4()?;
+    let (oh, ow) = ((h - 1) / stride + 1, (w - 1) / stride + 1);
+    t.pad_with_zeros(2, 0, oh * stride - h)?
+        .pad_with_zeros(3, 0, ow * stride - w)?
+        .reshape((n, c, oh, stride, ow, stride))?
+        .narrow(3, 0, 1)?
+        .narrow(5, 0, 1)?
+        .reshape((n, c, oh, ow))
+}
+
+/// The kH·kW shifted views of a zero-padded NCHW input (stride 1), each
+/// N×C×H'×W', in kernel row-major order.
+fn taps(
+    x: &Tensor,
+    pad: usize,
+    kh: usize,
+    kw: usize,
+    dil: usize,
+) -> candle_core::Result<Vec<Tensor>> {
+    let x = if pad > 0 {
+        x.pad_with_zeros(2, pad, pad)?.pad_with_zeros(3, pad, pad)?
+    } else {
+        x.clone()
+    };
+    let (_, _, h, w) = x.dims4()?;
+    let (span_h, span_w) = (dil * (kh - 1) + 1, dil * (kw - 1) + 1);
+    if span_h > h || span_w > w {
+        candle_core::bail!("kernel {kh}×{kw} larger than the padded input {h}×{w}");
+    }
+    let (fh, fw) = (h - span_h + 1, w - span_w + 1);
+    let mut v = Vec::with_capacity(kh * kw);
+    for i in 0..kh {
+        for j in 0..kw {
+            v.push(x.narrow(2, i * dil, fh)?.narrow(3, j * dil, fw)?);
+        }
+    }
+    Ok(v)
+}
+
+/// Convolution (weight O×C×kH×kW) as one matrix product over the unfolded
+/// input (rows ordered C, kH, kW like the weight). Its gradient is plain
+/// matmul and slicing, which candle runs far faster on the CPU than the
+/// transposed convolution its conv2d backward uses.
+fn conv_unfold(
+    x: &Tensor,
+    weight: &Tensor,
+    pad: usize,
+    stride: usize,
+    dil: usize,
+) -> candle_core::Result<Tensor> {
+    let (o, c, kh, kw) = weight.dims4()?;
+    let n = x.dim(0)?;
+    let cols = if kh == 1 && kw == 1 && pad == 0 {
+        subsample(x, stride)?
+    } else {
+        let views: Vec<Tensor> = taps(x, pad, kh, kw, dil)?
+            .iter()
+            .map(|v| v.unsqueeze(2))
+            .collect::<candle_core::Result<_>>()?;
+        // N×C×K×H'×W' → N×(C·K)×H'×W'
+        let t = Tensor::cat(&views, 2)?;
+        let (_, _, k, fh, fw) = t.dims5()?;
+        subsample(&t.reshape((n, c * k, fh, fw))?, stride)?
+    };
+    let (_, ck, oh, ow) = cols.dims4()?;
+    let y = weight
+        .reshape((1, o, ck))?
+        .broadcast_as((n, o, ck))?
+        .matmul(&cols.reshape((n, ck, oh * ow))?)?;
+    y.reshape((n, o, oh, ow))
+}
+
+/// Depthwise convolution (weight C×1×kH×kW) as a sum of shifted, per-channel
+/// scaled views of the padded input; a stride above 1 keeps every stride-th
+/// output. Same result as candle's grouped conv2d with groups = C, much
+/// faster on the CPU than its one-convolution-per-channel path.
+fn depthwise_taps(
+    x: &Tensor,
+    weight: &Tensor,
+    pad: usize,
+    stride: usize,
+    dil: usize,
+) -> candle_core::Result<Tensor> {
+    let (c, _, kh, kw) = weight.dims4()?;
+    let mut acc: Option<Tensor> = None;
+    for (t, view) in taps(x, pad, kh, kw, dil)?.iter().enumerate() {
+        let (i, j) = (t / kw, t % kw);
+        let tap = weight
+            .narrow(2, i, 1)?
+            .narrow(3, j, 1)?
+            .reshape((1, c, 1, 1))?;
+        let term = view.broadcast_mul(&tap)?;
+        acc = Some(match acc {
+            Some(a) => (a + term)?,
+            None => term,
+        });
+    }
+    match acc {
+        Some(a) => subsample(&a, stride),
+        None => candle_core::bail!("empty depthwise kernel"),
+    }
+}
+
 impl Net {
     /// Builds the layers of `desc` with weights drawn from ChaCha8(`seed`):
     /// conv2d/depthwise He-normal (std √(2/fan_in)), dense std √(1/fan_in),
@@ -189,7 +297,10 @@ impl Net {
                 LayerKind::Conv2d | LayerKind::Depthwise => self.conv(l, a)?,
                 LayerKind::MaxPool | LayerKind::AvgPool => {
                     let w = l.window.unwrap_or_default();
-                    let (k, s) = ((w.kh as usize, w.kw as usize), (w.stride_h as usize, w.stride_w as usize));
+                    let (k, s) = (
+                        (w.kh as usize, w.kw as usize),
+                        (w.stride_h as usize, w.stride_w as usize),
+                    );
                     if l.kind == LayerKind::MaxPool {
                         a.max_pool2d_with_stride(k, s)?
                     } else {
@@ -240,7 +351,11 @@ impl Net {
             let x = x.pad_with_zeros(2, pt as usize, pb as usize)?;
             (x.pad_with_zeros(3, pl as usize, pr as usize)?, 0)
         };
-        let mut y = x.conv2d(&weight, pad, w.stride_h as usize, w.dil_h as usize, groups)?;
+        let mut y = if groups > 1 {
+            depthwise_taps(&x, &weight, pad, w.stride_h as usize, w.dil_h as usize)?
+        } else {
+            conv_unfold(&x, &weight, pad, w.stride_h as usize, w.dil_h as usize)?
+        };
         if l.bias {
             let b = self.param(&format!("{prefix}.bias"))?;
             y = y.broadcast_add(&b.reshape((1, b.dim(0)?, 1, 1))?)?;
@@ -251,8 +366,12 @@ impl Net {
     fn batchnorm(&mut self, l: &LayerInfo, x: &Tensor, train: bool) -> candle_core::Result<Tensor> {
         let prefix = l.tensor.clone().unwrap_or_default();
         let c = x.dim(1)?;
-        let gamma = self.param(&format!("{prefix}.weight"))?.reshape((1, c, 1, 1))?;
-        let beta = self.param(&format!("{prefix}.bias"))?.reshape((1, c, 1, 1))?;
+        let gamma = self
+            .param(&format!("{prefix}.weight"))?
+            .reshape((1, c, 1, 1))?;
+        let beta = self
+            .param(&format!("{prefix}.bias"))?
+            .reshape((1, c, 1, 1))?;
         let Some(stats) = self.bn.get_mut(&prefix) else {
             candle_core::bail!("no running statistics for {prefix}")
         };
@@ -310,13 +429,89 @@ impl Net {
     /// Writes [`Net::state_dict`] to `path` (a temporary file, then renamed).
     pub fn save(&self, path: &Path) -> Result<()> {
         let place = path.display().to_string();
-        let map: HashMap<String, Tensor> = self
-            .state_dict()
-            .map_err(ce(&place))?
-            .into_iter()
-            .collect();
+        let map: HashMap<String, Tensor> =
+            self.state_dict().map_err(ce(&place))?.into_iter().collect();
         let tmp = path.with_extension("safetensors.tmp");
         candle_core::safetensors::save(&map, &tmp).map_err(ce(&place))?;
         std::fs::rename(&tmp, path).map_err(|e| Error::new(&place, format!("renaming: {e}")))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The shifted-view depthwise against candle's grouped conv2d (the
+    /// general-purpose reference, groups = channels), strides 1 and 2.
+    #[test]
+    fn depthwise_taps_match_grouped_conv2d() {
+        let dev = Device::Cpu;
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let xs: Vec<f32> = (0..2 * 3 * 7 * 6).map(|_| gaussian(&mut rng)).collect();
+        let ws: Vec<f32> = (0..3 * 9).map(|_| gaussian(&mut rng)).collect();
+        let x = Tensor::from_vec(xs, (2, 3, 7, 6), &dev).unwrap();
+        let w = Tensor::from_vec(ws, (3, 1, 3, 3), &dev).unwrap();
+        for (pad, stride, dil) in [(1, 1, 1), (1, 2, 1), (0, 2, 1), (2, 1, 2)] {
+            let ours = depthwise_taps(&x, &w, pad, stride, dil).unwrap();
+            let theirs = x.conv2d(&w, pad, stride, dil, 3).unwrap();
+            assert_eq!(
+                ours.dims(),
+                theirs.dims(),
+                "pad {pad} stride {stride} dil {dil}"
+            );
+            let gap = (ours - theirs)
+                .unwrap()
+                .abs()
+                .unwrap()
+                .flatten_all()
+                .unwrap()
+                .max(0)
+                .unwrap()
+                .to_scalar::<f32>()
+                .unwrap();
+            assert!(gap < 1e-5, "pad {pad} stride {stride} dil {dil}: {gap}");
+        }
+    }
+
+    /// The unfolded matmul convolution against candle's conv2d (the
+    /// general-purpose reference), including 1×1 and strided cases.
+    #[test]
+    fn unfolded_conv_matches_candle_conv2d() {
+        let dev = Device::Cpu;
+        let mut rng = ChaCha8Rng::seed_from_u64(6);
+        let xs: Vec<f32> = (0..2 * 3 * 7 * 6).map(|_| gaussian(&mut rng)).collect();
+        let x = Tensor::from_vec(xs, (2, 3, 7, 6), &dev).unwrap();
+        for (k, pad, stride, dil) in [
+            (3, 1, 1, 1),
+            (3, 1, 2, 1),
+            (1, 0, 1, 1),
+            (1, 0, 2, 1),
+            (3, 0, 1, 2),
+            (2, 0, 2, 1),
+        ] {
+            let ws: Vec<f32> = (0..5 * 3 * k * k).map(|_| gaussian(&mut rng)).collect();
+            let w = Tensor::from_vec(ws, (5, 3, k, k), &dev).unwrap();
+            let ours = conv_unfold(&x, &w, pad, stride, dil).unwrap();
+            let theirs = x.conv2d(&w, pad, stride, dil, 1).unwrap();
+            assert_eq!(
+                ours.dims(),
+                theirs.dims(),
+                "k {k} pad {pad} stride {stride} dil {dil}"
+            );
+            let gap = (ours - theirs)
+                .unwrap()
+                .abs()
+                .unwrap()
+                .flatten_all()
+                .unwrap()
+                .max(0)
+                .unwrap()
+                .to_scalar::<f32>()
+                .unwrap();
+            assert!(
+                gap < 1e-4,
+                "k {k} pad {pad} stride {stride} dil {dil}: {gap}"
+            );
+        }
     }
 }

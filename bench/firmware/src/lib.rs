@@ -64,7 +64,7 @@ impl Job {
             (Some(m), Some(i)) if m <= block.len() && i <= block.len() => {}
             _ => return Err("job block fields reach outside the job area"),
         }
-        if job.workspace_offset % 8 != 0 || job.model_offset % 8 != 0 {
+        if !job.workspace_offset.is_multiple_of(8) || !job.model_offset.is_multiple_of(8) {
             return Err("job block offsets are not 8-byte aligned");
         }
         Ok(())
@@ -89,7 +89,10 @@ pub fn clock_start(syst: &mut SYST) {
 /// Called from the SysTick exception: one more full period elapsed.
 pub fn clock_wrapped() {
     // Single core; the exception is the only writer.
-    WRAPS.store(WRAPS.load(Ordering::Relaxed).wrapping_add(1), Ordering::Relaxed);
+    WRAPS.store(
+        WRAPS.load(Ordering::Relaxed).wrapping_add(1),
+        Ordering::Relaxed,
+    );
 }
 
 /// SysTick ticks since `clock_start`, extended to 64 bits.
@@ -103,6 +106,23 @@ pub fn ticks() -> u64 {
             return (w1 as u64) * (RELOAD as u64 + 1) + (RELOAD - v) as u64;
         }
     }
+}
+
+/// Waits for the next tick edge, so two measurements start at the same
+/// phase of the 40-instruction tick and differ by whole ticks.
+#[inline(never)]
+pub fn tick_edge() {
+    let v = SYST::get_current();
+    while SYST::get_current() == v {}
+}
+
+/// Ticks taken by `f`, started right after a tick edge.
+#[inline(never)]
+pub fn ticks_of(f: impl FnOnce()) -> u64 {
+    tick_edge();
+    let t0 = ticks();
+    f();
+    ticks() - t0
 }
 
 /// `iters` iterations of 40 NOPs plus the loop's own two instructions.

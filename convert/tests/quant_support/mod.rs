@@ -132,9 +132,9 @@ pub fn write_model(dir: &Path, block_extra: &str, seed: u64) -> PathBuf {
         let n: usize = shape.iter().product();
         let data: Vec<f32> = (0..n)
             .map(|_| {
-                if name.ends_with("running_var") {
-                    rng.gen_range(0.5..1.5)
-                } else if name.ends_with(".weight") && shape.len() == 1 {
+                // BatchNorm variances and gammas positive, the rest signed.
+                if name.ends_with("running_var") || (name.ends_with(".weight") && shape.len() == 1)
+                {
                     rng.gen_range(0.5..1.5)
                 } else {
                     rng.gen_range(-0.6..0.6)
@@ -143,7 +143,11 @@ pub fn write_model(dir: &Path, block_extra: &str, seed: u64) -> PathBuf {
             .collect();
         map.insert(name, shape, data);
     }
-    fs::write(dir.join("weights.safetensors"), map.to_safetensors_bytes().unwrap()).unwrap();
+    fs::write(
+        dir.join("weights.safetensors"),
+        map.to_safetensors_bytes().unwrap(),
+    )
+    .unwrap();
     fs::create_dir_all(dir.join("calib")).unwrap();
     for i in 0..12 {
         image(i % 3, &mut rng)
@@ -154,7 +158,9 @@ pub fn write_model(dir: &Path, block_extra: &str, seed: u64) -> PathBuf {
         let d = dir.join("val").join(l);
         fs::create_dir_all(&d).unwrap();
         for i in 0..4 {
-            image(k, &mut rng).save(d.join(format!("v{i}.png"))).unwrap();
+            image(k, &mut rng)
+                .save(d.join(format!("v{i}.png")))
+                .unwrap();
         }
     }
     desc_path

@@ -136,21 +136,37 @@ pub fn add(a: &[f16], b: &[f16], clamp: [f32; 2], y: &mut [f16]) -> Result<(), E
 /// f32. `x / scale` is first limited to ±2^15 (far outside int8, so the
 /// result is unchanged) to keep the rounding exact; NaN maps to `zp_out`
 /// before the clamp.
-pub fn quantize(x: &[f16], scale: f32, zp: i32, clamp: [i32; 2], y: &mut [i8]) -> Result<(), Error> {
+pub fn quantize(
+    x: &[f16],
+    scale: f32,
+    zp: i32,
+    clamp: [i32; 2],
+    y: &mut [i8],
+) -> Result<(), Error> {
     if x.len() != y.len() {
         return Err(fault("quantize input and output differ in length"));
     }
     const LIMIT: f32 = 32768.0;
     for (y, &v) in y.iter_mut().zip(x) {
         let r = v.to_f32() / scale;
-        let r = if r.is_nan() { 0.0 } else { r.clamp(-LIMIT, LIMIT) };
+        let r = if r.is_nan() {
+            0.0
+        } else {
+            r.clamp(-LIMIT, LIMIT)
+        };
         *y = super::int8::clamp_i8(round_half_away(r).saturating_add(zp), clamp);
     }
     Ok(())
 }
 
 /// int8 → fp16: `x = (q − zp)·scale` in f32, clamped, stored as binary16.
-pub fn dequantize(x: &[i8], scale: f32, zp: i32, clamp: [f32; 2], y: &mut [f16]) -> Result<(), Error> {
+pub fn dequantize(
+    x: &[i8],
+    scale: f32,
+    zp: i32,
+    clamp: [f32; 2],
+    y: &mut [f16],
+) -> Result<(), Error> {
     if x.len() != y.len() {
         return Err(fault("dequantize input and output differ in length"));
     }

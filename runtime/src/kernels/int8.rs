@@ -123,7 +123,13 @@ impl Pool for AvgI8 {
 /// `q = clamp(zp_out + rq(p·256 − offset, m, rshift))`. `x` and `y` are HWC
 /// with `params.len() / 3` channels. `p·256 − offset` is exact for every
 /// checked layer (offset ≠ i32::MIN); it wraps rather than panics otherwise.
-pub fn pixels(x: &[u8], params: &[i32], zp_out: i32, clamp: [i32; 2], y: &mut [i8]) -> Result<(), Error> {
+pub fn pixels(
+    x: &[u8],
+    params: &[i32],
+    zp_out: i32,
+    clamp: [i32; 2],
+    y: &mut [i8],
+) -> Result<(), Error> {
     let c = params.len() / 3;
     if c == 0 || params.len() != 3 * c || x.len() != y.len() || !x.len().is_multiple_of(c) {
         return Err(fault("pixels lengths do not match the channel count"));
@@ -131,7 +137,10 @@ pub fn pixels(x: &[u8], params: &[i32], zp_out: i32, clamp: [i32; 2], y: &mut [i
     for (x_px, y_px) in x.chunks_exact(c).zip(y.chunks_exact_mut(c)) {
         for ((&p, y), prm) in x_px.iter().zip(y_px.iter_mut()).zip(params.chunks_exact(3)) {
             let acc = (p as i32 * 256).wrapping_sub(prm[0]);
-            *y = clamp_i8(zp_out.saturating_add(requantize(acc, prm[1], prm[2])), clamp);
+            *y = clamp_i8(
+                zp_out.saturating_add(requantize(acc, prm[1], prm[2])),
+                clamp,
+            );
         }
     }
     Ok(())

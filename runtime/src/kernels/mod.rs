@@ -81,7 +81,14 @@ pub fn taps_in_bounds(o: usize, k: u16, stride: u16, dil: u16, pad_lo: u16, len:
 
 /// The half-open range of output positions along one axis whose taps are
 /// all in bounds (empty when there is none).
-pub fn interior(out: usize, k: u16, stride: u16, dil: u16, pad_lo: u16, len: usize) -> (usize, usize) {
+pub fn interior(
+    out: usize,
+    k: u16,
+    stride: u16,
+    dil: u16,
+    pad_lo: u16,
+    len: usize,
+) -> (usize, usize) {
     let last = k.saturating_sub(1) as usize;
     let inside = |o: usize| {
         tap(o, 0, stride, dil, pad_lo, len).is_some()
@@ -153,7 +160,9 @@ fn conv2d_pixel_ref<A: Arith>(
             for kx in 0..kw {
                 let ix = tap(ox, kx, win.stride_w, win.dil_w, win.pad_left, iw);
                 let wo = ((o * kh + ky) * kw + kx) * ic;
-                let w_tap = w.get(wo..wo + ic).ok_or(fault("conv2d weights too short"))?;
+                let w_tap = w
+                    .get(wo..wo + ic)
+                    .ok_or(fault("conv2d weights too short"))?;
                 match (iy, ix) {
                     (Some(iy), Some(ix)) => {
                         let xo = (iy * iw + ix) * ic;
@@ -233,7 +242,9 @@ pub fn pointwise<A: Arith>(
         return Err(fault("pointwise lengths do not match the channel counts"));
     }
     if Some(w.len()) != out_c.checked_mul(in_c) {
-        return Err(fault("pointwise weight length does not match the channel counts"));
+        return Err(fault(
+            "pointwise weight length does not match the channel counts",
+        ));
     }
     for (x_px, y_px) in x.chunks_exact(in_c).zip(y.chunks_exact_mut(out_c)) {
         for (o, (y, w_row)) in y_px.iter_mut().zip(w.chunks_exact(in_c)).enumerate() {
@@ -264,15 +275,16 @@ pub fn conv2d_fast<A: Arith>(
     if is_pointwise(win) && xs.h == ys.h && xs.w == ys.w {
         return pointwise(a, x, ic, w, y, oc);
     }
-    if oc == 0 {
-        return Ok(());
+    let (kh, kw) = (win.kh as usize, win.kw as usize);
+    let row_len = kw * ic;
+    if oc == 0 || kh == 0 || row_len == 0 {
+        // Degenerate windows (rejected by `check_layer`): the reference copes.
+        return conv2d_ref(a, x, xs, w, win, y, ys);
     }
     let (ih, iw) = (xs.h as usize, xs.w as usize);
     let (oh, ow) = (ys.h as usize, ys.w as usize);
-    let (kh, kw) = (win.kh as usize, win.kw as usize);
     let (y0, y1) = interior(oh, win.kh, win.stride_h, win.dil_h, win.pad_top, ih);
     let (x0, x1) = interior(ow, win.kw, win.stride_w, win.dil_w, win.pad_left, iw);
-    let row_len = kw * ic;
     for (p, y_px) in y.chunks_exact_mut(oc).enumerate() {
         let (oy, ox) = (p / ow, p % ow);
         if !(y0..y1).contains(&oy) || !(x0..x1).contains(&ox) {
@@ -282,13 +294,19 @@ pub fn conv2d_fast<A: Arith>(
         // Interior: all taps in bounds, positions computed without checks.
         let iy0 = oy * win.stride_h as usize - win.pad_top as usize;
         let ix0 = ox * win.stride_w as usize - win.pad_left as usize;
-        for (o, (y, w_o)) in y_px.iter_mut().zip(w.chunks_exact(kh * row_len)).enumerate() {
+        for (o, (y, w_o)) in y_px
+            .iter_mut()
+            .zip(w.chunks_exact(kh * row_len))
+            .enumerate()
+        {
             let mut acc = a.start(o);
             for (ky, w_row) in w_o.chunks_exact(row_len).enumerate() {
                 let iy = iy0 + ky * win.dil_h as usize;
                 if win.dil_w == 1 {
                     let xo = (iy * iw + ix0) * ic;
-                    let x_row = x.get(xo..xo + row_len).ok_or(fault("conv2d input too short"))?;
+                    let x_row = x
+                        .get(xo..xo + row_len)
+                        .ok_or(fault("conv2d input too short"))?;
                     acc = A::dot(acc, x_row, w_row);
                 } else {
                     for (kx, w_tap) in w_row.chunks_exact(ic).enumerate() {
@@ -422,8 +440,12 @@ pub fn depthwise_fast<A: Arith>(
                 let iy = iy0 + ky * win.dil_h as usize;
                 let ix = ix0 + kx * win.dil_w as usize;
                 let xo = (iy * iw + ix) * c + c0;
-                let x_tap = x.get(xo..xo + n).ok_or(fault("depthwise input too short"))?;
-                let w_blk = w_tap.get(c0..c0 + n).ok_or(fault("depthwise weights too short"))?;
+                let x_tap = x
+                    .get(xo..xo + n)
+                    .ok_or(fault("depthwise input too short"))?;
+                let w_blk = w_tap
+                    .get(c0..c0 + n)
+                    .ok_or(fault("depthwise weights too short"))?;
                 for ((acc, &xv), &wv) in acc.iter_mut().zip(x_tap).zip(w_blk) {
                     *acc = A::mac(*acc, xv, wv);
                 }
@@ -454,7 +476,9 @@ pub fn dense_ref<A: Arith>(a: &A, x: &[A::X], w: &[A::W], y: &mut [A::X]) -> Res
     for (o, y) in y.iter_mut().enumerate() {
         let mut acc = a.start(o);
         for (i, &xv) in x.iter().enumerate() {
-            let wv = *w.get(o * x.len() + i).ok_or(fault("dense weights too short"))?;
+            let wv = *w
+                .get(o * x.len() + i)
+                .ok_or(fault("dense weights too short"))?;
             acc = A::mac(acc, xv, wv);
         }
         *y = a.finish(acc, o);

@@ -37,12 +37,17 @@ fn SysTick() {
     clock_wrapped();
 }
 
-fn fail(out: &mut hio::HostStream, what: &str) -> ! {
-    let _ = writeln!(out, "error {what}");
-    debug::exit(debug::EXIT_FAILURE);
+/// Ends the emulation with `status` (QEMU exits on the semihosting call).
+fn halt(status: debug::ExitStatus) -> ! {
+    debug::exit(status);
     loop {
-        cortex_m::asm::nop();
+        cortex_m::asm::wfi();
     }
+}
+
+fn fail(out: &mut hio::HostStream, what: core::fmt::Arguments) -> ! {
+    let _ = writeln!(out, "error {what}");
+    halt(debug::EXIT_FAILURE)
 }
 
 fn hex_line(out: &mut hio::HostStream, bytes: &[u8]) {
@@ -62,56 +67,55 @@ fn hex_line(out: &mut hio::HostStream, bytes: &[u8]) {
 fn main() -> ! {
     let mut out = match hio::hstdout() {
         Ok(o) => o,
-        Err(_) => {
-            debug::exit(debug::EXIT_FAILURE);
-            loop {}
-        }
+        Err(_) => halt(debug::EXIT_FAILURE),
     };
     let mut cp = match cortex_m::Peripherals::take() {
         Some(p) => p,
-        None => fail(&mut out, "core peripherals taken twice"),
+        None => fail(&mut out, format_args!("core peripherals taken twice")),
     };
     clock_start(&mut cp.SYST);
     let _ = writeln!(out, "harness 1");
 
     // Calibration: the two loops differ by exactly 40 000 NOPs.
-    let t0 = ticks();
-    nops40(1000);
-    let t1 = ticks();
-    nops80(1000);
-    let t2 = ticks();
-    let _ = writeln!(out, "calibration a={} b={}", t1 - t0, t2 - t1);
+    let a = ticks_of(|| nops40(1000));
+    let b = ticks_of(|| nops80(1000));
+    let _ = writeln!(out, "calibration a={a} b={b}");
 
     // SAFETY: the host's loader wrote the job block there before reset; the
     // harness's own data and stack live below JOB_ADDR (memory.x).
     let head = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, JOB_HEADER_LEN) };
     let job = match Job::parse_header(head) {
         Ok(j) => j,
-        Err(e) => fail(&mut out, e),
+        Err(e) => fail(&mut out, format_args!("{e}")),
     };
     if job.workspace_offset > JOB_CAPACITY {
-        fail(&mut out, "workspace offset outside the job area");
+        fail(
+            &mut out,
+            format_args!("workspace offset outside the job area"),
+        );
     }
     let block = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, job.workspace_offset) };
     if let Err(e) = job.check(block) {
-        fail(&mut out, e);
+        fail(&mut out, format_args!("{e}"));
     }
     let model_bytes = &block[job.model_offset..job.model_offset + job.model_len];
     let model = match Model::parse(model_bytes) {
         Ok(m) => m,
-        Err(e) => {
-            let _ = writeln!(out, "error model: {e}");
-            debug::exit(debug::EXIT_FAILURE);
-            loop {}
-        }
+        Err(e) => fail(&mut out, format_args!("model: {e}")),
     };
     let ws_len = model.workspace_len();
     if job.workspace_offset + ws_len > JOB_CAPACITY {
-        fail(&mut out, "workspace does not fit in the job area");
+        fail(
+            &mut out,
+            format_args!("workspace does not fit in the job area"),
+        );
     }
     let layers = model.layer_count();
     if layers > MAX_LAYERS {
-        fail(&mut out, "more layers than the harness keeps readings for");
+        fail(
+            &mut out,
+            format_args!("more layers than the harness keeps readings for"),
+        );
     }
     let _ = writeln!(out, "model layers={layers} workspace={ws_len}");
     let ws = unsafe {
@@ -129,11 +133,7 @@ fn main() -> ! {
         let result = model.run_observed(input, ws, &mut clock);
         let output = match result {
             Ok(o) => o,
-            Err(e) => {
-                let _ = writeln!(out, "error run {k}: {e}");
-                debug::exit(debug::EXIT_FAILURE);
-                loop {}
-            }
+            Err(e) => fail(&mut out, format_args!("run {k}: {e}")),
         };
         let _ = writeln!(out, "run {k}");
         for (i, t) in clock.ticks[..layers].iter().enumerate() {
@@ -151,6 +151,5 @@ fn main() -> ! {
         sp.saturating_sub(low)
     );
     let _ = writeln!(out, "end");
-    debug::exit(debug::EXIT_SUCCESS);
-    loop {}
+    halt(debug::EXIT_SUCCESS)
 }

@@ -1,0 +1,106 @@
+//! Architecture sweeps: one description scaled in width and input
+//! resolution, each variant quantized with synthetic weights and budgeted on
+//! every target (flash, peak RAM, emulated instructions, estimated latency).
+
+use midge_convert::budget::{self, BudgetOptions};
+use midge_convert::description::Description;
+use midge_convert::footprint::model_footprint;
+use midge_convert::synth;
+use midge_convert::target::Target;
+use midge_runtime::embed::AlignedBytes;
+use midge_runtime::Model;
+use serde::Serialize;
+
+use crate::{Error, Result};
+
+/// One variant on one target.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct SweepCell {
+    pub target: String,
+    pub flash_bytes: u64,
+    pub ram_bytes: u64,
+    pub fits: bool,
+    /// Every bill item was measured.
+    pub complete: bool,
+    pub instructions: Option<u64>,
+    pub est_ms: Option<f64>,
+}
+
+/// One width × resolution variant.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct SweepRow {
+    pub width: f32,
+    /// Input height and width (the description's own when not swept).
+    pub input_hw: (u16, u16),
+    /// Why the variant could not be built (e.g. a kernel larger than a
+    /// shrunken input); the other fields are then zero.
+    pub error: Option<String>,
+    pub params: u64,
+    pub macs: u64,
+    pub model_bytes: usize,
+    pub workspace_len: usize,
+    pub cells: Vec<SweepCell>,
+}
+
+/// Every width × resolution (square inputs; none given: the description's
+/// own size) on every target.
+pub fn sweep(
+    desc: &Description,
+    widths: &[f32],
+    resolutions: &[u16],
+    targets: &[Target],
+    opts: &BudgetOptions,
+    seed: u64,
+) -> Result<Vec<SweepRow>> {
+    let own = (desc.input.height, desc.input.width);
+    let sizes: Vec<Option<(u16, u16)>> = if resolutions.is_empty() {
+        vec![None]
+    } else {
+        resolutions.iter().map(|&r| Some((r, r))).collect()
+    };
+    let mut rows = Vec::new();
+    for &w in widths {
+        for &hw in &sizes {
+            let variant = desc.scaled(w, hw);
+            let mut row = SweepRow {
+                width: w,
+                input_hw: hw.unwrap_or(own),
+                error: None,
+                params: 0,
+                macs: 0,
+                model_bytes: 0,
+                workspace_len: 0,
+                cells: Vec::new(),
+            };
+            let bytes = match synth::synth_quantize(&variant, seed) {
+                Ok(q) => q.bytes,
+                Err(e) => {
+                    row.error = Some(e.to_string());
+                    rows.push(row);
+                    continue;
+                }
+            };
+            let aligned = AlignedBytes::from_slice(&bytes);
+            let model = Model::parse(&aligned).map_err(|e| Error::new("sweep", e.to_string()))?;
+            let fp = model_footprint(&model);
+            row.params = fp.params;
+            row.macs = fp.macs;
+            row.model_bytes = fp.sections.total;
+            row.workspace_len = fp.workspace_len;
+            for t in targets {
+                let ev = budget::evaluate(&bytes, t, opts)?;
+                row.cells.push(SweepCell {
+                    target: t.name.clone(),
+                    flash_bytes: ev.budget.flash_bytes,
+                    ram_bytes: ev.budget.ram_bytes,
+                    fits: ev.budget.fits,
+                    complete: ev.budget.complete,
+                    instructions: ev.budget.instructions,
+                    est_ms: ev.budget.estimated_ms,
+                });
+            }
+            rows.push(row);
+        }
+    }
+    Ok(rows)
+}

@@ -1,0 +1,78 @@
+//! The demo models run on emulated Cortex-M cores (QEMU, bench/firmware)
+//! give the host's output bytes bit for bit, for int8 and fp16 models and
+//! for thumbv7em (M4, M7) and thumbv6m (M0+) builds. Skips with a printed
+//! reason only when qemu-system-arm or a Rust thumb target is missing.
+
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+
+use midge_bench::emulated::{emulated_latency, unavailable};
+use midge_convert::graph::Precision;
+use midge_convert::images;
+use midge_convert::quantize::{image_spec, quantize_description, QuantizeOptions};
+use midge_convert::target::Target;
+
+fn models() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("../models")
+}
+
+/// (model bytes, the first `n` calibration images as inputs)
+fn demo(desc: &str, precision: Option<Precision>, n: usize) -> (Vec<u8>, Vec<Vec<u8>>) {
+    let path = models().join(desc);
+    let opts = QuantizeOptions {
+        precision,
+        ..QuantizeOptions::default()
+    };
+    let conv = quantize_description(&path, &opts).unwrap();
+    let spec = image_spec(&conv.desc);
+    let dir = conv.desc.calibration.clone().unwrap();
+    let inputs = images::all_images(&dir).unwrap()[..n]
+        .iter()
+        .map(|f| images::load_image(f, &spec).unwrap())
+        .collect();
+    (conv.quantized.bytes, inputs)
+}
+
+fn check(target: &str, desc: &str, precision: Option<Precision>) {
+    let t = Target::resolve(target).unwrap();
+    if let Some(why) = unavailable(&t) {
+        println!("skipped: emulated run on {target} not possible here: {why}");
+        return;
+    }
+    let (bytes, inputs) = demo(desc, precision, 3);
+    let r = emulated_latency(&bytes, &inputs, &t, Duration::from_secs(300)).unwrap();
+    // SysTick at the MPS2 boards' 25 MHz core clock under -icount shift=0
+    // (1 ns of virtual time per instruction): 40 instructions per tick, so
+    // 40 000 NOPs read as 1 000 ticks (QEMU mps2 documentation, common practice).
+    assert!(r.calibration_ok, "calibration {:?}", r.calibration);
+    assert_eq!(r.outputs.len(), inputs.len());
+    assert!(
+        r.matches_host,
+        "{target} {desc}: emulated outputs differ from the host's"
+    );
+    // Every layer with MACs executes at least one instruction per MAC.
+    for l in &r.layers {
+        assert!(
+            l.instructions >= l.macs,
+            "layer {} {}: {l:?}",
+            l.index,
+            l.op
+        );
+    }
+    assert!(r.stack_runtime > 0 && r.stack_runtime <= r.stack_total);
+}
+
+#[test]
+fn digits_int8_on_m4() {
+    check("m4-80", "digits/model.toml", None);
+}
+
+#[test]
+fn caps_separable_int8_on_m0plus() {
+    check("m0plus-48", "caps/separable.toml", None);
+}
+
+#[test]
+fn caps_plain_fp16_on_m7() {
+    check("m7-400", "caps/plain.toml", Some(Precision::Fp16));
+}
