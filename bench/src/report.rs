@@ -461,13 +461,19 @@ pub fn bar_chart(
     lines: &[(f64, String)],
 ) -> String {
     let n = values.len().max(1);
-    let (w, h, left, bottom, top) = (900.0f64, 260.0f64, 70.0f64, 70.0f64, 16.0f64);
+    let (w, h, left, bottom, top) = (900.0f64, 300.0f64, 70.0f64, 100.0f64, 26.0f64);
     let plot_w = w - left - 10.0;
     let plot_h = h - bottom - top;
+    let top_bar = values.iter().copied().fold(0.0f64, f64::max);
+    // Reference lines far above the bars would flatten them: those are
+    // named in a caption instead of drawn.
+    let (drawn, off): (Vec<&(f64, String)>, Vec<&(f64, String)>) = lines
+        .iter()
+        .partition(|l| l.0 <= 3.0 * top_bar || top_bar <= 0.0);
     let max = values
         .iter()
         .copied()
-        .chain(lines.iter().map(|l| l.0))
+        .chain(drawn.iter().map(|l| l.0))
         .fold(0.0f64, f64::max)
         .max(1e-9);
     let y = |v: f64| top + plot_h * (1.0 - v.max(0.0) / max);
@@ -513,7 +519,7 @@ pub fn bar_chart(
             );
         }
     }
-    for (v, cap) in lines {
+    for (v, cap) in drawn {
         let _ = write!(
             s,
             "<line class='ref' x1='{left}' x2='{}' y1='{:.1}' y2='{:.1}'/><text class='refcap' x='{}' y='{:.1}' text-anchor='end'>{} {}</text>",
@@ -526,11 +532,20 @@ pub fn bar_chart(
             short(*v)
         );
     }
-    let _ = write!(
-        s,
-        "<text class='unit' x='8' y='{}'>{unit}</text></svg>",
-        top + 8.0
-    );
+    let _ = write!(s, "<text class='unit' x='{left}' y='14'>{unit}</text>");
+    if !off.is_empty() {
+        let names: Vec<String> = off
+            .iter()
+            .map(|(v, c)| format!("{} {}", esc(c), short(*v)))
+            .collect();
+        let _ = write!(
+            s,
+            "<text class='refcap' x='{}' y='14' text-anchor='end'>off scale: {}</text>",
+            w - 12.0,
+            names.join(", ")
+        );
+    }
+    s += "</svg>";
     s
 }
 

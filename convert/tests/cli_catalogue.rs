@@ -1,0 +1,404 @@
+//! The `midge` CLI against a catalogue of bad inputs, each built in its own
+//! temporary folder from the tiny valid model of `quant_support`: every case
+//! must exit with status 2, print exactly one line on stderr naming the
+//! file / key / layer and the problem, and leave no new file behind.
+
+mod quant_support;
+
+use std::collections::BTreeSet;
+use std::fs;
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+use midge_convert::quantize::{quantize_description, QuantizeOptions};
+use midge_convert::weights::TensorMap;
+use quant_support::{scratch, write_model};
+
+/// One bad input: `prepare` damages a fresh copy of the tiny model in `dir`
+/// and returns the arguments; stderr must contain every `expect` string.
+struct Case {
+    name: &'static str,
+    prepare: fn(&Path) -> Vec<String>,
+    expect: &'static [&'static str],
+}
+
+fn s(p: &Path) -> String {
+    p.to_str().unwrap().to_string()
+}
+
+fn args(v: &[&str]) -> Vec<String> {
+    v.iter().map(|a| a.to_string()).collect()
+}
+
+/// `quantize <dir>/model.toml -o <dir>/out.midge`.
+fn quantize(dir: &Path) -> Vec<String> {
+    args(&[
+        "quantize",
+        &s(&dir.join("model.toml")),
+        "-o",
+        &s(&dir.join("out.midge")),
+    ])
+}
+
+fn weights(dir: &Path) -> PathBuf {
+    dir.join("weights.safetensors")
+}
+
+/// Load the weights, change them, write them back.
+fn edit_weights(dir: &Path, f: impl FnOnce(&mut TensorMap)) {
+    let mut m = TensorMap::load(&weights(dir)).unwrap();
+    f(&mut m);
+    fs::write(weights(dir), m.to_safetensors_bytes().unwrap()).unwrap();
+}
+
+/// Replace `from` by `to` in the description (which must contain it).
+fn edit_description(dir: &Path, from: &str, to: &str) {
+    let p = dir.join("model.toml");
+    let t = fs::read_to_string(&p).unwrap();
+    assert!(t.contains(from), "description has no {from:?}");
+    fs::write(&p, t.replacen(from, to, 1)).unwrap();
+}
+
+/// A valid model file `model.midge` converted from the tiny description.
+fn write_midge(dir: &Path) -> PathBuf {
+    let conv = quantize_description(&dir.join("model.toml"), &QuantizeOptions::default())
+        .unwrap_or_else(|e| panic!("{e}"));
+    let p = dir.join("model.midge");
+    fs::write(&p, &conv.quantized.bytes).unwrap();
+    p
+}
+
+fn show(p: &Path) -> Vec<String> {
+    args(&["show", &s(p)])
+}
+
+fn catalogue() -> Vec<Case> {
+    vec![
+        Case {
+            name: "missing description file",
+            prepare: |d| {
+                args(&[
+                    "quantize",
+                    &s(&d.join("absent.toml")),
+                    "-o",
+                    &s(&d.join("out.midge")),
+                ])
+            },
+            expect: &["absent.toml"],
+        },
+        Case {
+            name: "description is not TOML",
+            prepare: |d| {
+                fs::write(d.join("model.toml"), "name = \"x\"\n[[layer]\nop = ").unwrap();
+                quantize(d)
+            },
+            expect: &["model.toml"],
+        },
+        Case {
+            name: "weights file missing",
+            prepare: |d| {
+                fs::remove_file(weights(d)).unwrap();
+                quantize(d)
+            },
+            expect: &["weights.safetensors"],
+        },
+        Case {
+            name: "weights not a safetensors file",
+            prepare: |d| {
+                fs::write(weights(d), "this is a text file, not tensors\n").unwrap();
+                quantize(d)
+            },
+            expect: &["weights.safetensors"],
+        },
+        Case {
+            name: "truncated safetensors",
+            prepare: |d| {
+                let b = fs::read(weights(d)).unwrap();
+                fs::write(weights(d), &b[..b.len() / 2]).unwrap();
+                quantize(d)
+            },
+            expect: &["weights.safetensors"],
+        },
+        Case {
+            name: "unsupported dtype",
+            prepare: |d| {
+                // Same-length edit of the JSON header: F32 → I32 for one tensor.
+                let mut b = fs::read(weights(d)).unwrap();
+                let key = br#""stem.weight":{"dtype":"F32""#;
+                let at = b
+                    .windows(key.len())
+                    .position(|w| w == key)
+                    .expect("stem.weight header entry");
+                let f = at + key.len() - 4;
+                b[f + 1] = b'I';
+                fs::write(weights(d), b).unwrap();
+                quantize(d)
+            },
+            expect: &["stem.weight", "I32"],
+        },
+        Case {
+            name: "tensor missing",
+            prepare: |d| {
+                edit_weights(d, |m| {
+                    m.tensors.remove("block.weight").unwrap();
+                });
+                quantize(d)
+            },
+            expect: &["block.weight", "missing"],
+        },
+        Case {
+            name: "shape mismatch",
+            prepare: |d| {
+                edit_weights(d, |m| {
+                    m.insert("head.weight", vec![3, 5], vec![0.1; 15]);
+                });
+                quantize(d)
+            },
+            expect: &["head.weight", "shape"],
+        },
+        Case {
+            name: "NaN weight",
+            prepare: |d| {
+                edit_weights(d, |m| {
+                    let t = m.tensors.get_mut("block.weight").unwrap();
+                    t.data[5] = f32::NAN;
+                });
+                quantize(d)
+            },
+            expect: &["block.weight"],
+        },
+        Case {
+            name: "Inf weight",
+            prepare: |d| {
+                edit_weights(d, |m| {
+                    let t = m.tensors.get_mut("head.bias").unwrap();
+                    t.data[0] = f32::NEG_INFINITY;
+                });
+                quantize(d)
+            },
+            expect: &["head.bias"],
+        },
+        Case {
+            name: "unknown op",
+            prepare: |d| {
+                edit_description(d, "op = \"depthwise\"", "op = \"conv3d\"");
+                quantize(d)
+            },
+            expect: &["conv3d"],
+        },
+        Case {
+            name: "layer input refers to a later layer",
+            prepare: |d| {
+                edit_description(d, "from = [\"stem_relu\", \"block\"]", "from = [\"stem_relu\", \"dw\"]");
+                quantize(d)
+            },
+            expect: &["sum", "dw"],
+        },
+        Case {
+            name: "description key misspelt",
+            prepare: |d| {
+                edit_description(d, "out_features = 3", "out_featurs = 3");
+                quantize(d)
+            },
+            expect: &["out_featurs"],
+        },
+        Case {
+            name: "empty calibration folder",
+            prepare: |d| {
+                let e = d.join("empty");
+                fs::create_dir_all(&e).unwrap();
+                let mut a = quantize(d);
+                a.extend(args(&["--calibration", &s(&e)]));
+                a
+            },
+            expect: &["empty"],
+        },
+        Case {
+            name: "non-image file among calibration images",
+            prepare: |d| {
+                fs::write(d.join("calib").join("c99.png"), "not a picture").unwrap();
+                quantize(d)
+            },
+            expect: &["c99.png"],
+        },
+        Case {
+            name: "calibration image of the wrong size, resizing off",
+            prepare: |d| {
+                image::RgbImage::from_pixel(9, 8, image::Rgb([1, 2, 3]))
+                    .save(d.join("calib").join("c98.png"))
+                    .unwrap();
+                quantize(d)
+            },
+            expect: &["c98.png", "9"],
+        },
+        Case {
+            name: "class folders do not match the labels",
+            prepare: |d| {
+                fs::rename(d.join("val").join("bar"), d.join("val").join("wheel")).unwrap();
+                args(&["compare", &s(&d.join("model.toml"))])
+            },
+            expect: &["wheel"],
+        },
+        Case {
+            name: "--max-drop not a number",
+            prepare: |d| args(&["compare", &s(&d.join("model.toml")), "--max-drop", "lots"]),
+            expect: &["--max-drop", "lots"],
+        },
+        Case {
+            name: "--max-drop not finite",
+            prepare: |d| args(&["compare", &s(&d.join("model.toml")), "--max-drop", "NaN"]),
+            expect: &["--max-drop"],
+        },
+        Case {
+            name: "output folder does not exist",
+            prepare: |d| {
+                args(&[
+                    "quantize",
+                    &s(&d.join("model.toml")),
+                    "-o",
+                    &s(&d.join("no-such-folder").join("out.midge")),
+                ])
+            },
+            expect: &["no-such-folder"],
+        },
+        Case {
+            name: "model file that is not ours",
+            prepare: |d| show(&d.join("calib").join("c00.png")),
+            expect: &["c00.png", "magic"],
+        },
+        Case {
+            name: "model file of a newer version",
+            prepare: |d| {
+                let p = write_midge(d);
+                let mut b = fs::read(&p).unwrap();
+                b[8..10].copy_from_slice(&2u16.to_le_bytes());
+                fs::write(&p, b).unwrap();
+                show(&p)
+            },
+            expect: &["model.midge", "version 2"],
+        },
+        Case {
+            name: "model file with a corrupted CRC",
+            prepare: |d| {
+                let p = write_midge(d);
+                let mut b = fs::read(&p).unwrap();
+                let n = b.len();
+                b[n / 2] ^= 0x10;
+                fs::write(&p, b).unwrap();
+                show(&p)
+            },
+            expect: &["model.midge", "CRC"],
+        },
+        Case {
+            name: "truncated model file given to classify",
+            prepare: |d| {
+                let p = write_midge(d);
+                let b = fs::read(&p).unwrap();
+                fs::write(&p, &b[..b.len() - 8]).unwrap();
+                args(&["classify", &s(&p), &s(&d.join("calib").join("c00.png"))])
+            },
+            expect: &["model.midge", "truncated"],
+        },
+        Case {
+            name: "classify an image of the wrong size without --resize",
+            prepare: |d| {
+                let p = write_midge(d);
+                let img = d.join("big.png");
+                image::RgbImage::from_pixel(16, 16, image::Rgb([9, 9, 9]))
+                    .save(&img)
+                    .unwrap();
+                args(&["classify", &s(&p), &s(&img)])
+            },
+            expect: &["big.png"],
+        },
+        Case {
+            name: "invalid target profile",
+            prepare: |d| {
+                let p = write_midge(d);
+                let t = d.join("board.toml");
+                fs::write(&t, "name = \"board\"\nram_bytes = \"lots\"\n").unwrap();
+                args(&[
+                    "budget",
+                    &s(&p),
+                    "--target",
+                    &s(&t),
+                    "--no-emulate",
+                    "--no-runtime-size",
+                ])
+            },
+            expect: &["board.toml"],
+        },
+        Case {
+            name: "unknown target profile name",
+            prepare: |d| {
+                let p = write_midge(d);
+                args(&["budget", &s(&p), "--target", "m9-9000", "--no-emulate", "--no-runtime-size"])
+            },
+            expect: &["m9-9000"],
+        },
+    ]
+}
+
+/// Every file under `dir`, relative paths.
+fn files(dir: &Path) -> BTreeSet<PathBuf> {
+    let mut out = BTreeSet::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        for e in fs::read_dir(&d).unwrap() {
+            let p = e.unwrap().path();
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                out.insert(p.strip_prefix(dir).unwrap().to_path_buf());
+            }
+        }
+    }
+    out
+}
+
+#[test]
+fn bad_inputs_exit_2_with_one_line_and_no_output() {
+    let cases = catalogue();
+    assert!(cases.len() >= 20);
+    let mut failures = Vec::new();
+    for (i, case) in cases.iter().enumerate() {
+        let dir = scratch(&format!("catalogue-{i}"));
+        write_model(&dir, "", 7);
+        let argv = (case.prepare)(&dir);
+        let before = files(&dir);
+        let o = Command::new(env!("CARGO_BIN_EXE_midge"))
+            .args(&argv)
+            .output()
+            .expect("run midge");
+        let err = String::from_utf8_lossy(&o.stderr).into_owned();
+        let lines: Vec<&str> = err.lines().collect();
+        let after = files(&dir);
+        let mut problems = Vec::new();
+        if o.status.code() != Some(2) {
+            problems.push(format!("exit status {:?}, expected 2", o.status.code()));
+        }
+        if lines.len() != 1 {
+            problems.push(format!("{} stderr lines, expected 1", lines.len()));
+        }
+        for e in case.expect {
+            if !err.contains(e) {
+                problems.push(format!("stderr does not mention {e:?}"));
+            }
+        }
+        let new: Vec<_> = after.difference(&before).collect();
+        if !new.is_empty() {
+            problems.push(format!("left files behind: {new:?}"));
+        }
+        if problems.is_empty() {
+            let _ = fs::remove_dir_all(&dir);
+        } else {
+            failures.push(format!(
+                "{}: {}\n    args {argv:?}\n    stderr {err:?}",
+                case.name,
+                problems.join("; ")
+            ));
+        }
+    }
+    eprintln!("CLI catalogue: {} bad inputs, {} failed", cases.len(), failures.len());
+    assert!(failures.is_empty(), "\n{}", failures.join("\n"));
+}
