@@ -129,8 +129,8 @@ fn catalogue() -> Vec<Case> {
                     .windows(key.len())
                     .position(|w| w == key)
                     .expect("stem.weight header entry");
-                let f = at + key.len() - 4;
-                b[f + 1] = b'I';
+                // key ends in `F32"`: the F is 4 bytes before its end.
+                b[at + key.len() - 4] = b'I';
                 fs::write(weights(d), b).unwrap();
                 quantize(d)
             },
