@@ -78,9 +78,10 @@ enum Command {
         /// Width multipliers, comma-separated.
         #[arg(long, value_delimiter = ',', default_value = "1")]
         width: Vec<f32>,
-        /// Square input sizes, comma-separated [default: the description's].
+        /// Input sizes, comma-separated: 32 (square) or 49x10 (height x
+        /// width) [default: the description's].
         #[arg(long, value_delimiter = ',')]
-        resolution: Vec<u16>,
+        resolution: Vec<String>,
         #[command(flatten)]
         common: Common,
     },
@@ -135,7 +136,11 @@ fn run(cli: Cli) -> Result<u8> {
                 emulator_timeout: Duration::from_secs(common.timeout),
             };
             let t = targets(&common.targets)?;
-            let rows = sweep::sweep(&desc, &width, &resolution, &t, &opts, common.seed)?;
+            let sizes = resolution
+                .iter()
+                .map(|r| sweep::parse_resolution(r))
+                .collect::<Result<Vec<_>>>()?;
+            let rows = sweep::sweep(&desc, &width, &sizes, &t, &opts, common.seed)?;
             if let Some(h) = &common.html {
                 write_atomic(h, sweep_html(&desc.name, &rows).as_bytes())?;
             }

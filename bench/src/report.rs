@@ -388,7 +388,7 @@ pub fn sweep_html(name: &str, rows: &[SweepRow]) -> String {
     let ok: Vec<&SweepRow> = rows.iter().filter(|r| r.error.is_none()).collect();
     let labels: Vec<String> = ok
         .iter()
-        .map(|r| format!("×{} {}²", r.width, r.input_hw.0))
+        .map(|r| format!("×{} {}×{}", r.width, r.input_hw.0, r.input_hw.1))
         .collect();
     let mut body = format!("<h1>Sweep of {}</h1>", esc(name));
     body += "<h2>MACs per variant</h2>";
@@ -417,6 +417,53 @@ pub fn sweep_html(name: &str, rows: &[SweepRow]) -> String {
         None,
         &[],
     );
+    let targets: Vec<String> = ok
+        .first()
+        .map(|r| r.cells.iter().map(|c| c.target.clone()).collect())
+        .unwrap_or_default();
+    for (k, t) in targets.iter().enumerate() {
+        let ram: Vec<f64> = ok
+            .iter()
+            .map(|r| r.cells.get(k).map_or(0.0, |c| c.ram_bytes as f64))
+            .collect();
+        let fits = ok
+            .iter()
+            .map(|r| match r.cells.get(k) {
+                Some(c) if c.fits => "fits",
+                _ => "does not fit",
+            })
+            .collect::<Vec<_>>()
+            .join(", ");
+        let _ = write!(
+            body,
+            "<h2>RAM on {}</h2><p class=note>Workspace, input, runtime data and stack per variant: {}.</p>",
+            esc(t),
+            fits
+        );
+        let limit = ok
+            .iter()
+            .find_map(|r| r.cells.get(k))
+            .map_or(0, |c| c.ram_limit);
+        body += &bar_chart(
+            &labels,
+            &ram,
+            "B",
+            None,
+            &[(limit as f64, format!("{t} RAM available"))],
+        );
+        let ms: Vec<f64> = ok
+            .iter()
+            .map(|r| r.cells.get(k).and_then(|c| c.est_ms).unwrap_or(0.0))
+            .collect();
+        if ms.iter().any(|&m| m > 0.0) {
+            let _ = write!(
+                body,
+                "<h2>Estimated latency on {}</h2><p class=note>Emulated instructions × the profile's CPI at its clock, ms (an estimate).</p>",
+                esc(t)
+            );
+            body += &bar_chart(&labels, &ms, "ms", None, &[]);
+        }
+    }
     body += "<h2>Table</h2><pre>";
     body += &esc(&sweep_text(rows));
     body += "</pre>";
@@ -451,6 +498,9 @@ fn kib(b: u64) -> String {
     }
 }
 
+/// A dashed reference line of a chart: value and caption.
+pub type RefLine = (f64, String);
+
 /// A vertical bar chart as inline SVG: one bar per label, an optional
 /// highlighted bar and dashed reference lines (value, caption).
 pub fn bar_chart(
@@ -458,7 +508,7 @@ pub fn bar_chart(
     values: &[f64],
     unit: &str,
     highlight: Option<usize>,
-    lines: &[(f64, String)],
+    lines: &[RefLine],
 ) -> String {
     let n = values.len().max(1);
     let (w, h, left, bottom, top) = (900.0f64, 300.0f64, 70.0f64, 100.0f64, 26.0f64);
@@ -467,7 +517,7 @@ pub fn bar_chart(
     let top_bar = values.iter().copied().fold(0.0f64, f64::max);
     // Reference lines far above the bars would flatten them: those are
     // named in a caption instead of drawn.
-    let (drawn, off): (Vec<&(f64, String)>, Vec<&(f64, String)>) = lines
+    let (drawn, off): (Vec<&RefLine>, Vec<&RefLine>) = lines
         .iter()
         .partition(|l| l.0 <= 3.0 * top_bar || top_bar <= 0.0);
     let max = values
@@ -540,8 +590,8 @@ pub fn bar_chart(
             .collect();
         let _ = write!(
             s,
-            "<text class='refcap' x='{}' y='14' text-anchor='end'>off scale: {}</text>",
-            w - 12.0,
+            "<text class='refcap' x='{}' y='14'>off scale: {}</text>",
+            left + 40.0,
             names.join(", ")
         );
     }

@@ -19,6 +19,9 @@ pub struct SweepCell {
     pub target: String,
     pub flash_bytes: u64,
     pub ram_bytes: u64,
+    /// The target's limits (total − reserved).
+    pub flash_limit: u64,
+    pub ram_limit: u64,
     pub fits: bool,
     /// Every bill item was measured.
     pub complete: bool,
@@ -42,12 +45,12 @@ pub struct SweepRow {
     pub cells: Vec<SweepCell>,
 }
 
-/// Every width × resolution (square inputs; none given: the description's
+/// Every width × input size (height, width; none given: the description's
 /// own size) on every target.
 pub fn sweep(
     desc: &Description,
     widths: &[f32],
-    resolutions: &[u16],
+    resolutions: &[(u16, u16)],
     targets: &[Target],
     opts: &BudgetOptions,
     seed: u64,
@@ -56,7 +59,7 @@ pub fn sweep(
     let sizes: Vec<Option<(u16, u16)>> = if resolutions.is_empty() {
         vec![None]
     } else {
-        resolutions.iter().map(|&r| Some((r, r))).collect()
+        resolutions.iter().map(|&r| Some(r)).collect()
     };
     let mut rows = Vec::new();
     for &w in widths {
@@ -93,6 +96,8 @@ pub fn sweep(
                     target: t.name.clone(),
                     flash_bytes: ev.budget.flash_bytes,
                     ram_bytes: ev.budget.ram_bytes,
+                    flash_limit: ev.budget.flash_limit,
+                    ram_limit: ev.budget.ram_limit,
                     fits: ev.budget.fits,
                     complete: ev.budget.complete,
                     instructions: ev.budget.instructions,
@@ -103,4 +108,42 @@ pub fn sweep(
         }
     }
     Ok(rows)
+}
+
+/// An input size as written on the command line: `32` (square) or `49x10`
+/// (height × width).
+pub fn parse_resolution(text: &str) -> Result<(u16, u16)> {
+    let bad = || {
+        Error::new(
+            format!("--resolution {text}"),
+            "expected a size like 32 or 49x10 (height x width, 1..=65535)",
+        )
+    };
+    let num = |s: &str| {
+        s.trim()
+            .parse::<u16>()
+            .ok()
+            .filter(|&v| v > 0)
+            .ok_or_else(bad)
+    };
+    match text.split_once(['x', '×']) {
+        Some((h, w)) => Ok((num(h)?, num(w)?)),
+        None => num(text).map(|v| (v, v)),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn resolutions_parse() {
+        assert_eq!(parse_resolution("32").unwrap(), (32, 32));
+        assert_eq!(parse_resolution("49x10").unwrap(), (49, 10));
+        assert!(parse_resolution("0").is_err());
+        assert!(parse_resolution("4x")
+            .unwrap_err()
+            .to_string()
+            .contains("49x10"));
+    }
 }

@@ -88,7 +88,15 @@ fn sweep_scales_and_marks_fits() {
         Target::resolve("m0plus-48").unwrap(),
         Target::resolve("m7-400").unwrap(),
     ];
-    let rows = sweep(&desc, &[0.5, 1.0], &[32, 4], &targets, &offline(), 1).unwrap();
+    let rows = sweep(
+        &desc,
+        &[0.5, 1.0],
+        &[(32, 32), (4, 4)],
+        &targets,
+        &offline(),
+        1,
+    )
+    .unwrap();
     assert_eq!(rows.len(), 4);
     let (half, full) = (&rows[0], &rows[2]);
     assert_eq!((half.width, half.input_hw), (0.5, (32, 32)));

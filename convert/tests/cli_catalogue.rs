@@ -84,7 +84,7 @@ fn catalogue() -> Vec<Case> {
                     &s(&d.join("out.midge")),
                 ])
             },
-            expect: &["absent.toml"],
+            expect: &["absent.toml", "cannot read"],
         },
         Case {
             name: "description is not TOML",
@@ -92,7 +92,7 @@ fn catalogue() -> Vec<Case> {
                 fs::write(d.join("model.toml"), "name = \"x\"\n[[layer]\nop = ").unwrap();
                 quantize(d)
             },
-            expect: &["model.toml"],
+            expect: &["model.toml", "line 2"],
         },
         Case {
             name: "weights file missing",
@@ -100,7 +100,7 @@ fn catalogue() -> Vec<Case> {
                 fs::remove_file(weights(d)).unwrap();
                 quantize(d)
             },
-            expect: &["weights.safetensors"],
+            expect: &["weights.safetensors", "cannot read"],
         },
         Case {
             name: "weights not a safetensors file",
@@ -108,7 +108,7 @@ fn catalogue() -> Vec<Case> {
                 fs::write(weights(d), "this is a text file, not tensors\n").unwrap();
                 quantize(d)
             },
-            expect: &["weights.safetensors"],
+            expect: &["weights.safetensors", "not a safetensors file"],
         },
         Case {
             name: "truncated safetensors",
@@ -117,7 +117,7 @@ fn catalogue() -> Vec<Case> {
                 fs::write(weights(d), &b[..b.len() / 2]).unwrap();
                 quantize(d)
             },
-            expect: &["weights.safetensors"],
+            expect: &["weights.safetensors", "not a complete safetensors file"],
         },
         Case {
             name: "unsupported dtype",
@@ -134,7 +134,7 @@ fn catalogue() -> Vec<Case> {
                 fs::write(weights(d), b).unwrap();
                 quantize(d)
             },
-            expect: &["stem.weight", "I32"],
+            expect: &["weights.safetensors", "stem.weight", "I32", "not supported"],
         },
         Case {
             name: "tensor missing",
@@ -144,7 +144,7 @@ fn catalogue() -> Vec<Case> {
                 });
                 quantize(d)
             },
-            expect: &["block.weight", "missing"],
+            expect: &["weights.safetensors", "block.weight", "missing"],
         },
         Case {
             name: "shape mismatch",
@@ -154,7 +154,7 @@ fn catalogue() -> Vec<Case> {
                 });
                 quantize(d)
             },
-            expect: &["head.weight", "shape"],
+            expect: &["head.weight", "shape mismatch", "[3, 4]", "[3, 5]"],
         },
         Case {
             name: "NaN weight",
@@ -165,7 +165,7 @@ fn catalogue() -> Vec<Case> {
                 });
                 quantize(d)
             },
-            expect: &["block.weight"],
+            expect: &["block.weight", "NaN", "not finite"],
         },
         Case {
             name: "Inf weight",
@@ -176,7 +176,7 @@ fn catalogue() -> Vec<Case> {
                 });
                 quantize(d)
             },
-            expect: &["head.bias"],
+            expect: &["head.bias", "inf", "not finite"],
         },
         Case {
             name: "unknown op",
@@ -184,15 +184,19 @@ fn catalogue() -> Vec<Case> {
                 edit_description(d, "op = \"depthwise\"", "op = \"conv3d\"");
                 quantize(d)
             },
-            expect: &["conv3d"],
+            expect: &["model.toml", "dw", "unknown op", "conv3d"],
         },
         Case {
             name: "layer input refers to a later layer",
             prepare: |d| {
-                edit_description(d, "from = [\"stem_relu\", \"block\"]", "from = [\"stem_relu\", \"dw\"]");
+                edit_description(
+                    d,
+                    "from = [\"stem_relu\", \"block\"]",
+                    "from = [\"stem_relu\", \"dw\"]",
+                );
                 quantize(d)
             },
-            expect: &["sum", "dw"],
+            expect: &["model.toml", "sum", "dw", "later layer"],
         },
         Case {
             name: "description key misspelt",
@@ -200,7 +204,7 @@ fn catalogue() -> Vec<Case> {
                 edit_description(d, "out_features = 3", "out_featurs = 3");
                 quantize(d)
             },
-            expect: &["out_featurs"],
+            expect: &["model.toml", "out_featurs", "unknown field"],
         },
         Case {
             name: "empty calibration folder",
@@ -211,7 +215,7 @@ fn catalogue() -> Vec<Case> {
                 a.extend(args(&["--calibration", &s(&e)]));
                 a
             },
-            expect: &["empty"],
+            expect: &["empty", "no images"],
         },
         Case {
             name: "non-image file among calibration images",
@@ -219,7 +223,7 @@ fn catalogue() -> Vec<Case> {
                 fs::write(d.join("calib").join("c99.png"), "not a picture").unwrap();
                 quantize(d)
             },
-            expect: &["c99.png"],
+            expect: &["c99.png", "not a readable"],
         },
         Case {
             name: "calibration image of the wrong size, resizing off",
@@ -229,7 +233,7 @@ fn catalogue() -> Vec<Case> {
                     .unwrap();
                 quantize(d)
             },
-            expect: &["c98.png", "9"],
+            expect: &["c98.png", "9×8", "8×8"],
         },
         Case {
             name: "class folders do not match the labels",
@@ -237,7 +241,7 @@ fn catalogue() -> Vec<Case> {
                 fs::rename(d.join("val").join("bar"), d.join("val").join("wheel")).unwrap();
                 args(&["compare", &s(&d.join("model.toml"))])
             },
-            expect: &["wheel"],
+            expect: &["val", "wheel", "bar"],
         },
         Case {
             name: "--max-drop not a number",
@@ -247,7 +251,7 @@ fn catalogue() -> Vec<Case> {
         Case {
             name: "--max-drop not finite",
             prepare: |d| args(&["compare", &s(&d.join("model.toml")), "--max-drop", "NaN"]),
-            expect: &["--max-drop"],
+            expect: &["--max-drop", "NaN"],
         },
         Case {
             name: "output folder does not exist",
@@ -259,12 +263,12 @@ fn catalogue() -> Vec<Case> {
                     &s(&d.join("no-such-folder").join("out.midge")),
                 ])
             },
-            expect: &["no-such-folder"],
+            expect: &["no-such-folder", "cannot write"],
         },
         Case {
             name: "model file that is not ours",
             prepare: |d| show(&d.join("calib").join("c00.png")),
-            expect: &["c00.png", "magic"],
+            expect: &["c00.png", "bad magic"],
         },
         Case {
             name: "model file of a newer version",
@@ -275,7 +279,7 @@ fn catalogue() -> Vec<Case> {
                 fs::write(&p, b).unwrap();
                 show(&p)
             },
-            expect: &["model.midge", "version 2"],
+            expect: &["model.midge", "version 2", "not supported"],
         },
         Case {
             name: "model file with a corrupted CRC",
@@ -287,7 +291,7 @@ fn catalogue() -> Vec<Case> {
                 fs::write(&p, b).unwrap();
                 show(&p)
             },
-            expect: &["model.midge", "CRC"],
+            expect: &["model.midge", "CRC", "mismatch"],
         },
         Case {
             name: "truncated model file given to classify",
@@ -309,7 +313,7 @@ fn catalogue() -> Vec<Case> {
                     .unwrap();
                 args(&["classify", &s(&p), &s(&img)])
             },
-            expect: &["big.png"],
+            expect: &["big.png", "16×16", "8×8"],
         },
         Case {
             name: "invalid target profile",
@@ -326,15 +330,22 @@ fn catalogue() -> Vec<Case> {
                     "--no-runtime-size",
                 ])
             },
-            expect: &["board.toml"],
+            expect: &["board.toml", "lots"],
         },
         Case {
             name: "unknown target profile name",
             prepare: |d| {
                 let p = write_midge(d);
-                args(&["budget", &s(&p), "--target", "m9-9000", "--no-emulate", "--no-runtime-size"])
+                args(&[
+                    "budget",
+                    &s(&p),
+                    "--target",
+                    "m9-9000",
+                    "--no-emulate",
+                    "--no-runtime-size",
+                ])
             },
-            expect: &["m9-9000"],
+            expect: &["m9-9000", "no target profile"],
         },
     ]
 }
@@ -389,6 +400,7 @@ fn bad_inputs_exit_2_with_one_line_and_no_output() {
         if !new.is_empty() {
             problems.push(format!("left files behind: {new:?}"));
         }
+        eprintln!("  {:<52} {}", case.name, err.trim_end());
         if problems.is_empty() {
             let _ = fs::remove_dir_all(&dir);
         } else {
@@ -399,6 +411,10 @@ fn bad_inputs_exit_2_with_one_line_and_no_output() {
             ));
         }
     }
-    eprintln!("CLI catalogue: {} bad inputs, {} failed", cases.len(), failures.len());
+    eprintln!(
+        "CLI catalogue: {} bad inputs, {} failed",
+        cases.len(),
+        failures.len()
+    );
     assert!(failures.is_empty(), "\n{}", failures.join("\n"));
 }

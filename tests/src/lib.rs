@@ -21,7 +21,9 @@ pub enum Outcome {
 /// The input bytes fed to every model that parses: a fixed pattern of the
 /// input tensor's length.
 pub fn fixed_input(len: usize) -> Vec<u8> {
-    (0..len).map(|i| (i.wrapping_mul(37) ^ (i >> 3)) as u8).collect()
+    (0..len)
+        .map(|i| (i.wrapping_mul(37) ^ (i >> 3)) as u8)
+        .collect()
 }
 
 /// Parses `bytes` (which the caller has placed at whatever alignment it
@@ -55,7 +57,10 @@ pub fn parse_and_run(bytes: &[u8]) -> Result<Outcome, String> {
         .map_err(|e| format!("a model that parsed does not run: {e}"))?;
     let want = model.output().byte_len();
     if out.len() != want {
-        return Err(format!("run returned {} bytes, output tensor has {want}", out.len()));
+        return Err(format!(
+            "run returned {} bytes, output tensor has {want}",
+            out.len()
+        ));
     }
     Ok(Outcome::Ran(out.len()))
 }

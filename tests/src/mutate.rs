@@ -51,12 +51,6 @@ fn u32_at(b: &[u8], at: usize) -> usize {
         .unwrap_or(0)
 }
 
-fn u16_at(b: &[u8], at: usize) -> usize {
-    b.get(at..at + 2)
-        .map(|s| u16::from_le_bytes([s[0], s[1]]) as usize)
-        .unwrap_or(0)
-}
-
 impl Map {
     /// Reads the section table of `b` (no validation: garbage in, garbage out).
     pub fn of(b: &[u8]) -> Map {
@@ -66,7 +60,6 @@ impl Map {
             let t = u32_at(b, info + f.start);
             (t, n)
         };
-        let _ = u16_at(b, info + field::info::TENSOR_COUNT.start);
         Map {
             tensors: sec(field::info::TENSORS),
             layers: sec(field::info::LAYERS),
@@ -81,9 +74,11 @@ impl Map {
     pub fn fields(&self) -> Vec<(usize, usize)> {
         let mut v = Vec::new();
         let info = field::header::LEN;
-        for at in (0..field::info::LEN).step_by(2) {
-            v.push((info + at, if at >= 16 || at < 4 { 4 } else { 2 }));
-        }
+        // Workspace length, output id, the three counts, reserved word,
+        // then the four (offset, length) pairs of the section table.
+        let mut info_fields = vec![(0, 4), (4, 2), (6, 2), (8, 2), (10, 2), (12, 4)];
+        info_fields.extend((16..field::info::LEN).step_by(4).map(|at| (at, 4)));
+        v.extend(info_fields.into_iter().map(|(at, w)| (info + at, w)));
         v.push((field::header::FILE_LEN.start, 4));
         v.push((field::header::VERSION.start, 2));
         let (t0, tl) = self.tensors;
@@ -112,7 +107,11 @@ impl Map {
 /// Values that break bounds arithmetic: zero, one, powers of two around the
 /// type's range, all ones, and a few file-relative numbers.
 fn huge(rng: &mut impl Rng, width: usize, file_len: usize) -> u64 {
-    let max = if width >= 8 { u64::MAX } else { (1u64 << (8 * width)) - 1 };
+    let max = if width >= 8 {
+        u64::MAX
+    } else {
+        (1u64 << (8 * width)) - 1
+    };
     let pick = [
         0,
         1,
@@ -215,10 +214,10 @@ pub fn mutate(rng: &mut impl Rng, seed: &[u8], kind: Kind) -> Vec<u8> {
             let len = 8 * rng.gen_range(1..=8);
             let slots = b.len().saturating_sub(24 + len) / 8;
             if slots > 1 {
-                let a = 24 + 8 * rng.gen_range(0..slots);
-                let c = 24 + 8 * rng.gen_range(0..slots);
-                if a + len <= c || c + len <= a {
-                    swap_ranges(&mut b, a, c, len);
+                let first = 24 + 8 * rng.gen_range(0..slots);
+                let second = 24 + 8 * rng.gen_range(0..slots);
+                if first + len <= second || second + len <= first {
+                    swap_ranges(&mut b, first, second, len);
                 }
             }
         }

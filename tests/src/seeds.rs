@@ -158,7 +158,12 @@ pub fn int8_chain() -> ModelSpec {
             pixels_i8(1, 3),
             weighted_i8(conv, 4 * 9 * 3, 4, 1),
             weighted_i8(dwh, 9 * 4, 4, 2),
-            weighted_i8(header(Op::Dense, [3, 0], 4, Window::default()), 36 * 3, 3, 3),
+            weighted_i8(
+                header(Op::Dense, [3, 0], 4, Window::default()),
+                36 * 3,
+                3,
+                3,
+            ),
         ],
         4,
     )
@@ -226,7 +231,12 @@ pub fn mixed() -> ModelSpec {
                 params: ParamsBuf::None,
             },
             bare(Op::Quantize, 5, 6, Window::default()),
-            weighted_i8(header(Op::Dense, [6, 0], 7, Window::default()), 32 * 3, 3, 6),
+            weighted_i8(
+                header(Op::Dense, [6, 0], 7, Window::default()),
+                32 * 3,
+                3,
+                6,
+            ),
         ],
         7,
     )
@@ -264,7 +274,12 @@ pub fn residual() -> ModelSpec {
                 params: ParamsBuf::I32(vec![1 << 30, 3 << 28, 31]),
             },
             bare(Op::MaxPool, 4, 5, mp),
-            weighted_i8(header(Op::Dense, [5, 0], 6, Window::default()), 12 * 2, 2, 9),
+            weighted_i8(
+                header(Op::Dense, [5, 0], 6, Window::default()),
+                12 * 2,
+                2,
+                9,
+            ),
         ],
         6,
     )

@@ -27,15 +27,27 @@ fn digits_int8_and_fp16_drops_stay_within_bounds() {
     // The test split holds 400 images (models/digits/README.md).
     assert_eq!(report.images, 400);
     // Float model quality bound of the bundled weights: ≥ 95 % top-1.
-    assert!(report.float_top1 >= 95.0, "float top-1 {}", report.float_top1);
+    assert!(
+        report.float_top1 >= 95.0,
+        "float top-1 {}",
+        report.float_top1
+    );
     // Acceptance bounds of this project for int8: drop ≤ 1.0 percentage
     // point, agreement with the float reference ≥ 98 %.
     assert!(report.drop_pp <= 1.0, "int8 drop {} pp", report.drop_pp);
-    assert!(report.agreement >= 98.0, "int8 agreement {} %", report.agreement);
+    assert!(
+        report.agreement >= 98.0,
+        "int8 agreement {} %",
+        report.agreement
+    );
     // fp16: drop ≤ 0.2 percentage points.
     let fp16 = report.fp16.as_ref().expect("fp16 row");
     assert!(fp16.drop_pp <= 0.2, "fp16 drop {} pp", fp16.drop_pp);
-    assert!(fp16.agreement >= 99.0, "fp16 agreement {} %", fp16.agreement);
+    assert!(
+        fp16.agreement >= 99.0,
+        "fp16 agreement {} %",
+        fp16.agreement
+    );
 
     // Internal consistency of the report: the drop is the difference of the
     // two accuracies, and the confusion matrix counts every image once.

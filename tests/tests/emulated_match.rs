@@ -76,3 +76,31 @@ fn caps_separable_int8_on_m0plus() {
 fn caps_plain_fp16_on_m7() {
     check("m7-400", "caps/plain.toml", Some(Precision::Fp16));
 }
+
+/// A model whose body no longer matches its CRC is refused by `parse` on
+/// the device too, and the harness's error line reaches the host as an error.
+#[test]
+fn corrupted_model_is_reported_by_the_harness() {
+    let t = Target::resolve("m4-80").unwrap();
+    if let Some(why) = unavailable(&t) {
+        println!("skipped: emulated run on m4-80 not possible here: {why}");
+        return;
+    }
+    let (mut bytes, inputs) = demo("digits/model.toml", None, 1);
+    let last = bytes.len() - 1;
+    bytes[last] ^= 0x5a;
+    let err = emulated_latency(&bytes, &inputs, &t, Duration::from_secs(120));
+    // The host refuses it first (same runtime, same check).
+    assert!(err.is_err());
+    let build = midge_convert::firmware::build(&t.rust_target).unwrap();
+    let job = midge_convert::firmware::job_block(&bytes, &[&inputs[0]], 4096).unwrap();
+    let e = midge_convert::firmware::run(
+        &t.emulator.machine,
+        &build.harness,
+        &job,
+        Duration::from_secs(120),
+    )
+    .unwrap_err()
+    .to_string();
+    assert!(e.contains("harness: model:"), "{e}");
+}

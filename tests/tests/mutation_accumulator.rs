@@ -7,7 +7,6 @@
 //! FORMAT.md): per output channel `|bias| + 255 · Σ|w| ≤ i32::MAX`, with
 //! i32::MAX = 2^31 − 1 (two's complement 32-bit, common practice).
 
-
 use midge_convert::calibrate::Range;
 use midge_convert::description::Precision;
 use midge_convert::graph::{FloatGraph, FloatOp, InputSpec, Node};
@@ -87,9 +86,13 @@ fn minus_128_weights_count_as_128() {
     assert_eq!(65_793 * 128, LIMIT / 255);
     let shape = (21, 13, 241);
     let w = vec![-128i8; 65_793];
-    dense_with(shape, w.clone(), vec![LIMIT_BIAS]).emit().unwrap();
+    dense_with(shape, w.clone(), vec![LIMIT_BIAS])
+        .emit()
+        .unwrap();
     assert_eq!(
-        dense_with(shape, w, vec![LIMIT_BIAS + 1]).emit().unwrap_err(),
+        dense_with(shape, w, vec![LIMIT_BIAS + 1])
+            .emit()
+            .unwrap_err(),
         overflow(1, 0)
     );
 }
@@ -171,9 +174,27 @@ fn the_limit_model_runs_exactly() {
         // Large partial sums that cancel: +127/−128 halves in several orders.
         let p: Vec<u8> = (0..n)
             .map(|i| match pattern {
-                0 => if i < n / 2 { 255 } else { 0 },
-                1 => if i % 2 == 0 { 255 } else { 1 },
-                2 => if i < n / 2 { 0 } else { 255 },
+                0 => {
+                    if i < n / 2 {
+                        255
+                    } else {
+                        0
+                    }
+                }
+                1 => {
+                    if i % 2 == 0 {
+                        255
+                    } else {
+                        1
+                    }
+                }
+                2 => {
+                    if i < n / 2 {
+                        0
+                    } else {
+                        255
+                    }
+                }
                 _ => (128 + (i % 3) as i32 - 1) as u8,
             })
             .collect();
@@ -257,7 +278,11 @@ fn converter_refuses_the_layer_one_over_the_bound() {
     let s_acc = s_in * sw[0] as f64;
     let float_bias = |q: i64| {
         let b = (q as f64 * s_acc) as f32;
-        assert_eq!((b as f64 / s_acc).round() as i64, q, "float bias {b} misses {q}");
+        assert_eq!(
+            (b as f64 / s_acc).round() as i64,
+            q,
+            "float bias {b} misses {q}"
+        );
         b
     };
 

@@ -218,3 +218,54 @@ pub fn logit_gap(net: &mut Net, desc_path: &Path, set: &GreySet, n: usize) -> Re
     }
     Ok(gap)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn shifted(src: &[u8], h: usize, w: usize, dy: isize, dx: isize) -> Vec<u8> {
+        let mut out = vec![0u8; h * w];
+        for y in 0..h as isize {
+            for x in 0..w as isize {
+                let (sy, sx) = (y - dy, x - dx);
+                if (0..h as isize).contains(&sy) && (0..w as isize).contains(&sx) {
+                    out[y as usize * w + x as usize] = src[sy as usize * w + sx as usize];
+                }
+            }
+        }
+        out
+    }
+
+    #[test]
+    fn shift_moves_each_image_by_at_most_one_pixel() {
+        let mut set = GreySet::new(4, 5);
+        for k in 0..6u8 {
+            let img: Vec<u8> = (0..20u8).map(|i| i * 10 + k + 1).collect();
+            set.push(&img, k as usize % 3);
+        }
+        let mut src = FixedSet {
+            set: set.clone(),
+            shift: true,
+            seed: 9,
+        };
+        let a = src.epoch(0);
+        assert_eq!(a, src.epoch(0), "same epoch, same shifts");
+        assert_eq!(a.labels, set.labels);
+        let mut moved = 0;
+        for i in 0..set.len() {
+            let options: Vec<Vec<u8>> = (-1..=1)
+                .flat_map(|dy| (-1..=1).map(move |dx| (dy, dx)))
+                .map(|(dy, dx)| shifted(set.image(i), 4, 5, dy, dx))
+                .collect();
+            assert!(options.iter().any(|o| o == a.image(i)), "image {i}");
+            moved += usize::from(a.image(i) != set.image(i));
+        }
+        assert!(moved > 0, "some image must move");
+        let plain = FixedSet {
+            shift: false,
+            ..src
+        }
+        .epoch(3);
+        assert_eq!(plain, set);
+    }
+}

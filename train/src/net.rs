@@ -514,4 +514,138 @@ mod tests {
             );
         }
     }
+
+    const SMALL: &str = r#"
+name = "small"
+labels = ["a", "b", "c"]
+[input]
+height = 6
+width = 6
+channels = 1
+mean = [0.5]
+std = [0.25]
+[[layer]]
+name = "c1"
+op = "conv2d"
+out_channels = 4
+kernel = 3
+padding = 1
+bias = false
+[[layer]]
+name = "bn"
+op = "batchnorm"
+[[layer]]
+name = "r1"
+op = "relu6"
+[[layer]]
+name = "dw"
+op = "depthwise"
+kernel = 3
+stride = 2
+padding = 1
+[[layer]]
+name = "pw"
+op = "conv2d"
+out_channels = 4
+kernel = 1
+[[layer]]
+name = "sum"
+op = "add"
+from = ["pw", "dw"]
+[[layer]]
+name = "flat"
+op = "flatten"
+[[layer]]
+name = "fc"
+tensor = "head.0"
+op = "dense"
+out_features = 3
+"#;
+
+    fn small() -> (Description, Net) {
+        let d = Description::from_toml_str(SMALL, Path::new("small.toml")).unwrap();
+        let net = Net::new(&d, 3).unwrap();
+        (d, net)
+    }
+
+    /// The exported names and shapes are exactly what the converter expects
+    /// from a PyTorch state_dict, plus BatchNorm's int64 counter.
+    #[test]
+    fn state_dict_matches_the_description() {
+        let (d, mut net) = small();
+        let px: Vec<u8> = (0..2 * 36).map(|i| (i * 7 % 256) as u8).collect();
+        let x = net.batch(&px, 2).unwrap();
+        let y = net.forward(&x, true).unwrap();
+        assert_eq!(y.dims(), &[2, 3]);
+        let sd = net.state_dict().unwrap();
+        let mut want = d.expected_tensors().unwrap();
+        want.push(("bn.num_batches_tracked".into(), vec![]));
+        want.sort();
+        let got: Vec<(String, Vec<usize>)> = sd
+            .iter()
+            .map(|(n, t)| (n.clone(), t.dims().to_vec()))
+            .collect();
+        assert_eq!(got, want);
+        let count = sd
+            .iter()
+            .find(|(n, _)| n == "bn.num_batches_tracked")
+            .unwrap();
+        assert_eq!(count.1.dtype(), DType::I64);
+        assert_eq!(count.1.to_scalar::<i64>().unwrap(), 1);
+    }
+
+    /// BatchNorm in training mode, as the PyTorch `BatchNorm2d` documentation
+    /// describes it (recalled from memory): running = (1 − 0.1)·running +
+    /// 0.1·batch statistic, the unbiased variance in the running value and the
+    /// biased one for normalizing.
+    #[test]
+    fn batchnorm_running_statistics_follow_pytorch() {
+        let (_, mut net) = small();
+        let px: Vec<u8> = (0..3 * 36).map(|i| (i * 37 % 251) as u8).collect();
+        let x = net.batch(&px, 3).unwrap();
+        let conv = conv_unfold(&x, &net.param("c1.weight").unwrap(), 1, 1, 1).unwrap();
+        let layers = net.layers.clone();
+        let bn = layers.iter().find(|l| l.name == "bn").unwrap();
+        let out = net.batchnorm(bn, &conv, true).unwrap();
+        // By hand, per channel, from the conv output.
+        let v = conv.permute((1, 0, 2, 3)).unwrap().flatten_from(1).unwrap();
+        let rows = v.to_vec2::<f32>().unwrap();
+        let stats = &net.bn["bn"];
+        let rm = stats.mean.to_vec1::<f32>().unwrap();
+        let rv = stats.var.to_vec1::<f32>().unwrap();
+        let outs = out
+            .permute((1, 0, 2, 3))
+            .unwrap()
+            .flatten_from(1)
+            .unwrap()
+            .to_vec2::<f32>()
+            .unwrap();
+        for (c, row) in rows.iter().enumerate() {
+            let n = row.len() as f32;
+            let mean = row.iter().sum::<f32>() / n;
+            let var = row.iter().map(|a| (a - mean).powi(2)).sum::<f32>() / n;
+            assert!((rm[c] - 0.1 * mean).abs() < 1e-5, "channel {c} mean");
+            assert!(
+                (rv[c] - (0.9 + 0.1 * var * n / (n - 1.0))).abs() < 1e-4,
+                "channel {c} var"
+            );
+            // weight 1, bias 0 at start: the output is the standardized input.
+            let z = (row[5] - mean) / (var + 1e-5).sqrt();
+            assert!((outs[c][5] - z).abs() < 1e-4, "channel {c} output");
+        }
+    }
+
+    /// The written file is what the converter's weight loader accepts.
+    #[test]
+    fn saved_file_loads_in_the_converter() {
+        let (d, net) = small();
+        let dir = std::env::temp_dir().join(format!("midge-train-net-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("w.safetensors");
+        net.save(&path).unwrap();
+        let map = midge_convert::weights::TensorMap::load(&path).unwrap();
+        let unused = map.check(&d).unwrap();
+        assert!(unused.is_empty(), "{unused:?}");
+        std::fs::remove_dir_all(&dir).unwrap();
+    }
 }
