@@ -47,6 +47,10 @@ pub enum Command {
     Show(ShowArgs),
     /// Flash and RAM of a model on a target profile: fits or does not fit (exit 4).
     Budget(crate::budget::BudgetArgs),
+    /// The whole job on one description: quantize and write the model, report
+    /// the accuracy drop on its validation images, and the budget on its
+    /// default target profile (exit 3 over --max-drop, 4 when it does not fit).
+    Assess(AssessArgs),
     // Further subcommands are added here and dispatched in `run`.
 }
 
@@ -143,6 +147,33 @@ pub struct CompareArgs {
 }
 
 #[derive(clap::Args, Debug)]
+pub struct AssessArgs {
+    /// Model description (TOML) with weights, calibration and validation folders.
+    pub description: PathBuf,
+    /// Output model file [default: the description's path with extension .midge].
+    #[arg(short, long, value_name = "FILE")]
+    pub output: Option<PathBuf>,
+    #[command(flatten)]
+    pub flags: ConvertFlags,
+    /// Target profile instead of the description's `target` (a name under
+    /// models/targets or a profile file).
+    #[arg(long)]
+    pub target: Option<String>,
+    /// Also evaluate an all-fp16 conversion.
+    #[arg(long)]
+    pub also_fp16: bool,
+    /// Skip the emulated run (no stack high-water mark, no instruction count).
+    #[arg(long)]
+    pub no_emulate: bool,
+    /// Exit with status 3 when the top-1 drop exceeds this many percentage points.
+    #[arg(long, value_name = "PP", allow_negative_numbers = true)]
+    pub max_drop: Option<f64>,
+    /// Print one JSON object {"model", "report", "budget"} instead of tables.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(clap::Args, Debug)]
 pub struct ClassifyArgs {
     /// Model file (.midge).
     pub model: PathBuf,
@@ -172,6 +203,7 @@ pub fn run(cli: Cli) -> Result<i32> {
         Command::Classify(a) => cmd_classify(&a),
         Command::Show(a) => cmd_show(&a),
         Command::Budget(a) => crate::budget::cmd_budget(&a),
+        Command::Assess(a) => cmd_assess(&a),
     }
 }
 
@@ -251,15 +283,95 @@ fn over(achieved: usize, bound: usize) -> f64 {
     }
 }
 
-fn cmd_compare(a: &CompareArgs) -> Result<i32> {
-    if let Some(d) = a.max_drop {
-        if !d.is_finite() {
-            return Err(Error::new(
-                "--max-drop",
-                format!("must be a number of percentage points, found {d}"),
-            ));
-        }
+fn check_max_drop(max_drop: Option<f64>) -> Result<()> {
+    match max_drop {
+        Some(d) if !d.is_finite() => Err(Error::new(
+            "--max-drop",
+            format!("must be a number of percentage points, found {d}"),
+        )),
+        _ => Ok(()),
     }
+}
+
+/// Exit status for a report under an optional `--max-drop` gate.
+fn drop_status(drop_pp: f64, max_drop: Option<f64>) -> i32 {
+    match max_drop {
+        Some(limit) if drop_pp > limit => {
+            eprintln!("midge: accuracy drop {drop_pp:.2} pp exceeds --max-drop {limit}");
+            EXIT_DROP_EXCEEDED
+        }
+        _ => 0,
+    }
+}
+
+fn cmd_assess(a: &AssessArgs) -> Result<i32> {
+    check_max_drop(a.max_drop)?;
+    let opts = a.flags.options();
+    let conv = quantize::quantize_description(&a.description, &opts)?;
+    let place = a.description.display().to_string();
+    let target = match (&a.target, &conv.desc.target) {
+        (Some(t), _) => crate::target::Target::resolve(t)?,
+        (None, Some(path)) => crate::target::Target::load(path)?,
+        (None, None) => {
+            return Err(Error::new(
+                &place,
+                "no target profile: set `target` in the description or pass --target",
+            ))
+        }
+    };
+    let validation = conv.desc.validation.clone().ok_or_else(|| {
+        Error::new(
+            &place,
+            "no validation images: set `validation` in the description",
+        )
+    })?;
+    let report = compare::evaluate(&conv, &validation, a.also_fp16, opts.progress)?;
+    let budget_opts = crate::budget::BudgetOptions {
+        emulate: !a.no_emulate,
+        ..crate::budget::BudgetOptions::default()
+    };
+    let q = &conv.quantized;
+    let ev = crate::budget::evaluate(&q.bytes, &target, &budget_opts)
+        .map_err(|e| Error::new(&place, e.to_string()))?;
+    let out = a
+        .output
+        .clone()
+        .unwrap_or_else(|| default_output(&a.description));
+    output::write_atomic(&out, &q.bytes)?;
+    if a.json {
+        let value = serde_json::json!({
+            "model": out.display().to_string(),
+            "report": report,
+            "budget": ev.budget,
+        });
+        let text = serde_json::to_string_pretty(&value)
+            .map_err(|e| Error::new("report", format!("cannot write JSON: {e}")))?;
+        println!("{text}");
+    } else {
+        println!(
+            "wrote {} ({} bytes; workspace {} bytes, lower bound {} bytes)\n",
+            out.display(),
+            q.bytes.len(),
+            q.plan.workspace_len,
+            q.plan.lower_bound
+        );
+        print!("{}", report.to_text());
+        println!();
+        print!("{}", ev.budget.render_text());
+    }
+    let status = drop_status(report.drop_pp, a.max_drop);
+    if status != 0 {
+        return Ok(status);
+    }
+    Ok(if ev.budget.fits {
+        0
+    } else {
+        crate::budget::EXIT_DOES_NOT_FIT
+    })
+}
+
+fn cmd_compare(a: &CompareArgs) -> Result<i32> {
+    check_max_drop(a.max_drop)?;
     let opts = CompareOptions {
         quantize: a.flags.options(),
         also_fp16: a.also_fp16,
@@ -273,16 +385,7 @@ fn cmd_compare(a: &CompareArgs) -> Result<i32> {
     } else {
         print!("{}", report.to_text());
     }
-    if let Some(limit) = a.max_drop {
-        if report.drop_pp > limit {
-            eprintln!(
-                "midge: accuracy drop {:.2} pp exceeds --max-drop {limit}",
-                report.drop_pp
-            );
-            return Ok(EXIT_DROP_EXCEEDED);
-        }
-    }
-    Ok(0)
+    Ok(drop_status(report.drop_pp, a.max_drop))
 }
 
 /// Read a model file into aligned bytes and check that it parses.

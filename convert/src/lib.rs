@@ -2,23 +2,23 @@
 //! runs the float reference, calibrates, quantizes, plans memory, writes the
 //! flat layout through midge-runtime, and measures the accuracy drop.
 
-pub mod error;
-pub mod description;
-pub mod weights;
-pub mod graph;
-pub mod float_ref;
-pub mod images;
-pub mod plan;
-pub mod output;
-pub mod calibrate;
-pub mod quantize;
-pub mod compare;
-pub mod firmware_module;
-pub mod cli;
-pub mod target;
-pub mod firmware;
-pub mod footprint;
-pub mod synth;
 pub mod budget;
+pub mod calibrate;
+pub mod cli;
+pub mod compare;
+pub mod description;
+pub mod error;
+pub mod firmware;
+pub mod firmware_module;
+pub mod float_ref;
+pub mod footprint;
+pub mod graph;
+pub mod images;
+pub mod output;
+pub mod plan;
+pub mod quantize;
+pub mod synth;
+pub mod target;
+pub mod weights;
 
 pub use error::{Error, Result};
