@@ -47,9 +47,11 @@ pub enum Command {
     Show(ShowArgs),
     /// Flash and RAM of a model on a target profile: fits or does not fit (exit 4).
     Budget(crate::budget::BudgetArgs),
-    /// The whole job on one description: quantize and write the model, report
-    /// the accuracy drop on its validation images, and the budget on its
-    /// default target profile (exit 3 over --max-drop, 4 when it does not fit).
+    /// The whole job: quantize, accuracy-drop report and budget in one go.
+    ///
+    /// Quantizes and writes the model, reports the accuracy drop on the
+    /// description's validation images and the budget on its default target
+    /// profile. Exit 3 over --max-drop, 4 when it does not fit.
     Assess(AssessArgs),
     // Further subcommands are added here and dispatched in `run`.
 }
