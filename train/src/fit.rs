@@ -184,18 +184,30 @@ pub fn validation_set(desc: &Description) -> Result<GreySet> {
 /// Accuracy of the converter's folded float reference, reading the
 /// description's weights file, on the same labelled images.
 pub fn reference_accuracy(desc_path: &Path, set: &GreySet) -> Result<f64> {
-    let (_, g, _) = graph::load_graph(desc_path)?;
-    let mut right = 0usize;
+    let m = reference_confusion(desc_path, set)?;
+    let right: usize = (0..m.len()).map(|k| m[k][k]).sum();
+    Ok(right as f64 / set.len().max(1) as f64)
+}
+
+/// Confusion counts of the converter's float reference: `m[true][predicted]`.
+pub fn reference_confusion(desc_path: &Path, set: &GreySet) -> Result<Vec<Vec<usize>>> {
+    let (desc, g, _) = graph::load_graph(desc_path)?;
+    let k = desc.labels.len();
+    let mut m = vec![vec![0usize; k]; k];
     for i in 0..set.len() {
         let logits = float_ref::logits(&g, set.image(i));
         let best = logits
             .iter()
             .enumerate()
             .max_by(|a, b| a.1.total_cmp(b.1))
-            .map_or(usize::MAX, |(k, _)| k);
-        right += usize::from(best == set.labels[i]);
+            .map_or(0, |(k, _)| k);
+        if let Some(row) = m.get_mut(set.labels[i]) {
+            if let Some(cell) = row.get_mut(best) {
+                *cell += 1;
+            }
+        }
     }
-    Ok(right as f64 / set.len().max(1) as f64)
+    Ok(m)
 }
 
 /// Largest absolute difference between candle's eval-mode logits and the

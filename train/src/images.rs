@@ -42,6 +42,7 @@ impl GreySet {
         &self.pixels[i * n..(i + 1) * n]
     }
 
+    /// Appends one image. Panics when it is not `h · w` bytes (a caller bug).
     pub fn push(&mut self, image: &[u8], label: usize) {
         assert_eq!(image.len(), self.h * self.w, "image size");
         self.pixels.extend_from_slice(image);

@@ -165,13 +165,18 @@ fn main() -> ExitCode {
         Command::Check { model } => Description::load(&model)
             .and_then(|d| fit::validation_set(&d))
             .and_then(|val| {
-                let r = fit::reference_accuracy(&model, &val)?;
+                let m = fit::reference_confusion(&model, &val)?;
+                let right: usize = (0..m.len()).map(|k| m[k][k]).sum();
                 println!(
-                    "{}: converter float reference top-1 {:.2} % on {} images",
+                    "{}: converter float reference top-1 {:.2} % ({right} / {}); rows true, columns predicted:",
                     model.display(),
-                    100.0 * r,
+                    100.0 * right as f64 / val.len().max(1) as f64,
                     val.len()
                 );
+                for row in &m {
+                    let cells: Vec<String> = row.iter().map(|c| format!("{c:>4}")).collect();
+                    println!("{}", cells.join(""));
+                }
                 Ok(())
             }),
         Command::Fit {

@@ -46,6 +46,12 @@ pub trait Arith {
     }
     /// Output activation of channel `o` from its finished accumulator.
     fn finish(&self, acc: Self::Acc, o: usize) -> Self::X;
+    /// Whether the fast paths use their multi-accumulator loops (several
+    /// output channels per pass, three taps per pass). Cheap arithmetic
+    /// (int8) gains from them; where each product costs a call anyway
+    /// (fp16 without hardware half floats) the plain loops are as fast and
+    /// much smaller. Either way the sums run in the same order.
+    const GROUPED: bool = false;
 }
 
 /// Element arithmetic of pooling: fold the in-bounds taps (padded taps are
@@ -100,6 +106,51 @@ pub fn interior(
     };
     let hi = (lo..out).find(|&o| !inside(o)).unwrap_or(out);
     (lo, hi)
+}
+
+/// The taps `k` in `lo..hi` of output position `o` along one axis are the
+/// in-bounds ones (taps are monotone in `k`, so they form one range; padded
+/// taps lie before `lo` and from `hi` on). Agrees with `tap`; computed
+/// without division when the whole window is inside or `dil` is 1.
+#[inline]
+pub fn axis_range(
+    o: usize,
+    k: usize,
+    stride: u16,
+    dil: u16,
+    pad_lo: u16,
+    len: usize,
+) -> (usize, usize) {
+    let base = o as i64 * stride as i64 - pad_lo as i64;
+    let (len, d) = (len as i64, dil as i64);
+    let last = base + k.saturating_sub(1) as i64 * d;
+    if base >= 0 && last < len {
+        return (0, k);
+    }
+    if d == 0 {
+        // Every tap reads the same position (only unchecked layers).
+        return if base >= 0 && base < len {
+            (0, k)
+        } else {
+            (0, 0)
+        };
+    }
+    // First k with base + k·d ≥ 0, and first k with base + k·d ≥ len.
+    let ceil_div = |n: i64| if n <= 0 { 0 } else { (n + d - 1) / d };
+    let lo = (ceil_div(-base) as u64).min(k as u64) as usize;
+    let hi = (ceil_div(len - base) as u64).min(k as u64) as usize;
+    (lo, hi.max(lo))
+}
+
+/// `(oy·stride_h + ky·dil_h − pad_top) · iw + …` style input position of a
+/// tap already known to be in bounds. Wrapping arithmetic: for an in-bounds
+/// tap the true value fits, so the result is exact; for anything else the
+/// caller's checked slicing catches it.
+#[inline]
+fn pos(o: usize, k: usize, stride: u16, dil: u16, pad_lo: u16) -> usize {
+    o.wrapping_mul(stride as usize)
+        .wrapping_add(k.wrapping_mul(dil as usize))
+        .wrapping_sub(pad_lo as usize)
 }
 
 /// The full-input window of global average pooling (`h`×`w`, unit stride
@@ -247,12 +298,69 @@ pub fn pointwise<A: Arith>(
         ));
     }
     for (x_px, y_px) in x.chunks_exact(in_c).zip(y.chunks_exact_mut(out_c)) {
-        for (o, (y, w_row)) in y_px.iter_mut().zip(w.chunks_exact(in_c)).enumerate() {
-            *y = a.finish(A::dot(a.start(o), x_px, w_row), o);
-        }
+        matvec(a, x_px, w, y_px);
     }
     Ok(())
 }
+
+/// Output channels `matvec` computes in one pass (each input value is
+/// loaded once for all of them; four accumulators stay in registers).
+const GROUP: usize = 4;
+
+/// `y[o] = finish(start(o) + Σ_i x[i]·w[o][i])` for every `o`, weights
+/// `[y.len()][x.len()]` (the caller checks `w.len() = y.len()·x.len()`).
+/// Output channels go `GROUP` at a time; each channel still sums its
+/// products in index order, so the result is the reference's bit for bit.
+// Not inlined: the loop gets a function (and registers) of its own, and
+// one copy serves pointwise, conv2d and dense.
+#[inline(never)]
+fn matvec<A: Arith>(a: &A, x: &[A::X], w: &[A::W], y: &mut [A::X]) {
+    let k = x.len();
+    if k == 0 {
+        for (o, y) in y.iter_mut().enumerate() {
+            *y = a.finish(a.start(o), o);
+        }
+        return;
+    }
+    let mut o = 0;
+    let (y, w) = if A::GROUPED {
+        let mut ys = y.chunks_exact_mut(GROUP);
+        let mut ws = w.chunks_exact(GROUP * k);
+        for (y4, w4) in (&mut ys).zip(&mut ws) {
+            let (w0, r) = w4.split_at(k);
+            let (w1, r) = r.split_at(k);
+            let (w2, w3) = r.split_at(k);
+            let mut acc = [a.start(o), a.start(o + 1), a.start(o + 2), a.start(o + 3)];
+            for ((((&xv, &v0), &v1), &v2), &v3) in x.iter().zip(w0).zip(w1).zip(w2).zip(w3) {
+                acc[0] = A::mac(acc[0], xv, v0);
+                acc[1] = A::mac(acc[1], xv, v1);
+                acc[2] = A::mac(acc[2], xv, v2);
+                acc[3] = A::mac(acc[3], xv, v3);
+            }
+            for (j, (y, &acc)) in y4.iter_mut().zip(&acc).enumerate() {
+                *y = a.finish(acc, o + j);
+            }
+            o += GROUP;
+        }
+        (ys.into_remainder(), ws.remainder())
+    } else {
+        (y, w)
+    };
+    for (y, w_row) in y.iter_mut().zip(w.chunks_exact(k)) {
+        *y = a.finish(A::dot(a.start(o), x, w_row), o);
+        o += 1;
+    }
+}
+
+/// `n` elements of `s` from `at`, or `None` (no overflow, no panic).
+#[inline]
+fn part<T>(s: &[T], at: usize, n: usize) -> Option<&[T]> {
+    s.get(at..)?.get(..n)
+}
+
+/// Largest conv2d window (kh·kw·in_c values) gathered into a stack patch;
+/// bigger windows take the row path.
+const PATCH: usize = 256;
 
 /// Fast conv2d: the pointwise case as a matrix product; otherwise interior
 /// pixels without per-tap bounds checks (with unit horizontal dilation, one
@@ -283,6 +391,54 @@ pub fn conv2d_fast<A: Arith>(
     }
     let (ih, iw) = (xs.h as usize, xs.w as usize);
     let (oh, ow) = (ys.h as usize, ys.w as usize);
+    let k_len = kh * row_len;
+    if k_len <= PATCH && ow > 0 {
+        // Gather each pixel's window (padded taps = `pad()`) in the weights'
+        // [kh][kw][in_c] order, then one matrix-vector product.
+        let pad = a.pad();
+        let mut buf = [pad; PATCH];
+        let patch = buf.get_mut(..k_len).ok_or(fault("conv2d patch"))?;
+        for (oy, y_row) in y.chunks_exact_mut(ow * oc).enumerate() {
+            let (ky0, ky1) = axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih);
+            for (ox, y_px) in y_row.chunks_exact_mut(oc).enumerate() {
+                let (kx0, kx1) = axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw);
+                if ky0 != 0 || ky1 != kh || kx0 != 0 || kx1 != kw {
+                    patch.fill(pad);
+                }
+                for (ky, dst) in patch.chunks_exact_mut(row_len).enumerate() {
+                    if ky < ky0 || ky >= ky1 {
+                        continue;
+                    }
+                    let row = pos(oy, ky, win.stride_h, win.dil_h, win.pad_top) * iw;
+                    if kx0 == kx1 {
+                        continue;
+                    }
+                    if win.dil_w == 1 {
+                        let n = (kx1 - kx0) * ic;
+                        let ix = pos(ox, kx0, win.stride_w, 1, win.pad_left);
+                        let src = part(x, (row + ix) * ic, n);
+                        let dst = dst.get_mut(kx0 * ic..).and_then(|d| d.get_mut(..n));
+                        match (src, dst) {
+                            (Some(src), Some(dst)) => dst.copy_from_slice(src),
+                            _ => return Err(fault("conv2d input too short")),
+                        }
+                    } else {
+                        for (kx, dst) in dst.chunks_exact_mut(ic).enumerate() {
+                            if kx < kx0 || kx >= kx1 {
+                                continue;
+                            }
+                            let ix = pos(ox, kx, win.stride_w, win.dil_w, win.pad_left);
+                            let src = part(x, (row + ix) * ic, ic)
+                                .ok_or(fault("conv2d input too short"))?;
+                            dst.copy_from_slice(src);
+                        }
+                    }
+                }
+                matvec(a, patch, w, y_px);
+            }
+        }
+        return Ok(());
+    }
     let (y0, y1) = interior(oh, win.kh, win.stride_h, win.dil_h, win.pad_top, ih);
     let (x0, x1) = interior(ow, win.kw, win.stride_w, win.dil_w, win.pad_left, iw);
     for (p, y_px) in y.chunks_exact_mut(oc).enumerate() {
@@ -397,9 +553,15 @@ pub fn depthwise_ref<A: Arith>(
     Ok(())
 }
 
-/// Fast depthwise: interior pixels read their taps without bounds checks
-/// (one row slice of the input per tap, the channels in step with the
-/// weights); border pixels go through the reference pixel.
+/// Channels per pass of the fast depthwise and pooling loops: their
+/// accumulators live in a stack array of this many entries.
+const CHUNK: usize = 32;
+
+/// Fast depthwise: per output pixel the in-bounds tap ranges are found once
+/// (`axis_range`); then, for up to `CHUNK` channels at a time, each tap is
+/// one pass over contiguous input, weights and accumulators. Every channel
+/// sums its taps in the reference order (padded taps read `pad()`), so the
+/// result is the reference's bit for bit.
 pub fn depthwise_fast<A: Arith>(
     a: &A,
     x: &[A::X],
@@ -411,55 +573,107 @@ pub fn depthwise_fast<A: Arith>(
 ) -> Result<(), Error> {
     depthwise_lens::<A>(x, xs, w, win, y, ys)?;
     let (ih, iw, c) = (xs.h as usize, xs.w as usize, xs.c as usize);
-    let (oh, ow) = (ys.h as usize, ys.w as usize);
-    if c == 0 {
+    let (kh, kw, ow) = (win.kh as usize, win.kw as usize, ys.w as usize);
+    if c == 0 || ow == 0 {
         return Ok(());
     }
-    let (y0, y1) = interior(oh, win.kh, win.stride_h, win.dil_h, win.pad_top, ih);
-    let (x0, x1) = interior(ow, win.kw, win.stride_w, win.dil_w, win.pad_left, iw);
-    // Channels are processed in blocks with a small accumulator array so each
-    // tap is one contiguous pass over input and weights.
-    const BLOCK: usize = 16;
-    for (p, y_px) in y.chunks_exact_mut(c).enumerate() {
-        let (oy, ox) = (p / ow, p % ow);
-        if !(y0..y1).contains(&oy) || !(x0..x1).contains(&ox) {
-            depthwise_pixel_ref(a, x, xs, w, win, oy, ox, y_px)?;
-            continue;
-        }
-        let iy0 = oy * win.stride_h as usize - win.pad_top as usize;
-        let ix0 = ox * win.stride_w as usize - win.pad_left as usize;
-        let mut c0 = 0;
-        while c0 < c {
-            let n = BLOCK.min(c - c0);
-            let mut acc = [a.start(c0); BLOCK];
-            for (j, acc) in acc.iter_mut().enumerate().take(n) {
-                *acc = a.start(c0 + j);
+    for (oy, y_row) in y.chunks_exact_mut(ow * c).enumerate() {
+        let ry = axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih);
+        for (ox, y_px) in y_row.chunks_exact_mut(c).enumerate() {
+            let rx = axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw);
+            let at = Px {
+                oy,
+                ox,
+                ry,
+                rx,
+                iw,
+                c,
+            };
+            for (k, y_chunk) in y_px.chunks_mut(CHUNK).enumerate() {
+                depthwise_chunk(a, x, w, win, &at, k * CHUNK, y_chunk)?;
             }
-            for (t, w_tap) in w.chunks_exact(c).enumerate() {
-                let (ky, kx) = (t / win.kw as usize, t % win.kw as usize);
-                let iy = iy0 + ky * win.dil_h as usize;
-                let ix = ix0 + kx * win.dil_w as usize;
-                let xo = (iy * iw + ix) * c + c0;
-                let x_tap = x
-                    .get(xo..xo + n)
-                    .ok_or(fault("depthwise input too short"))?;
-                let w_blk = w_tap
-                    .get(c0..c0 + n)
-                    .ok_or(fault("depthwise weights too short"))?;
-                for ((acc, &xv), &wv) in acc.iter_mut().zip(x_tap).zip(w_blk) {
-                    *acc = A::mac(*acc, xv, wv);
-                }
-            }
-            let y_blk = y_px
-                .get_mut(c0..c0 + n)
-                .ok_or(fault("depthwise output too short"))?;
-            for (j, (y, &acc)) in y_blk.iter_mut().zip(&acc).enumerate() {
-                *y = a.finish(acc, c0 + j);
-            }
-            c0 += n;
         }
     }
     Ok(())
+}
+
+/// Depthwise of channels `c0..c0+y.len()` (at most `CHUNK`) of one output
+/// pixel into `y`. The taps of a kernel row go three at a time through
+/// `mac3` (one load and store of each accumulator per three taps); padded
+/// taps read a slice of `pad()` values.
+#[inline(never)]
+fn depthwise_chunk<A: Arith>(
+    a: &A,
+    x: &[A::X],
+    w: &[A::W],
+    win: &Window,
+    at: &Px,
+    c0: usize,
+    y: &mut [A::X],
+) -> Result<(), Error> {
+    let n = y.len();
+    let mut buf = [a.start(0); CHUNK];
+    let acc = buf.get_mut(..n).ok_or(fault("depthwise chunk"))?;
+    for (j, acc) in acc.iter_mut().enumerate() {
+        *acc = a.start(c0 + j);
+    }
+    let pads = [a.pad(); CHUNK];
+    let pads = pads.get(..n).ok_or(fault("depthwise chunk"))?;
+    let kw = win.kw as usize;
+    // Input slice of tap (ky, kx): the input or, for a padded tap, `pads`.
+    let x_tap = |ky: usize, kx: usize| -> Result<&[A::X], Error> {
+        if (at.ry.0..at.ry.1).contains(&ky) && (at.rx.0..at.rx.1).contains(&kx) {
+            let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
+            let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
+            part(x, (iy * at.iw + ix) * at.c + c0, n).ok_or(fault("depthwise input too short"))
+        } else {
+            Ok(pads)
+        }
+    };
+    let w_tap = |t: usize| -> Result<&[A::W], Error> {
+        part(w, t * at.c + c0, n).ok_or(fault("depthwise weights too short"))
+    };
+    for ky in 0..win.kh as usize {
+        let mut kx = 0;
+        while A::GROUPED && kx + 3 <= kw {
+            let t = ky * kw + kx;
+            let xs = [x_tap(ky, kx)?, x_tap(ky, kx + 1)?, x_tap(ky, kx + 2)?];
+            let ws = [w_tap(t)?, w_tap(t + 1)?, w_tap(t + 2)?];
+            mac3::<A>(acc, xs, ws);
+            kx += 3;
+        }
+        while kx < kw {
+            let (xv, wv) = (x_tap(ky, kx)?, w_tap(ky * kw + kx)?);
+            for ((acc, &xv), &wv) in acc.iter_mut().zip(xv).zip(wv) {
+                *acc = A::mac(*acc, xv, wv);
+            }
+            kx += 1;
+        }
+    }
+    for (j, (y, &acc)) in y.iter_mut().zip(acc.iter()).enumerate() {
+        *y = a.finish(acc, c0 + j);
+    }
+    Ok(())
+}
+
+/// `acc[j] += x0[j]·w0[j] + x1[j]·w1[j] + x2[j]·w2[j]`, the three products
+/// added in that order (the reference's tap order).
+#[inline]
+fn mac3<A: Arith>(acc: &mut [A::Acc], x: [&[A::X]; 3], w: [&[A::W]; 3]) {
+    let [x0, x1, x2] = x;
+    let [w0, w1, w2] = w;
+    for (((((acc, &x0), &x1), &x2), &w0), (&w1, &w2)) in acc
+        .iter_mut()
+        .zip(x0)
+        .zip(x1)
+        .zip(x2)
+        .zip(w0)
+        .zip(w1.iter().zip(w2))
+    {
+        let v = A::mac(*acc, x0, w0);
+        let v = A::mac(v, x1, w1);
+        *acc = A::mac(v, x2, w2);
+    }
 }
 
 /// Dense: weights `[out][in]` with `in` = the input's H·W·C in HWC order.
@@ -486,10 +700,97 @@ pub fn dense_ref<A: Arith>(a: &A, x: &[A::X], w: &[A::W], y: &mut [A::X]) -> Res
     Ok(())
 }
 
-/// Max or average pooling over the window (the only form; pooling has no
-/// separate fast path). Padded taps are skipped; average divides by the
-/// number of in-bounds taps.
+/// Max or average pooling over the window: the in-bounds tap ranges are
+/// found once per output pixel (`axis_range`); then, for up to `CHUNK`
+/// channels at a time, each tap is one pass over contiguous input and
+/// accumulators, in the reference order. Padded taps are skipped; average
+/// divides by the number of in-bounds taps. Agrees with `pool_ref` bit for
+/// bit.
 pub fn pool<P: Pool>(
+    p: &P,
+    x: &[P::X],
+    xs: Shape,
+    win: &Window,
+    y: &mut [P::X],
+    ys: Shape,
+) -> Result<(), Error> {
+    check_lens(x.len(), xs, y.len(), ys)?;
+    if xs.c != ys.c {
+        return Err(fault("pooling changes the channel count"));
+    }
+    let (ih, iw, c) = (xs.h as usize, xs.w as usize, xs.c as usize);
+    let (kh, kw, ow) = (win.kh as usize, win.kw as usize, ys.w as usize);
+    if c == 0 || ow == 0 {
+        return Ok(());
+    }
+    for (oy, y_row) in y.chunks_exact_mut(ow * c).enumerate() {
+        let ry = axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih);
+        for (ox, y_px) in y_row.chunks_exact_mut(c).enumerate() {
+            let rx = axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw);
+            let at = Px {
+                oy,
+                ox,
+                ry,
+                rx,
+                iw,
+                c,
+            };
+            for (k, y_chunk) in y_px.chunks_mut(CHUNK).enumerate() {
+                pool_chunk(p, x, win, &at, k * CHUNK, y_chunk)?;
+            }
+        }
+    }
+    Ok(())
+}
+
+/// One output pixel of a windowed op: its position, in-bounds tap ranges
+/// (`axis_range` of rows and columns), the input width and channel count.
+struct Px {
+    oy: usize,
+    ox: usize,
+    ry: (usize, usize),
+    rx: (usize, usize),
+    iw: usize,
+    c: usize,
+}
+
+/// Pooling of channels `c0..c0+y.len()` (at most `CHUNK`) of one output
+/// pixel into `y`.
+#[inline(never)]
+fn pool_chunk<P: Pool>(
+    p: &P,
+    x: &[P::X],
+    win: &Window,
+    at: &Px,
+    c0: usize,
+    y: &mut [P::X],
+) -> Result<(), Error> {
+    let n = y.len();
+    let mut buf = [p.init(); CHUNK];
+    let acc = buf.get_mut(..n).ok_or(fault("pooling chunk"))?;
+    for ky in at.ry.0..at.ry.1 {
+        let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
+        for kx in at.rx.0..at.rx.1 {
+            let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
+            let x_t = part(x, (iy * at.iw + ix) * at.c + c0, n)
+                .ok_or(fault("pooling input too short"))?;
+            for (acc, &xv) in acc.iter_mut().zip(x_t) {
+                *acc = p.step(*acc, xv);
+            }
+        }
+    }
+    // At most 65535² taps, so the count fits.
+    let count = ((at.ry.1 - at.ry.0) * (at.rx.1 - at.rx.0)) as u32;
+    for (y, &acc) in y.iter_mut().zip(acc.iter()) {
+        *y = p.finish(acc, count);
+    }
+    Ok(())
+}
+
+/// Reference max or average pooling (the oracle for `pool`): every tap of
+/// every channel through `tap`. Padded taps are skipped; average divides by
+/// the number of in-bounds taps.
+pub fn pool_ref<P: Pool>(
     p: &P,
     x: &[P::X],
     xs: Shape,

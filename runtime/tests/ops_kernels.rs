@@ -1,0 +1,290 @@
+//! The fast kernels against their reference loop nests, called directly
+//! (below `run_layer`) on random shapes: conv2d (patch and row paths),
+//! depthwise (table path and its fallbacks), pooling, dense, `axis_range`
+//! and `requantize_fast`. Every comparison is byte for byte.
+
+use half::f16;
+use midge_runtime::kernels::fp16::{AvgF16, F16Arith, MaxF16};
+use midge_runtime::kernels::int8::{requantize_fast, AvgI8, Int8Arith, MaxI8};
+use midge_runtime::kernels::{self, tap, Arith, Pool};
+use midge_runtime::repr::{Shape, Window};
+use midge_runtime::requant::requantize;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
+#[allow(clippy::too_many_arguments)]
+fn window(kh: u16, kw: u16, sh: u16, sw: u16, dh: u16, dw: u16, pad: [u16; 4]) -> Window {
+    Window {
+        kh,
+        kw,
+        stride_h: sh,
+        stride_w: sw,
+        dil_h: dh,
+        dil_w: dw,
+        pad_top: pad[0],
+        pad_left: pad[1],
+        pad_bottom: pad[2],
+        pad_right: pad[3],
+    }
+}
+
+/// A random window and input that give a non-empty output. `big` allows
+/// kernels up to 9×9 (more taps than the depthwise table holds).
+fn random_shape(rng: &mut ChaCha8Rng, c_max: u16, big: bool) -> (Window, Shape, u16, u16) {
+    loop {
+        let kmax = if big { 9 } else { 4 };
+        let win = window(
+            rng.gen_range(1..=kmax),
+            rng.gen_range(1..=kmax),
+            rng.gen_range(1..=3),
+            rng.gen_range(1..=3),
+            rng.gen_range(1..=2),
+            rng.gen_range(1..=2),
+            [0; 4].map(|_| rng.gen_range(0..=3)),
+        );
+        let (ih, iw) = (rng.gen_range(1..=12), rng.gen_range(1..=12));
+        let c = rng.gen_range(1..=c_max);
+        if let Some((oh, ow)) = win.output_hw(ih, iw) {
+            return (win, Shape::new(ih, iw, c), oh, ow);
+        }
+    }
+}
+
+fn int8_arith<'a>(
+    rng: &mut ChaCha8Rng,
+    bias: &'a mut Vec<i32>,
+    rq: &'a mut Vec<i32>,
+    n: usize,
+) -> Int8Arith<'a> {
+    *bias = (0..n).map(|_| rng.gen_range(-20000..=20000)).collect();
+    // Shifts across both sides of the 33 boundary of `requantize_fast`.
+    *rq = (0..n)
+        .flat_map(|_| [rng.gen_range(1 << 30..=i32::MAX), rng.gen_range(28..=44)])
+        .collect();
+    let lo = rng.gen_range(-128..=0);
+    Int8Arith {
+        zp_in: rng.gen(),
+        zp_out: rng.gen_range(-128..=127),
+        bias,
+        requant: rq,
+        clamp: [lo, rng.gen_range(lo..=127)],
+    }
+}
+
+fn f16s(rng: &mut ChaCha8Rng, n: usize, r: f32) -> Vec<f16> {
+    (0..n)
+        .map(|_| f16::from_f32(rng.gen_range(-r..r)))
+        .collect()
+}
+
+/// conv2d_fast against conv2d_ref, int8 and fp16; in_c up to 40 so that
+/// some windows exceed the 256-value patch and take the row path.
+#[test]
+fn conv2d_fast_equals_reference() {
+    let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0401);
+    for i in 0..400 {
+        let (win, xs, oh, ow) = random_shape(&mut rng, if i % 4 == 0 { 40 } else { 6 }, false);
+        let oc = rng.gen_range(1..=9);
+        let ys = Shape::new(oh, ow, oc);
+        let n_w = oc as usize * win.kh as usize * win.kw as usize * xs.c as usize;
+        let x: Vec<i8> = (0..xs.elems()).map(|_| rng.gen()).collect();
+        let w: Vec<i8> = (0..n_w).map(|_| rng.gen()).collect();
+        let (mut b, mut q) = (Vec::new(), Vec::new());
+        let a = int8_arith(&mut rng, &mut b, &mut q, oc as usize);
+        let (mut fast, mut slow) = (vec![0i8; ys.elems()], vec![1i8; ys.elems()]);
+        kernels::conv2d_fast(&a, &x, xs, &w, &win, &mut fast, ys).unwrap();
+        kernels::conv2d_ref(&a, &x, xs, &w, &win, &mut slow, ys).unwrap();
+        assert_eq!(fast, slow, "int8 {win:?} {xs:?} {ys:?}");
+
+        let (xf, wf) = (f16s(&mut rng, x.len(), 4.0), f16s(&mut rng, w.len(), 1.0));
+        let bias: Vec<f32> = (0..oc).map(|_| rng.gen_range(-2.0..2.0)).collect();
+        let a = F16Arith {
+            bias: &bias,
+            clamp: [-65504.0, 65504.0],
+        };
+        let (mut fast, mut slow) = (vec![f16::ZERO; ys.elems()], vec![f16::ONE; ys.elems()]);
+        kernels::conv2d_fast(&a, &xf, xs, &wf, &win, &mut fast, ys).unwrap();
+        kernels::conv2d_ref(&a, &xf, xs, &wf, &win, &mut slow, ys).unwrap();
+        let bits = |v: &[f16]| v.iter().map(|v| v.to_bits()).collect::<Vec<_>>();
+        assert_eq!(bits(&fast), bits(&slow), "fp16 {win:?} {xs:?} {ys:?}");
+    }
+}
+
+/// depthwise_fast against depthwise_ref: channel counts around the block
+/// width (1..=3 take the reference, 5..=7 overlap their last block), and
+/// windows up to 9×9 (past the 64-entry tap table).
+#[test]
+fn depthwise_fast_equals_reference() {
+    let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0402);
+    for i in 0..400 {
+        let (win, xs, oh, ow) = random_shape(&mut rng, 13, i % 5 == 0);
+        let ys = Shape::new(oh, ow, xs.c);
+        let n_w = win.kh as usize * win.kw as usize * xs.c as usize;
+        let x: Vec<i8> = (0..xs.elems()).map(|_| rng.gen()).collect();
+        let w: Vec<i8> = (0..n_w).map(|_| rng.gen()).collect();
+        let (mut b, mut q) = (Vec::new(), Vec::new());
+        let a = int8_arith(&mut rng, &mut b, &mut q, xs.c as usize);
+        let (mut fast, mut slow) = (vec![0i8; ys.elems()], vec![1i8; ys.elems()]);
+        kernels::depthwise_fast(&a, &x, xs, &w, &win, &mut fast, ys).unwrap();
+        kernels::depthwise_ref(&a, &x, xs, &w, &win, &mut slow, ys).unwrap();
+        assert_eq!(fast, slow, "int8 {win:?} {xs:?}");
+
+        let (xf, wf) = (f16s(&mut rng, x.len(), 4.0), f16s(&mut rng, w.len(), 1.0));
+        let bias: Vec<f32> = (0..xs.c).map(|_| rng.gen_range(-2.0..2.0)).collect();
+        let a = F16Arith {
+            bias: &bias,
+            clamp: [0.0, 6.0],
+        };
+        let (mut fast, mut slow) = (vec![f16::ZERO; ys.elems()], vec![f16::ONE; ys.elems()]);
+        kernels::depthwise_fast(&a, &xf, xs, &wf, &win, &mut fast, ys).unwrap();
+        kernels::depthwise_ref(&a, &xf, xs, &wf, &win, &mut slow, ys).unwrap();
+        let bits = |v: &[f16]| v.iter().map(|v| v.to_bits()).collect::<Vec<_>>();
+        assert_eq!(bits(&fast), bits(&slow), "fp16 {win:?} {xs:?}");
+    }
+}
+
+fn pool_case<P: Pool>(p: &P, x: &[P::X], xs: Shape, win: &Window, ys: Shape, fill: P::X)
+where
+    P::X: PartialEq + core::fmt::Debug,
+{
+    let (mut fast, mut slow) = (vec![fill; ys.elems()], vec![fill; ys.elems()]);
+    kernels::pool(p, x, xs, win, &mut fast, ys).unwrap();
+    kernels::pool_ref(p, x, xs, win, &mut slow, ys).unwrap();
+    assert_eq!(fast, slow, "{win:?} {xs:?}");
+}
+
+/// pool against pool_ref for max and average, int8 and fp16, including
+/// windows whose padding leaves only part of the taps in bounds and the
+/// global window.
+#[test]
+fn pool_equals_reference() {
+    let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0403);
+    for i in 0..400 {
+        let (mut win, xs, oh, ow) = random_shape(&mut rng, 11, i % 5 == 0);
+        let mut ys = Shape::new(oh, ow, xs.c);
+        if i % 7 == 0 {
+            win = kernels::global_window(xs.h, xs.w);
+            ys = Shape::new(1, 1, xs.c);
+        }
+        let x: Vec<i8> = (0..xs.elems()).map(|_| rng.gen()).collect();
+        let lo = rng.gen_range(-128..=0);
+        let clamp = [lo, rng.gen_range(lo..=127)];
+        pool_case(&MaxI8 { clamp }, &x, xs, &win, ys, 0);
+        let avg = AvgI8 {
+            zp: rng.gen_range(-128..=127),
+            clamp,
+        };
+        pool_case(&avg, &x, xs, &win, ys, 0);
+        let xf = f16s(&mut rng, x.len(), 8.0);
+        let clamp = [-65504.0, 65504.0];
+        let bits = |v: &[f16]| v.iter().map(|v| v.to_bits()).collect::<Vec<_>>();
+        for max in [true, false] {
+            let (mut fast, mut slow) = (vec![f16::ZERO; ys.elems()], vec![f16::ONE; ys.elems()]);
+            if max {
+                kernels::pool(&MaxF16 { clamp }, &xf, xs, &win, &mut fast, ys).unwrap();
+                kernels::pool_ref(&MaxF16 { clamp }, &xf, xs, &win, &mut slow, ys).unwrap();
+            } else {
+                kernels::pool(&AvgF16 { clamp }, &xf, xs, &win, &mut fast, ys).unwrap();
+                kernels::pool_ref(&AvgF16 { clamp }, &xf, xs, &win, &mut slow, ys).unwrap();
+            }
+            assert_eq!(bits(&fast), bits(&slow), "fp16 max={max} {win:?} {xs:?}");
+        }
+    }
+}
+
+/// dense (the grouped matrix-vector product) against dense_ref, with
+/// output counts that leave every remainder of the group of four.
+#[test]
+fn dense_equals_reference() {
+    let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0404);
+    for _ in 0..200 {
+        let (n_in, n_out) = (rng.gen_range(1..=70), rng.gen_range(1..=13));
+        let x: Vec<i8> = (0..n_in).map(|_| rng.gen()).collect();
+        let w: Vec<i8> = (0..n_in * n_out).map(|_| rng.gen()).collect();
+        let (mut b, mut q) = (Vec::new(), Vec::new());
+        let a = int8_arith(&mut rng, &mut b, &mut q, n_out);
+        let (mut fast, mut slow) = (vec![0i8; n_out], vec![1i8; n_out]);
+        kernels::dense(&a, &x, &w, &mut fast).unwrap();
+        kernels::dense_ref(&a, &x, &w, &mut slow).unwrap();
+        assert_eq!(fast, slow);
+    }
+}
+
+/// `axis_range` against `tap` on every small case, dilation 0 included
+/// (unchecked layers must still get the same answer as the reference).
+#[test]
+fn axis_range_matches_tap() {
+    for len in 0..7usize {
+        for k in 0..6usize {
+            for stride in 0..4u16 {
+                for dil in 0..4u16 {
+                    for pad in 0..5u16 {
+                        for o in 0..9usize {
+                            let (lo, hi) = kernels::axis_range(o, k, stride, dil, pad, len);
+                            for t in 0..k {
+                                let inside = tap(o, t, stride, dil, pad, len).is_some();
+                                assert_eq!(
+                                    inside,
+                                    (lo..hi).contains(&t),
+                                    "o={o} k={k} s={stride} d={dil} p={pad} len={len} t={t}"
+                                );
+                            }
+                        }
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// The documented requantization `floor((acc·m + 2^(s−1)) / 2^s)` in i128
+/// (saturated to i32), s clamped to 1..=62.
+fn rq_i128(acc: i32, m: i32, s: i32) -> i32 {
+    let s = s.clamp(1, 62);
+    let v = (acc as i128 * m as i128 + (1i128 << (s - 1))).div_euclid(1i128 << s);
+    v.clamp(i32::MIN as i128, i32::MAX as i128) as i32
+}
+
+/// `requantize_fast` equals `requantize` and the i128 formula for every
+/// shift, at the extremes of acc and m and on random values.
+#[test]
+fn requantize_fast_is_exact() {
+    let edge = [i32::MIN, i32::MIN + 1, -65536, -1, 0, 1, 65535, i32::MAX];
+    let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0405);
+    for s in -2..=66 {
+        for &acc in &edge {
+            for &m in &edge {
+                assert_eq!(
+                    requantize_fast(acc, m, s),
+                    rq_i128(acc, m, s),
+                    "{acc} {m} {s}"
+                );
+            }
+        }
+        for _ in 0..2000 {
+            let (acc, m): (i32, i32) = (rng.gen(), rng.gen());
+            let acc = acc >> rng.gen_range(0..31);
+            let want = rq_i128(acc, m, s);
+            assert_eq!(requantize_fast(acc, m, s), want, "{acc} {m} {s}");
+            assert_eq!(requantize(acc, m, s), want, "{acc} {m} {s}");
+        }
+    }
+}
+
+/// `Arith` is used through the trait in the kernels; this keeps a direct
+/// check that int8 `finish` goes through the exact requantization.
+#[test]
+fn int8_finish_uses_exact_requantization() {
+    let (bias, rq) = ([0], [1 << 30, 40]);
+    let a = Int8Arith {
+        zp_in: 0,
+        zp_out: 3,
+        bias: &bias,
+        requant: &rq,
+        clamp: [-128, 127],
+    };
+    // Hand-worked: 1000·2^30 / 2^40 = 1000/1024 = 0.977 → 1; plus zp 3 → 4.
+    assert_eq!(a.finish(1000, 0), 4);
+    // −512·2^30/2^40 = −0.5 → 0 (ties toward +∞); plus 3 → 3.
+    assert_eq!(a.finish(-512, 0), 3);
+}
