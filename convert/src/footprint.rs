@@ -189,17 +189,11 @@ pub fn model_footprint(model: &Model) -> ModelFootprint {
     let sizes: Vec<usize> = (0..model.tensor_count())
         .map(|t| model.tensor(t).map_or(0, |r| r.byte_len()))
         .collect();
-    let steps: Vec<(Vec<usize>, usize)> = (0..model.layer_count())
+    let headers: Vec<_> = (0..model.layer_count())
         .filter_map(|i| model.layer(i))
-        .map(|l| {
-            let h = l.header;
-            let ins = h.inputs[..h.op.arity()]
-                .iter()
-                .map(|&t| t as usize)
-                .collect();
-            (ins, h.output as usize)
-        })
+        .map(|l| l.header)
         .collect();
+    let steps = plan::steps(&headers);
     let lifetimes = plan::lifetimes(&sizes, &steps, model.output_id(), &[0]);
     let live = |step: usize| -> usize {
         lifetimes

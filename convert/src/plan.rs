@@ -42,6 +42,23 @@ pub struct Plan {
 /// Lifetimes of the tensors of a layer sequence. `layers[k]` is (inputs,
 /// output) of step k; tensor ids index `sizes`. Tensors in `external` (the
 /// model input) get no lifetime. The `output` tensor lives to the last step.
+/// The (inputs, output) tensor ids of each layer, the step list `lifetimes`
+/// and `plan_layers` take, read from runtime layer headers.
+pub fn steps<'a>(
+    headers: impl IntoIterator<Item = &'a midge_runtime::LayerHeader>,
+) -> Vec<(Vec<usize>, usize)> {
+    headers
+        .into_iter()
+        .map(|h| {
+            let ins = h.inputs[..h.op.arity()]
+                .iter()
+                .map(|&t| t as usize)
+                .collect();
+            (ins, h.output as usize)
+        })
+        .collect()
+}
+
 pub fn lifetimes(
     sizes: &[usize],
     layers: &[(Vec<usize>, usize)],

@@ -600,18 +600,7 @@ pub fn quantize_graph(graph: &FloatGraph, ranges: &[Range]) -> Result<Quantized>
     let output = b.primary[graph.output_id()];
 
     let sizes: Vec<usize> = b.tensors.iter().map(|t| t.byte_len()).collect();
-    let steps: Vec<(Vec<usize>, usize)> = b
-        .layers
-        .iter()
-        .map(|l| {
-            let h = &l.header;
-            let ins = h.inputs[..h.op.arity()]
-                .iter()
-                .map(|&t| t as usize)
-                .collect();
-            (ins, h.output as usize)
-        })
-        .collect();
+    let steps = plan::steps(b.layers.iter().map(|l| &l.header));
     let p = plan::plan_layers(&sizes, &steps, output as usize, &[0]);
     debug_assert!(plan::conflicts(&p).is_empty());
     for (t, off) in b.tensors.iter_mut().zip(&p.offsets) {
