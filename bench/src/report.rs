@@ -287,7 +287,7 @@ impl BenchReport {
             let v: Vec<f64> = e.layers.iter().map(|l| l.instructions as f64).collect();
             let _ = write!(
                 body,
-                "<h2>Emulated instructions per layer — {}</h2><p class=note>{} on QEMU {} (icount); {} instructions, estimate {:.2} ms at the profile's clock and CPI (an estimate, not a measurement). Calibration {}. Outputs {} the host's bit for bit. Stack {} B.</p>",
+                "<h2>Emulated instructions per layer — {}</h2><p class=note>{} on {} (icount); {} instructions, estimate {:.2} ms at the profile's clock and CPI (an estimate, not a measurement). Calibration {}. Outputs {} the host's bit for bit. Stack {} B.</p>",
                 esc(&e.target),
                 esc(&e.machine),
                 esc(&e.qemu),

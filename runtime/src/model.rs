@@ -504,45 +504,57 @@ impl<'a> Model<'a> {
         self.record(layer).ok().map(|r| r.header.output)
     }
 
-    /// Whether any layer from `from` on reads tensor `t`.
-    fn read_from(&self, t: u16, from: usize) -> bool {
-        (from..self.layer_count()).any(|k| match self.record(k) {
+    /// Whether layer `k` reads tensor `t`.
+    fn reads(&self, k: usize, t: u16) -> bool {
+        match self.record(k) {
             Ok(r) => r
                 .header
                 .inputs
                 .get(..r.header.op.arity())
                 .is_some_and(|ins| ins.contains(&t)),
             Err(_) => false,
-        })
+        }
     }
 
     /// A tensor is live from the layer that writes it to the last layer that
     /// reads it (the model output: to the end). Each layer's output must not
     /// share a workspace byte with any tensor live during that layer, its
-    /// inputs included. Quadratic in the layer count (cubic at worst when
-    /// many tensors share bytes), with no allocation.
+    /// inputs included. The error names the earliest such layer (and, for
+    /// it, the earliest-written live tensor). Quadratic in the layer count
+    /// whatever the overlaps (per tensor: find its last reader, then check
+    /// the outputs of the layers up to it), with no allocation.
     fn check_lifetimes(&self) -> Result<(), Error> {
         let range = |t: &TensorRecord| {
             let s = t.offset as u64;
             s..s + tensor_len_u64(t)
         };
-        for i in 0..self.layer_count() {
-            let o = self.output_of(i).unwrap_or(0);
-            let ro = range(&self.tensor_checked(o as usize)?);
-            for j in 0..i {
-                let t = self.output_of(j).unwrap_or(0);
-                let rt = range(&self.tensor_checked(t as usize)?);
-                let overlap = ro.start < rt.end && rt.start < ro.end;
-                if overlap && (t == self.info.output || self.read_from(t, i)) {
-                    return Err(Error::Overlap {
+        let lc = self.layer_count();
+        let mut first: Option<Error> = None;
+        let mut first_layer = usize::MAX;
+        for j in 0..lc {
+            let t = self.output_of(j).unwrap_or(0);
+            let last = if t == self.info.output {
+                lc.saturating_sub(1)
+            } else {
+                (j + 1..lc).rev().find(|&k| self.reads(k, t)).unwrap_or(j)
+            };
+            let rt = range(&self.tensor_checked(t as usize)?);
+            // Only layers before the earliest clash found so far matter.
+            for i in j + 1..=last.min(first_layer.saturating_sub(1)) {
+                let o = self.output_of(i).unwrap_or(0);
+                let ro = range(&self.tensor_checked(o as usize)?);
+                if ro.start < rt.end && rt.start < ro.end {
+                    first_layer = i;
+                    first = Some(Error::Overlap {
                         layer: i,
                         output: o as usize,
                         live: t as usize,
                     });
+                    break;
                 }
             }
         }
-        Ok(())
+        first.map_or(Ok(()), Err)
     }
 
     // ----------------------------------------------------------------- API

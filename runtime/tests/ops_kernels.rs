@@ -78,13 +78,19 @@ fn f16s(rng: &mut ChaCha8Rng, n: usize, r: f32) -> Vec<f16> {
 }
 
 /// conv2d_fast against conv2d_ref, int8 and fp16; in_c up to 40 so that
-/// some windows exceed the 256-value patch and take the row path.
+/// some windows exceed the 256-value patch and are summed in bands, and
+/// out_c up to 70 so that some pixels take two accumulator passes.
 #[test]
 fn conv2d_fast_equals_reference() {
     let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0401);
     for i in 0..400 {
         let (win, xs, oh, ow) = random_shape(&mut rng, if i % 4 == 0 { 40 } else { 6 }, false);
-        let oc = rng.gen_range(1..=9);
+        // Now and then more output channels than one accumulator pass (64).
+        let oc = if i % 10 == 3 {
+            rng.gen_range(60..=70)
+        } else {
+            rng.gen_range(1..=9)
+        };
         let ys = Shape::new(oh, ow, oc);
         let n_w = oc as usize * win.kh as usize * win.kw as usize * xs.c as usize;
         let x: Vec<i8> = (0..xs.elems()).map(|_| rng.gen()).collect();
@@ -110,14 +116,14 @@ fn conv2d_fast_equals_reference() {
     }
 }
 
-/// depthwise_fast against depthwise_ref: channel counts around the block
-/// width (1..=3 take the reference, 5..=7 overlap their last block), and
-/// windows up to 9×9 (past the 64-entry tap table).
+/// depthwise_fast against depthwise_ref: channel counts 1..=40 (more than
+/// one 32-channel pass), windows up to 9×9 (rows longer than the three-tap
+/// step), int8 and fp16.
 #[test]
 fn depthwise_fast_equals_reference() {
     let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0402);
     for i in 0..400 {
-        let (win, xs, oh, ow) = random_shape(&mut rng, 13, i % 5 == 0);
+        let (win, xs, oh, ow) = random_shape(&mut rng, if i % 4 == 0 { 40 } else { 13 }, i % 5 == 0);
         let ys = Shape::new(oh, ow, xs.c);
         let n_w = win.kh as usize * win.kw as usize * xs.c as usize;
         let x: Vec<i8> = (0..xs.elems()).map(|_| rng.gen()).collect();
@@ -193,12 +199,13 @@ fn pool_equals_reference() {
 }
 
 /// dense (the grouped matrix-vector product) against dense_ref, with
-/// output counts that leave every remainder of the group of four.
+/// output counts that leave every remainder of the group of four and need
+/// two accumulator passes.
 #[test]
 fn dense_equals_reference() {
     let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0404);
     for _ in 0..200 {
-        let (n_in, n_out) = (rng.gen_range(1..=70), rng.gen_range(1..=13));
+        let (n_in, n_out) = (rng.gen_range(1..=70), rng.gen_range(1..=70));
         let x: Vec<i8> = (0..n_in).map(|_| rng.gen()).collect();
         let w: Vec<i8> = (0..n_in * n_out).map(|_| rng.gen()).collect();
         let (mut b, mut q) = (Vec::new(), Vec::new());
