@@ -123,7 +123,8 @@ fn conv2d_fast_equals_reference() {
 fn depthwise_fast_equals_reference() {
     let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0402);
     for i in 0..400 {
-        let (win, xs, oh, ow) = random_shape(&mut rng, if i % 4 == 0 { 40 } else { 13 }, i % 5 == 0);
+        let (win, xs, oh, ow) =
+            random_shape(&mut rng, if i % 4 == 0 { 40 } else { 13 }, i % 5 == 0);
         let ys = Shape::new(oh, ow, xs.c);
         let n_w = win.kh as usize * win.kw as usize * xs.c as usize;
         let x: Vec<i8> = (0..xs.elems()).map(|_| rng.gen()).collect();

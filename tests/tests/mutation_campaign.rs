@@ -1,5 +1,6 @@
-//! The hostile-input campaign: well over 100,000 mutants of five valid seed
-//! models (int8, fp16, mixed, residual add, pools), most with the CRC re-sealed
+//! The hostile-input campaign: well over 100,000 mutants of six valid seed
+//! models (int8, fp16, mixed, residual add, pools, and the bundled digits
+//! model as the converter writes it), most with the CRC re-sealed
 //! so the deeper checks are reached, plus every misaligned placement.
 //! Each mutant is rejected with an error or parses, runs and round-trips
 //! (`midge_tests::parse_and_run`).
@@ -50,9 +51,20 @@ impl Tally {
     }
 }
 
+/// The bundled digits model through the converter's library entry: a real
+/// file with planner-reused workspace, folded biases and fused clamps.
+fn converted_digits() -> Vec<u8> {
+    let desc = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../models/digits/model.toml");
+    midge_convert::quantize::quantize_description(&desc, &Default::default())
+        .unwrap_or_else(|e| panic!("{e}"))
+        .quantized
+        .bytes
+}
+
 #[test]
 fn mutants_are_rejected_or_parse_and_run() {
-    let seeds = seeds::all_bytes();
+    let mut seeds = seeds::all_bytes();
+    seeds.push(("digits (converted)", converted_digits()));
     let mut rng = ChaCha8Rng::seed_from_u64(0x6361_7073);
     let mut t = Tally::default();
 
