@@ -452,27 +452,24 @@ impl<'a> Model<'a> {
             let (_, _, _, _) = self.load_layer(i)?;
             let rec = self.record(i)?;
             let h = rec.header;
-            if h.output == 0 {
+            // Layer i writes tensor i + 1 and reads only tensors written
+            // before it (tensor 0 is the input): one linear check gives
+            // "written once, read after written".
+            if h.output as usize != i + 1 {
                 return Err(Error::LayerField {
                     index: i,
-                    what: "output tensor id (tensor 0 is the model input)",
-                    value: 0,
+                    what: "output tensor id (layer i writes tensor i + 1)",
+                    value: h.output as u32,
                 });
             }
             for k in 0..h.op.arity() {
-                let t = h.inputs.get(k).copied().unwrap_or(0);
-                if t != 0 && !(0..i).any(|j| self.output_of(j) == Some(t)) {
+                let t = h.inputs.get(k).copied().unwrap_or(0) as usize;
+                if t > i {
                     return Err(Error::Layer {
                         index: i,
                         problem: "reads a tensor no earlier layer writes",
                     });
                 }
-            }
-            if (0..i).any(|j| self.output_of(j) == Some(h.output)) {
-                return Err(Error::Tensor {
-                    index: h.output as usize,
-                    problem: "written by more than one layer",
-                });
             }
             for span in [rec.weights, rec.bias, rec.params] {
                 if span.len == 0 {

@@ -303,10 +303,17 @@ fn graph_rules_are_enforced() {
     let mut s = mixed_spec();
     s.layers[1].header.inputs[0] = 3;
     assert!(matches!(expect_err(&s), Error::Layer { index: 1, .. }));
-    // Two writers of one tensor.
+    // Two writers of one tensor: layer i must write tensor i + 1.
     let mut s = mixed_spec();
     s.layers[2].header.output = 2;
-    assert!(matches!(expect_err(&s), Error::Tensor { index: 2, .. }));
+    assert!(matches!(
+        expect_err(&s),
+        Error::LayerField {
+            index: 2,
+            value: 2,
+            ..
+        }
+    ));
     // Tensor outside the workspace.
     let mut s = mixed_spec();
     s.workspace_len = 100;

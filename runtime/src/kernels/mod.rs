@@ -358,15 +358,6 @@ fn part<T>(s: &[T], at: usize, n: usize) -> Option<&[T]> {
     s.get(at..)?.get(..n)
 }
 
-/// `dst = src` (equal lengths) element by element: the runs a patch copies
-/// are a few values long, cheaper inline than through a `memcpy` call.
-#[inline]
-fn copy_small<T: Copy>(dst: &mut [T], src: &[T]) {
-    for (d, s) in dst.iter_mut().zip(src) {
-        *d = core::hint::black_box(*s);
-    }
-}
-
 /// Largest conv2d window (kh·kw·in_c values) gathered into a stack patch;
 /// bigger windows take the row path.
 const PATCH: usize = 256;
@@ -428,7 +419,7 @@ pub fn conv2d_fast<A: Arith>(
                         let src = part(x, (row + ix) * ic, n);
                         let dst = dst.get_mut(kx0 * ic..).and_then(|d| d.get_mut(..n));
                         match (src, dst) {
-                            (Some(src), Some(dst)) => copy_small(dst, src),
+                            (Some(src), Some(dst)) => dst.copy_from_slice(src),
                             _ => return Err(fault("conv2d input too short")),
                         }
                     } else {
@@ -439,7 +430,7 @@ pub fn conv2d_fast<A: Arith>(
                             let ix = pos(ox, kx, win.stride_w, win.dil_w, win.pad_left);
                             let src = part(x, (row + ix) * ic, ic)
                                 .ok_or(fault("conv2d input too short"))?;
-                            copy_small(dst, src);
+                            dst.copy_from_slice(src);
                         }
                     }
                 }
