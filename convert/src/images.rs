@@ -37,7 +37,7 @@ pub fn load_image(path: &Path, spec: &ImageSpec) -> Result<Vec<u8>> {
             return Err(Error::new(
                 &place,
                 format!(
-                    "image is {w}×{h} (width×height), the model input is {}×{}; resize it or set `resize = true` in the description",
+                    "image is {w}×{h} (width×height), the model input is {}×{}; resize it, or allow resizing (`resize = true` in the description, `--resize` for classify)",
                     spec.w, spec.h
                 ),
             ));

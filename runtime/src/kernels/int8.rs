@@ -42,7 +42,7 @@ pub fn requantize_fast(acc: i32, m: i32, rshift: i32) -> i32 {
     let s = rshift.clamp(RSHIFT_MIN, RSHIFT_MAX);
     if s >= 33 {
         let hi = ((acc as i64 * m as i64) >> 32) as i32;
-        (hi + (1 << (s - 33))) >> (s - 33)
+        (hi + (1 << (s - 33))) >> (s - 32)
     } else {
         requantize(acc, m, s)
     }
