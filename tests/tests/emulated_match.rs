@@ -34,12 +34,16 @@ fn demo(desc: &str, precision: Option<Precision>, n: usize) -> (Vec<u8>, Vec<Vec
 }
 
 fn check(target: &str, desc: &str, precision: Option<Precision>) {
+    check_inputs(target, desc, precision, 3);
+}
+
+fn check_inputs(target: &str, desc: &str, precision: Option<Precision>, n: usize) {
     let t = Target::resolve(target).unwrap();
     if let Some(why) = unavailable(&t) {
         println!("skipped: emulated run on {target} not possible here: {why}");
         return;
     }
-    let (bytes, inputs) = demo(desc, precision, 3);
+    let (bytes, inputs) = demo(desc, precision, n);
     let r = emulated_latency(&bytes, &inputs, &t, Duration::from_secs(300)).unwrap();
     // SysTick at the MPS2 boards' 25 MHz core clock under -icount shift=0
     // (1 ns of virtual time per instruction): 40 instructions per tick, so
@@ -65,6 +69,16 @@ fn check(target: &str, desc: &str, precision: Option<Precision>) {
 #[test]
 fn digits_int8_on_m4() {
     check("m4-80", "digits/model.toml", None);
+}
+
+/// Host = device on the Cortex-M4 for all 200 calibration images of the
+/// digits model (open data, models/digits/README.md), in int8 and in fp16.
+#[test]
+fn digits_200_inputs_int8_and_fp16_on_m4() {
+    for precision in [Some(Precision::Int8), Some(Precision::Fp16)] {
+        check_inputs("m4-80", "digits/model.toml", precision, 200);
+        println!("m4-80 digits {precision:?}: 200 inputs, outputs equal the host's");
+    }
 }
 
 #[test]

@@ -3,9 +3,11 @@
 //! for pooling); `int8` and `fp16` supply the arithmetic and the elementwise ops.
 //!
 //! Each loop nest has a straightforward reference form (`*_ref`, the oracle)
-//! and, where it pays, a fast form (`*_fast`) that the tests check against it:
-//! conv2d 1×1 stride-1 unpadded is a plain matrix product (`pointwise`), and
-//! conv2d/depthwise skip per-tap bounds checks on interior output pixels.
+//! and a fast form that the tests check against it byte for byte: conv2d and
+//! dense are matrix-vector products over four output channels at a time
+//! (conv2d gathers each pixel's window into a stack patch first), depthwise
+//! and pooling work on up to 32 channels per pass, and the in-bounds taps of
+//! a pixel are found once per axis (`axis_range`) instead of per tap.
 
 pub mod fp16;
 pub mod int8;
@@ -122,11 +124,19 @@ pub fn axis_range(
     len: usize,
 ) -> (usize, usize) {
     let base = o as i64 * stride as i64 - pad_lo as i64;
-    let (len, d) = (len as i64, dil as i64);
-    let last = base + k.saturating_sub(1) as i64 * d;
-    if base >= 0 && last < len {
+    let last = base + k.saturating_sub(1) as i64 * dil as i64;
+    if base >= 0 && last < len as i64 {
         return (0, k);
     }
+    axis_range_edge(base, k, dil, len)
+}
+
+/// `axis_range` of a window that reaches into the padding (`base`: input
+/// position of tap 0). Out of line: one copy for all callers, and it runs
+/// only on border pixels.
+#[inline(never)]
+fn axis_range_edge(base: i64, k: usize, dil: u16, len: usize) -> (usize, usize) {
+    let (len, d) = (len as i64, dil as i64);
     if d == 0 {
         // Every tap reads the same position (only unchecked layers).
         return if base >= 0 && base < len {
