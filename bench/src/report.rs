@@ -391,32 +391,17 @@ pub fn sweep_html(name: &str, rows: &[SweepRow]) -> String {
         .map(|r| format!("×{} {}×{}", r.width, r.input_hw.0, r.input_hw.1))
         .collect();
     let mut body = format!("<h1>Sweep of {}</h1>", esc(name));
-    body += "<h2>MACs per variant</h2>";
-    body += &bar_chart(
-        &labels,
-        &ok.iter().map(|r| r.macs as f64).collect::<Vec<_>>(),
-        "MACs",
-        None,
-        &[],
-    );
-    body += "<h2>Model file size per variant</h2>";
-    body += &bar_chart(
-        &labels,
-        &ok.iter().map(|r| r.model_bytes as f64).collect::<Vec<_>>(),
-        "B",
-        None,
-        &[],
-    );
-    body += "<h2>Workspace per variant</h2>";
-    body += &bar_chart(
-        &labels,
-        &ok.iter()
-            .map(|r| r.workspace_len as f64)
-            .collect::<Vec<_>>(),
-        "B",
-        None,
-        &[],
-    );
+    type Series = (&'static str, &'static str, fn(&SweepRow) -> f64);
+    let series: [Series; 3] = [
+        ("MACs per variant", "MACs", |r| r.macs as f64),
+        ("Model file size per variant", "B", |r| r.model_bytes as f64),
+        ("Workspace per variant", "B", |r| r.workspace_len as f64),
+    ];
+    for (title, unit, value) in series {
+        let _ = write!(body, "<h2>{title}</h2>");
+        let values: Vec<f64> = ok.iter().map(|r| value(r)).collect();
+        body += &bar_chart(&labels, &values, unit, None, &[]);
+    }
     let targets: Vec<String> = ok
         .first()
         .map(|r| r.cells.iter().map(|c| c.target.clone()).collect())

@@ -394,15 +394,20 @@ pub fn conv2d_fast<A: Arith>(
         return pointwise(a, x, ic, w, y, oc);
     }
     let (kh, kw) = (win.kh as usize, win.kw as usize);
+    let (ih, iw, ow) = (xs.h as usize, xs.w as usize, ys.w as usize);
     let row_len = kw * ic;
-    if oc == 0 || kh == 0 || row_len == 0 {
-        // Degenerate windows (rejected by `check_layer`): the reference copes.
-        return conv2d_ref(a, x, xs, w, win, y, ys);
-    }
-    let (ih, iw) = (xs.h as usize, xs.w as usize);
-    let (oh, ow) = (ys.h as usize, ys.w as usize);
     let k_len = kh * row_len;
-    if k_len <= PATCH && ow > 0 {
+    if oc == 0 || ow == 0 {
+        return Ok(());
+    }
+    if k_len == 0 {
+        // No weights (rejected by `check_layer`): every output is its bias.
+        for y_px in y.chunks_exact_mut(oc) {
+            matvec(a, &[], w, y_px);
+        }
+        return Ok(());
+    }
+    if k_len <= PATCH {
         // Gather each pixel's window (padded taps = `pad()`) in the weights'
         // [kh][kw][in_c] order, then one matrix-vector product.
         let pad = a.pad();
@@ -449,41 +454,150 @@ pub fn conv2d_fast<A: Arith>(
         }
         return Ok(());
     }
-    let (y0, y1) = interior(oh, win.kh, win.stride_h, win.dil_h, win.pad_top, ih);
-    let (x0, x1) = interior(ow, win.kw, win.stride_w, win.dil_w, win.pad_left, iw);
-    for (p, y_px) in y.chunks_exact_mut(oc).enumerate() {
-        let (oy, ox) = (p / ow, p % ow);
-        if !(y0..y1).contains(&oy) || !(x0..x1).contains(&ox) {
-            conv2d_pixel_ref(a, x, xs, w, win, oy, ox, y_px)?;
-            continue;
-        }
-        // Interior: all taps in bounds, positions computed without checks.
-        let iy0 = oy * win.stride_h as usize - win.pad_top as usize;
-        let ix0 = ox * win.stride_w as usize - win.pad_left as usize;
-        for (o, (y, w_o)) in y_px
-            .iter_mut()
-            .zip(w.chunks_exact(kh * row_len))
-            .enumerate()
-        {
-            let mut acc = a.start(o);
-            for (ky, w_row) in w_o.chunks_exact(row_len).enumerate() {
-                let iy = iy0 + ky * win.dil_h as usize;
-                if win.dil_w == 1 {
-                    let xo = (iy * iw + ix0) * ic;
-                    let x_row = x
-                        .get(xo..xo + row_len)
-                        .ok_or(fault("conv2d input too short"))?;
-                    acc = A::dot(acc, x_row, w_row);
-                } else {
-                    for (kx, w_tap) in w_row.chunks_exact(ic).enumerate() {
-                        let ix = ix0 + kx * win.dil_w as usize;
-                        let xo = (iy * iw + ix) * ic;
-                        let x_tap = x.get(xo..xo + ic).ok_or(fault("conv2d input too short"))?;
-                        acc = A::dot(acc, x_tap, w_tap);
-                    }
+    // Windows longer than the patch: gathered and summed in bands of
+    // `PATCH` values, `ACCS` output channels at a time.
+    let pad = a.pad();
+    let mut buf = [pad; PATCH];
+    let mut accs = [a.start(0); ACCS];
+    for (oy, y_row) in y.chunks_exact_mut(ow * oc).enumerate() {
+        let ry = axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih);
+        for (ox, y_px) in y_row.chunks_exact_mut(oc).enumerate() {
+            let rx = axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw);
+            let at = Px {
+                oy,
+                ox,
+                ry,
+                rx,
+                iw,
+                c: ic,
+            };
+            let full = ry == (0, kh) && rx == (0, kw);
+            for (b, y_blk) in y_px.chunks_mut(ACCS).enumerate() {
+                let o0 = b * ACCS;
+                let acc = accs.get_mut(..y_blk.len()).ok_or(fault("conv2d block"))?;
+                for (j, acc) in acc.iter_mut().enumerate() {
+                    *acc = a.start(o0 + j);
+                }
+                let mut k0 = 0;
+                while k0 < k_len {
+                    let n = PATCH.min(k_len - k0);
+                    let patch = buf.get_mut(..n).ok_or(fault("conv2d patch"))?;
+                    gather(x, pad, win, &at, full, k0, patch)?;
+                    let w_blk = w.get(o0 * k_len + k0..).unwrap_or(&[]);
+                    dot_rows::<A>(acc, patch, w_blk, k_len)?;
+                    k0 += n;
+                }
+                for (j, (y, &acc)) in y_blk.iter_mut().zip(acc.iter()).enumerate() {
+                    *y = a.finish(acc, o0 + j);
                 }
             }
-            *y = a.finish(acc, o);
+        }
+    }
+    Ok(())
+}
+
+/// Output channels per pass of the banded conv2d: their accumulators live
+/// in a stack array of this many entries.
+const ACCS: usize = 64;
+
+/// `acc[j] += Σ_i x[i]·w[j·stride + i]` for every `j` (weight rows `stride`
+/// apart, `x.len()` values read from each). With `A::GROUPED`, `GROUP` rows
+/// per pass. Each accumulator adds its products in index order.
+// Not inlined: the loop gets a function (and registers) of its own, and one
+// copy serves pointwise, conv2d and dense.
+#[inline(never)]
+fn dot_rows<A: Arith>(
+    acc: &mut [A::Acc],
+    x: &[A::X],
+    w: &[A::W],
+    stride: usize,
+) -> Result<(), Error> {
+    let k = x.len();
+    let row = |j: usize| part(w, j.wrapping_mul(stride), k).ok_or(fault("weights too short"));
+    let mut j: usize = 0;
+    let rest = if A::GROUPED {
+        let mut groups = acc.chunks_exact_mut(GROUP);
+        let span = stride.saturating_mul(GROUP - 1).saturating_add(k);
+        for acc4 in &mut groups {
+            // One bounds check for the four rows; `zip` with `x` reads
+            // only the first `k` values of each.
+            let blk = part(w, j.wrapping_mul(stride), span).ok_or(fault("weights too short"))?;
+            let (w0, r) = blk.split_at(stride.min(blk.len()));
+            let (w1, r) = r.split_at(stride.min(r.len()));
+            let (w2, w3) = r.split_at(stride.min(r.len()));
+            let mut s = [acc4[0], acc4[1], acc4[2], acc4[3]];
+            for ((((&xv, &v0), &v1), &v2), &v3) in x.iter().zip(w0).zip(w1).zip(w2).zip(w3) {
+                s[0] = A::mac(s[0], xv, v0);
+                s[1] = A::mac(s[1], xv, v1);
+                s[2] = A::mac(s[2], xv, v2);
+                s[3] = A::mac(s[3], xv, v3);
+            }
+            acc4.copy_from_slice(&s);
+            j += GROUP;
+        }
+        groups.into_remainder()
+    } else {
+        acc
+    };
+    for acc in rest.iter_mut() {
+        *acc = A::dot(*acc, x, row(j)?);
+        j += 1;
+    }
+    Ok(())
+}
+
+/// Window values `k0..k0+patch.len()` (flat `[kh][kw][in_c]` index) of the
+/// output pixel `at` into `patch`; padded taps read `pad` (`full`: the
+/// pixel has none).
+fn gather<X: Copy>(
+    x: &[X],
+    pad: X,
+    win: &Window,
+    at: &Px,
+    full: bool,
+    k0: usize,
+    patch: &mut [X],
+) -> Result<(), Error> {
+    let (ic, k1) = (at.c, k0 + patch.len());
+    let row_len = win.kw as usize * ic;
+    if !full {
+        patch.fill(pad);
+    }
+    let (kx0, kx1) = at.rx;
+    // Copies the flat range lo..hi (within one tap run that starts at flat
+    // index `run` and input offset `base`) into the patch.
+    let mut put = |run: usize, base: usize, lo: usize, hi: usize| -> Result<(), Error> {
+        let (lo, hi) = (lo.max(k0), hi.min(k1));
+        if lo >= hi {
+            return Ok(());
+        }
+        let src = part(x, base + (lo - run), hi - lo);
+        let dst = patch.get_mut(lo - k0..hi - k0);
+        match (src, dst) {
+            (Some(src), Some(dst)) => {
+                dst.copy_from_slice(src);
+                Ok(())
+            }
+            _ => Err(fault("conv2d input too short")),
+        }
+    };
+    for ky in at.ry.0..at.ry.1 {
+        let row = ky * row_len;
+        if row >= k1 || row + row_len <= k0 || kx0 >= kx1 {
+            continue;
+        }
+        let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
+        if win.dil_w == 1 {
+            // The in-bounds taps of a row are one contiguous input run.
+            let ix = pos(at.ox, kx0, win.stride_w, 1, win.pad_left);
+            let run = row + kx0 * ic;
+            put(run, (iy * at.iw + ix) * ic, run, row + kx1 * ic)?;
+        } else {
+            for kx in kx0..kx1 {
+                let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
+                let run = row + kx * ic;
+                put(run, (iy * at.iw + ix) * ic, run, run + ic)?;
+            }
         }
     }
     Ok(())
