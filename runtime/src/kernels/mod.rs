@@ -87,29 +87,6 @@ pub fn taps_in_bounds(o: usize, k: u16, stride: u16, dil: u16, pad_lo: u16, len:
         .count() as u32
 }
 
-/// The half-open range of output positions along one axis whose taps are
-/// all in bounds (empty when there is none).
-pub fn interior(
-    out: usize,
-    k: u16,
-    stride: u16,
-    dil: u16,
-    pad_lo: u16,
-    len: usize,
-) -> (usize, usize) {
-    let last = k.saturating_sub(1) as usize;
-    let inside = |o: usize| {
-        tap(o, 0, stride, dil, pad_lo, len).is_some()
-            && tap(o, last, stride, dil, pad_lo, len).is_some()
-    };
-    // Taps are monotone in `o`, so the interior is one contiguous range.
-    let Some(lo) = (0..out).find(|&o| inside(o)) else {
-        return (0, 0);
-    };
-    let hi = (lo..out).find(|&o| !inside(o)).unwrap_or(out);
-    (lo, hi)
-}
-
 /// The taps `k` in `lo..hi` of output position `o` along one axis are the
 /// in-bounds ones (taps are monotone in `k`, so they form one range; padded
 /// taps lie before `lo` and from `hi` on). Agrees with `tap`; computed
@@ -372,10 +349,10 @@ fn part<T>(s: &[T], at: usize, n: usize) -> Option<&[T]> {
 /// bigger windows take the row path.
 const PATCH: usize = 256;
 
-/// Fast conv2d: the pointwise case as a matrix product; otherwise interior
-/// pixels without per-tap bounds checks (with unit horizontal dilation, one
-/// contiguous dot product of kw·in_c per kernel row), border pixels through
-/// the reference pixel.
+/// Fast conv2d: the pointwise case as a matrix product; otherwise each
+/// output pixel's window is gathered once into a stack patch (padding filled
+/// with the pad value) and multiplied by the weights several output channels
+/// at a time, in bands of `PATCH` values. Same sums, same order as the oracle.
 pub fn conv2d_fast<A: Arith>(
     a: &A,
     x: &[A::X],
