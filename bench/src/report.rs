@@ -10,7 +10,7 @@ use midge_convert::footprint::ModelFootprint;
 use serde::Serialize;
 
 use crate::emulated::EmulatedReport;
-use crate::host::HostLatency;
+use crate::host::{HostLatency, Spread};
 use crate::sweep::SweepRow;
 
 /// Everything one `midge-bench report` run found.
@@ -63,6 +63,32 @@ pub fn table(headers: &[&str], rows: &[Vec<String>]) -> String {
         out += &line(r.iter().map(|s| s.as_str()).collect());
     }
     out
+}
+
+/// A per-layer table: `layer`, `op`, `MACs` and the `extra` columns of each
+/// `(index, op, MACs, cells)` row, closed by an `all` row with the whole
+/// model's MACs and `total` cells.
+fn layer_table<'a>(
+    extra: &[&str],
+    layers: impl Iterator<Item = (usize, &'a str, u64, Vec<String>)>,
+    macs: u64,
+    total: Vec<String>,
+) -> String {
+    let headers: Vec<&str> = ["layer", "op", "MACs"]
+        .iter()
+        .chain(extra)
+        .copied()
+        .collect();
+    let row = |index: String, op: &str, macs: u64, cells: Vec<String>| {
+        let mut v = vec![index, op.to_string(), macs.to_string()];
+        v.extend(cells);
+        v
+    };
+    let mut rows: Vec<Vec<String>> = layers
+        .map(|(i, op, m, cells)| row(i.to_string(), op, m, cells))
+        .collect();
+    rows.push(row("all".into(), "", macs, total));
+    table(&headers, &rows)
 }
 
 fn shape(s: [u16; 3]) -> String {
@@ -123,31 +149,20 @@ impl BenchReport {
                 "\nhost latency ({} runs after {} warm-up; µs):\n",
                 h.runs, h.warmup
             );
-            let mut rows: Vec<Vec<String>> = h
-                .layers
-                .iter()
-                .map(|l| {
-                    vec![
-                        l.index.to_string(),
-                        l.op.to_string(),
-                        l.macs.to_string(),
-                        us(l.time.median_ns),
-                        format!("{}–{}", us(l.time.min_ns), us(l.time.max_ns)),
-                        format!("{:.0}", l.macs_per_s / 1e6),
-                    ]
-                })
-                .collect();
-            rows.push(vec![
-                "all".into(),
-                String::new(),
-                h.macs.to_string(),
-                us(h.total.median_ns),
-                format!("{}–{}", us(h.total.min_ns), us(h.total.max_ns)),
-                format!("{:.0}", h.macs_per_s / 1e6),
-            ]);
-            s += &table(
-                &["layer", "op", "MACs", "median", "min–max", "MMAC/s"],
-                &rows,
+            let cells = |t: &Spread, macs_per_s: f64| {
+                vec![
+                    us(t.median_ns),
+                    format!("{}–{}", us(t.min_ns), us(t.max_ns)),
+                    format!("{:.0}", macs_per_s / 1e6),
+                ]
+            };
+            s += &layer_table(
+                &["median", "min–max", "MMAC/s"],
+                h.layers
+                    .iter()
+                    .map(|l| (l.index, l.op, l.macs, cells(&l.time, l.macs_per_s))),
+                h.macs,
+                cells(&h.total, h.macs_per_s),
             );
         }
         for e in &self.emulated {
@@ -163,38 +178,22 @@ impl BenchReport {
                 e.stack_runtime,
                 if e.matches_host { "equal" } else { "DIFFER FROM" }
             );
-            let mut rows: Vec<Vec<String>> = e
-                .layers
-                .iter()
-                .map(|l| {
-                    vec![
-                        l.index.to_string(),
-                        l.op.to_string(),
-                        l.macs.to_string(),
+            s += &layer_table(
+                &["instructions", "est. cycles", "est. ms"],
+                e.layers.iter().map(|l| {
+                    let cells = vec![
                         l.instructions.to_string(),
                         format!("{:.0}", l.est_cycles),
                         format!("{:.3}", l.est_ms),
-                    ]
-                })
-                .collect();
-            rows.push(vec![
-                "all".into(),
-                String::new(),
-                fp.macs.to_string(),
-                e.instructions.to_string(),
-                String::new(),
-                format!("{:.3}", e.est_ms),
-            ]);
-            s += &table(
-                &[
-                    "layer",
-                    "op",
-                    "MACs",
-                    "instructions",
-                    "est. cycles",
-                    "est. ms",
+                    ];
+                    (l.index, l.op, l.macs, cells)
+                }),
+                fp.macs,
+                vec![
+                    e.instructions.to_string(),
+                    String::new(),
+                    format!("{:.3}", e.est_ms),
                 ],
-                &rows,
             );
         }
         for (t, why) in &self.not_emulated {

@@ -298,6 +298,19 @@ fn check_against_candle(d: &Description, pt: &Pt, pixels: &[u8]) -> (FloatGraph,
     (g, ours)
 }
 
+/// The folded graph's logits against the unfolded graph's (`ours`, from
+/// `check_against_candle`): BN folding is exact up to f32 rounding (1e-5
+/// relative).
+fn assert_folding_exact(folded: &FloatGraph, pixels: &[u8], ours: &[Vec<f32>]) {
+    let f = float_ref::run(folded, pixels);
+    assert_close(
+        "folded logits",
+        f.last().unwrap(),
+        ours.last().unwrap(),
+        1e-5,
+    );
+}
+
 fn pick<T: Copy>(rng: &mut ChaCha8Rng, v: &[T]) -> T {
     v[rng.gen_range(0..v.len())]
 }
@@ -485,14 +498,7 @@ fn small_model_matches_candle_and_folds_exactly() {
             FloatOp::BatchNorm { .. } | FloatOp::Relu | FloatOp::Relu6
         )));
         assert_eq!(folded.nodes.len(), 4, "conv1, pool1, conv2, fc");
-        let f = float_ref::run(&folded, &px);
-        // BN folding: exact up to f32 rounding (1e-5 relative).
-        assert_close(
-            "folded logits",
-            f.last().unwrap(),
-            ours.last().unwrap(),
-            1e-5,
-        );
+        assert_folding_exact(&folded, &px, &ours);
     }
 }
 
@@ -571,13 +577,7 @@ out_features = 2
     assert_eq!(folded.nodes[2].precision, Precision::Fp16);
     assert_eq!(folded.nodes[3].precision, Precision::Int8);
     assert_eq!(folded.fold().unwrap(), folded);
-    let f = float_ref::run(&folded, &px);
-    assert_close(
-        "folded logits",
-        f.last().unwrap(),
-        ours.last().unwrap(),
-        1e-5,
-    );
+    assert_folding_exact(&folded, &px, &ours);
 }
 
 #[test]
@@ -690,13 +690,7 @@ out_features = 2
     let (g, ours) = check_against_candle(&d, &pt, &px);
     let folded = g.fold().unwrap();
     assert_eq!(folded.nodes.len(), 2);
-    let f = float_ref::run(&folded, &px);
-    assert_close(
-        "folded logits",
-        f.last().unwrap(),
-        ours.last().unwrap(),
-        1e-5,
-    );
+    assert_folding_exact(&folded, &px, &ours);
 }
 
 fn fold_error(text: &str) -> String {

@@ -334,33 +334,32 @@ fn pool_window() -> Window {
     window(2, 2, 2, 2, 1, 1, [0, 0, 1, 1])
 }
 
-#[test]
-fn maxpool_int8() {
-    // (0,0) max(1, −5, 7, 2) = 7; (0,1) max(3, −8) = 3; (1,0) max(−1, 4) = 4; (1,1) max(0) = 0.
-    // zp = 5: a padded tap read as the zero point would make (1,1) = 5.
+/// `op` (max or average pooling, `pool_window`) over `POOL_X` in int8 with
+/// zero point `zp`: the 2×2 output.
+fn pool_int8(op: Op, zp: i32) -> Vec<i8> {
     let l = layer(
-        header(Op::MaxPool, pool_window()),
+        header(op, pool_window()),
         Weights::None,
         Bias::None,
         Params::None,
     );
     let y = run2(
         &l,
-        &i8t(3, 3, 1, 5),
+        &i8t(3, 3, 1, zp),
         &i8_bytes(&POOL_X),
         None,
-        &i8t(2, 2, 1, 5),
+        &i8t(2, 2, 1, zp),
     );
-    assert_eq!(as_i8(&y), [7, 3, 4, 0]);
+    as_i8(&y)
 }
 
-#[test]
-fn maxpool_fp16() {
-    // As int8 with the corner −0.5: (1,1) = max(−0.5) = −0.5 (a padded 0 would give 0).
+/// `op` over `POOL_X` in fp16 with the corner value (index 8) −0.5: the
+/// 2×2 output.
+fn pool_fp16(op: Op) -> Vec<f32> {
     let mut xv = POOL_X.map(|v| v as f32);
     xv[8] = -0.5;
     let l = layer(
-        header(Op::MaxPool, pool_window()),
+        header(op, pool_window()),
         Weights::None,
         Bias::None,
         Params::None,
@@ -372,7 +371,20 @@ fn maxpool_fp16() {
         None,
         &f16t(2, 2, 1),
     );
-    assert_eq!(as_f32(&y), [7.0, 3.0, 4.0, -0.5]);
+    as_f32(&y)
+}
+
+#[test]
+fn maxpool_int8() {
+    // (0,0) max(1, −5, 7, 2) = 7; (0,1) max(3, −8) = 3; (1,0) max(−1, 4) = 4; (1,1) max(0) = 0.
+    // zp = 5: a padded tap read as the zero point would make (1,1) = 5.
+    assert_eq!(pool_int8(Op::MaxPool, 5), [7, 3, 4, 0]);
+}
+
+#[test]
+fn maxpool_fp16() {
+    // As int8 with the corner −0.5: (1,1) = max(−0.5) = −0.5 (a padded 0 would give 0).
+    assert_eq!(pool_fp16(Op::MaxPool), [7.0, 3.0, 4.0, -0.5]);
 }
 
 #[test]
@@ -382,41 +394,13 @@ fn avgpool_int8() {
     // (0,1): [1, −10] = −9/2 = −4.5 → −5 → −3
     // (1,0): [−3, 2] = −1/2 = −0.5 → −1 → 1
     // (1,1): [−2] → −2 → 0
-    let l = layer(
-        header(Op::AvgPool, pool_window()),
-        Weights::None,
-        Bias::None,
-        Params::None,
-    );
-    let y = run2(
-        &l,
-        &i8t(3, 3, 1, 2),
-        &i8_bytes(&POOL_X),
-        None,
-        &i8t(2, 2, 1, 2),
-    );
-    assert_eq!(as_i8(&y), [1, -3, 1, 0]);
+    assert_eq!(pool_int8(Op::AvgPool, 2), [1, -3, 1, 0]);
 }
 
 #[test]
 fn avgpool_fp16() {
     // (0,0): (1 − 5 + 7 + 2)/4 = 1.25; (0,1): (3 − 8)/2 = −2.5; (1,0): (−1 + 4)/2 = 1.5; (1,1): −0.5.
-    let mut xv = POOL_X.map(|v| v as f32);
-    xv[8] = -0.5;
-    let l = layer(
-        header(Op::AvgPool, pool_window()),
-        Weights::None,
-        Bias::None,
-        Params::None,
-    );
-    let y = run2(
-        &l,
-        &f16t(3, 3, 1),
-        &f16_bytes(&f16s(&xv)),
-        None,
-        &f16t(2, 2, 1),
-    );
-    assert_eq!(as_f32(&y), [1.25, -2.5, 1.5, -0.5]);
+    assert_eq!(pool_fp16(Op::AvgPool), [1.25, -2.5, 1.5, -0.5]);
 }
 
 #[test]

@@ -441,6 +441,22 @@ impl Net {
 mod tests {
     use super::*;
 
+    /// Largest |ours − theirs| after checking the two have the same dims
+    /// (`case` names the case in the failure message).
+    fn max_gap(ours: &Tensor, theirs: &Tensor, case: &str) -> f32 {
+        assert_eq!(ours.dims(), theirs.dims(), "{case}");
+        (ours - theirs)
+            .unwrap()
+            .abs()
+            .unwrap()
+            .flatten_all()
+            .unwrap()
+            .max(0)
+            .unwrap()
+            .to_scalar::<f32>()
+            .unwrap()
+    }
+
     /// The shifted-view depthwise against candle's grouped conv2d (the
     /// general-purpose reference, groups = channels), strides 1 and 2.
     #[test]
@@ -454,22 +470,9 @@ mod tests {
         for (pad, stride, dil) in [(1, 1, 1), (1, 2, 1), (0, 2, 1), (2, 1, 2)] {
             let ours = depthwise_taps(&x, &w, pad, stride, dil).unwrap();
             let theirs = x.conv2d(&w, pad, stride, dil, 3).unwrap();
-            assert_eq!(
-                ours.dims(),
-                theirs.dims(),
-                "pad {pad} stride {stride} dil {dil}"
-            );
-            let gap = (ours - theirs)
-                .unwrap()
-                .abs()
-                .unwrap()
-                .flatten_all()
-                .unwrap()
-                .max(0)
-                .unwrap()
-                .to_scalar::<f32>()
-                .unwrap();
-            assert!(gap < 1e-5, "pad {pad} stride {stride} dil {dil}: {gap}");
+            let case = format!("pad {pad} stride {stride} dil {dil}");
+            let gap = max_gap(&ours, &theirs, &case);
+            assert!(gap < 1e-5, "{case}: {gap}");
         }
     }
 
@@ -493,25 +496,9 @@ mod tests {
             let w = Tensor::from_vec(ws, (5, 3, k, k), &dev).unwrap();
             let ours = conv_unfold(&x, &w, pad, stride, dil).unwrap();
             let theirs = x.conv2d(&w, pad, stride, dil, 1).unwrap();
-            assert_eq!(
-                ours.dims(),
-                theirs.dims(),
-                "k {k} pad {pad} stride {stride} dil {dil}"
-            );
-            let gap = (ours - theirs)
-                .unwrap()
-                .abs()
-                .unwrap()
-                .flatten_all()
-                .unwrap()
-                .max(0)
-                .unwrap()
-                .to_scalar::<f32>()
-                .unwrap();
-            assert!(
-                gap < 1e-4,
-                "k {k} pad {pad} stride {stride} dil {dil}: {gap}"
-            );
+            let case = format!("k {k} pad {pad} stride {stride} dil {dil}");
+            let gap = max_gap(&ours, &theirs, &case);
+            assert!(gap < 1e-4, "{case}: {gap}");
         }
     }
 

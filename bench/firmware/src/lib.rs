@@ -71,6 +71,56 @@ impl Job {
     }
 }
 
+impl Job {
+    /// The model bytes inside `block` (checked by `check`).
+    pub fn model<'a>(&self, block: &'a [u8]) -> &'a [u8] {
+        &block[self.model_offset..self.model_offset + self.model_len]
+    }
+
+    /// Input `k` (< `input_count`) inside `block` (checked by `check`).
+    pub fn input<'a>(&self, block: &'a [u8], k: usize) -> &'a [u8] {
+        let start = self.input_offset + k * self.input_len;
+        &block[start..start + self.input_len]
+    }
+
+    /// The `len`-byte workspace at `workspace_offset`, when it fits in the
+    /// job area.
+    pub fn workspace(&self, len: usize) -> Result<&'static mut [u8], &'static str> {
+        if self.workspace_offset + len > JOB_CAPACITY {
+            return Err("workspace does not fit in the job area");
+        }
+        // SAFETY: inside the job area, after the model and inputs (`check`),
+        // and taken once per run.
+        Ok(unsafe {
+            core::slice::from_raw_parts_mut((JOB_ADDR + self.workspace_offset) as *mut u8, len)
+        })
+    }
+}
+
+/// The job the host's loader placed at `JOB_ADDR`: its header, parsed, and
+/// the job area up to the workspace, checked (`Job::check`).
+pub fn job_block() -> Result<(Job, &'static [u8]), &'static str> {
+    // SAFETY: the host's loader wrote the job block there before reset; the
+    // firmware's own data and stack live below JOB_ADDR (memory.x).
+    let head = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, JOB_HEADER_LEN) };
+    let job = Job::parse_header(head)?;
+    if job.workspace_offset > JOB_CAPACITY {
+        return Err("workspace offset outside the job area");
+    }
+    let block = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, job.workspace_offset) };
+    job.check(block)?;
+    Ok((job, block))
+}
+
+/// End of the footprint probes: stores `sink` where the optimiser must keep
+/// everything it depends on, then sleeps.
+pub fn keep(sink: u32) -> ! {
+    unsafe { core::ptr::write_volatile(0x2000_0000 as *mut u32, sink) };
+    loop {
+        cortex_m::asm::wfi();
+    }
+}
+
 static WRAPS: AtomicU32 = AtomicU32::new(0);
 const RELOAD: u32 = 0x00FF_FFFF;
 

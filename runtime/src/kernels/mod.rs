@@ -176,6 +176,48 @@ fn conv_weight_len(win: &Window, in_c: usize, out_c: usize) -> Option<usize> {
         .checked_mul(in_c)
 }
 
+/// Reference walk over the output pixels: `f(oy, ox, y_px)` for each pixel
+/// of `c` values of an output `ow` pixels wide, in row-major order.
+fn pixels_ref<X>(
+    y: &mut [X],
+    ow: usize,
+    c: usize,
+    mut f: impl FnMut(usize, usize, &mut [X]) -> Result<(), Error>,
+) -> Result<(), Error> {
+    if c == 0 {
+        return Ok(());
+    }
+    for (p, y_px) in y.chunks_exact_mut(c).enumerate() {
+        f(p / ow, p % ow, y_px)?;
+    }
+    Ok(())
+}
+
+/// Reference walk over the taps of output pixel `(oy, ox)` (the oracle's
+/// `tap`, every tap in `[kh][kw]` order): `(t, input pixel)` with `t =
+/// ky·kw + kx` and the input pixel `iy·iw + ix` it reads, `None` for a
+/// padded tap.
+fn taps_ref(
+    xs: Shape,
+    win: &Window,
+    oy: usize,
+    ox: usize,
+) -> impl Iterator<Item = (usize, Option<usize>)> + '_ {
+    let (ih, iw) = (xs.h as usize, xs.w as usize);
+    let kw = win.kw as usize;
+    (0..win.kh as usize).flat_map(move |ky| {
+        let iy = tap(oy, ky, win.stride_h, win.dil_h, win.pad_top, ih);
+        (0..kw).map(move |kx| {
+            let ix = tap(ox, kx, win.stride_w, win.dil_w, win.pad_left, iw);
+            let px = match (iy, ix) {
+                (Some(iy), Some(ix)) => Some(iy * iw + ix),
+                _ => None,
+            };
+            (ky * kw + kx, px)
+        })
+    })
+}
+
 /// Reference conv2d of one output pixel `(oy, ox)` into `y_px` (out_c
 /// values): every tap of every output channel, padded taps read `a.pad()`.
 #[allow(clippy::too_many_arguments)]
@@ -189,28 +231,24 @@ fn conv2d_pixel_ref<A: Arith>(
     ox: usize,
     y_px: &mut [A::X],
 ) -> Result<(), Error> {
-    let (ih, iw, ic) = (xs.h as usize, xs.w as usize, xs.c as usize);
-    let (kh, kw) = (win.kh as usize, win.kw as usize);
+    let ic = xs.c as usize;
+    let taps = win.kh as usize * win.kw as usize;
     for (o, y) in y_px.iter_mut().enumerate() {
         let mut acc = a.start(o);
-        for ky in 0..kh {
-            let iy = tap(oy, ky, win.stride_h, win.dil_h, win.pad_top, ih);
-            for kx in 0..kw {
-                let ix = tap(ox, kx, win.stride_w, win.dil_w, win.pad_left, iw);
-                let wo = ((o * kh + ky) * kw + kx) * ic;
-                let w_tap = w
-                    .get(wo..wo + ic)
-                    .ok_or(fault("conv2d weights too short"))?;
-                match (iy, ix) {
-                    (Some(iy), Some(ix)) => {
-                        let xo = (iy * iw + ix) * ic;
-                        let x_tap = x.get(xo..xo + ic).ok_or(fault("conv2d input too short"))?;
-                        acc = A::dot(acc, x_tap, w_tap);
-                    }
-                    _ => {
-                        let p = a.pad();
-                        acc = w_tap.iter().fold(acc, |acc, &w| A::mac(acc, p, w));
-                    }
+        for (t, px) in taps_ref(xs, win, oy, ox) {
+            let wo = (o * taps + t) * ic;
+            let w_tap = w
+                .get(wo..wo + ic)
+                .ok_or(fault("conv2d weights too short"))?;
+            match px {
+                Some(px) => {
+                    let xo = px * ic;
+                    let x_tap = x.get(xo..xo + ic).ok_or(fault("conv2d input too short"))?;
+                    acc = A::dot(acc, x_tap, w_tap);
+                }
+                None => {
+                    let p = a.pad();
+                    acc = w_tap.iter().fold(acc, |acc, &w| A::mac(acc, p, w));
                 }
             }
         }
@@ -233,14 +271,9 @@ pub fn conv2d_ref<A: Arith>(
     if conv_weight_len(win, xs.c as usize, ys.c as usize) != Some(w.len()) {
         return Err(fault("conv2d weight length does not match the window"));
     }
-    let (ow, oc) = (ys.w as usize, ys.c as usize);
-    if oc == 0 {
-        return Ok(());
-    }
-    for (p, y_px) in y.chunks_exact_mut(oc).enumerate() {
-        conv2d_pixel_ref(a, x, xs, w, win, p / ow, p % ow, y_px)?;
-    }
-    Ok(())
+    pixels_ref(y, ys.w as usize, ys.c as usize, |oy, ox, y_px| {
+        conv2d_pixel_ref(a, x, xs, w, win, oy, ox, y_px)
+    })
 }
 
 /// Whether conv2d with this window is the pointwise case: 1×1 kernel,
@@ -339,6 +372,22 @@ fn matvec<A: Arith>(a: &A, x: &[A::X], w: &[A::W], y: &mut [A::X]) {
     }
 }
 
+/// Sets `acc[j]` to the start value (bias) of output channel `o0 + j`.
+#[inline]
+fn start_all<A: Arith>(a: &A, acc: &mut [A::Acc], o0: usize) {
+    for (j, acc) in acc.iter_mut().enumerate() {
+        *acc = a.start(o0 + j);
+    }
+}
+
+/// `y[j] = finish(acc[j])` as output channel `o0 + j`.
+#[inline]
+fn finish_all<A: Arith>(a: &A, acc: &[A::Acc], o0: usize, y: &mut [A::X]) {
+    for (j, (y, &acc)) in y.iter_mut().zip(acc).enumerate() {
+        *y = a.finish(acc, o0 + j);
+    }
+}
+
 /// `n` elements of `s` from `at`, or `None` (no overflow, no panic).
 #[inline]
 fn part<T>(s: &[T], at: usize, n: usize) -> Option<&[T]> {
@@ -370,11 +419,8 @@ pub fn conv2d_fast<A: Arith>(
     if is_pointwise(win) && xs.h == ys.h && xs.w == ys.w {
         return pointwise(a, x, ic, w, y, oc);
     }
-    let (kh, kw) = (win.kh as usize, win.kw as usize);
-    let (ih, iw, ow) = (xs.h as usize, xs.w as usize, ys.w as usize);
-    let row_len = kw * ic;
-    let k_len = kh * row_len;
-    if oc == 0 || ow == 0 {
+    let k_len = win.kh as usize * win.kw as usize * ic;
+    if oc == 0 || ys.w == 0 {
         return Ok(());
     }
     if k_len == 0 {
@@ -390,87 +436,65 @@ pub fn conv2d_fast<A: Arith>(
         let pad = a.pad();
         let mut buf = [pad; PATCH];
         let patch = buf.get_mut(..k_len).ok_or(fault("conv2d patch"))?;
-        for (oy, y_row) in y.chunks_exact_mut(ow * oc).enumerate() {
-            let (ky0, ky1) = axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih);
-            for (ox, y_px) in y_row.chunks_exact_mut(oc).enumerate() {
-                let (kx0, kx1) = axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw);
-                if ky0 != 0 || ky1 != kh || kx0 != 0 || kx1 != kw {
-                    patch.fill(pad);
-                }
-                for (ky, dst) in patch.chunks_exact_mut(row_len).enumerate() {
-                    if ky < ky0 || ky >= ky1 {
-                        continue;
-                    }
-                    let row = pos(oy, ky, win.stride_h, win.dil_h, win.pad_top) * iw;
-                    if kx0 == kx1 {
-                        continue;
-                    }
-                    if win.dil_w == 1 {
-                        let n = (kx1 - kx0) * ic;
-                        let ix = pos(ox, kx0, win.stride_w, 1, win.pad_left);
-                        let src = part(x, (row + ix) * ic, n);
-                        let dst = dst.get_mut(kx0 * ic..).and_then(|d| d.get_mut(..n));
-                        match (src, dst) {
-                            (Some(src), Some(dst)) => dst.copy_from_slice(src),
-                            _ => return Err(fault("conv2d input too short")),
-                        }
-                    } else {
-                        for (kx, dst) in dst.chunks_exact_mut(ic).enumerate() {
-                            if kx < kx0 || kx >= kx1 {
-                                continue;
-                            }
-                            let ix = pos(ox, kx, win.stride_w, win.dil_w, win.pad_left);
-                            let src = part(x, (row + ix) * ic, ic)
-                                .ok_or(fault("conv2d input too short"))?;
-                            dst.copy_from_slice(src);
-                        }
-                    }
-                }
-                matvec(a, patch, w, y_px);
+        let row_len = win.kw as usize * ic;
+        return pixels_fast(xs, win, y, ys, |at, y_px| {
+            let (kx0, kx1) = at.rx;
+            if !at.full(win) {
+                patch.fill(pad);
             }
-        }
-        return Ok(());
+            for (ky, dst) in patch.chunks_exact_mut(row_len).enumerate() {
+                if ky < at.ry.0 || ky >= at.ry.1 || kx0 == kx1 {
+                    continue;
+                }
+                let row = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top) * at.iw;
+                if win.dil_w == 1 {
+                    let n = (kx1 - kx0) * ic;
+                    let ix = pos(at.ox, kx0, win.stride_w, 1, win.pad_left);
+                    let src = part(x, (row + ix) * ic, n);
+                    let dst = dst.get_mut(kx0 * ic..).and_then(|d| d.get_mut(..n));
+                    match (src, dst) {
+                        (Some(src), Some(dst)) => dst.copy_from_slice(src),
+                        _ => return Err(fault("conv2d input too short")),
+                    }
+                } else {
+                    for (kx, dst) in dst.chunks_exact_mut(ic).enumerate() {
+                        if kx < kx0 || kx >= kx1 {
+                            continue;
+                        }
+                        let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
+                        let src =
+                            part(x, (row + ix) * ic, ic).ok_or(fault("conv2d input too short"))?;
+                        dst.copy_from_slice(src);
+                    }
+                }
+            }
+            matvec(a, patch, w, y_px);
+            Ok(())
+        });
     }
     // Windows longer than the patch: gathered and summed in bands of
     // `PATCH` values, `ACCS` output channels at a time.
     let pad = a.pad();
     let mut buf = [pad; PATCH];
     let mut accs = [a.start(0); ACCS];
-    for (oy, y_row) in y.chunks_exact_mut(ow * oc).enumerate() {
-        let ry = axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih);
-        for (ox, y_px) in y_row.chunks_exact_mut(oc).enumerate() {
-            let rx = axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw);
-            let at = Px {
-                oy,
-                ox,
-                ry,
-                rx,
-                iw,
-                c: ic,
-            };
-            let full = ry == (0, kh) && rx == (0, kw);
-            for (b, y_blk) in y_px.chunks_mut(ACCS).enumerate() {
-                let o0 = b * ACCS;
-                let acc = accs.get_mut(..y_blk.len()).ok_or(fault("conv2d block"))?;
-                for (j, acc) in acc.iter_mut().enumerate() {
-                    *acc = a.start(o0 + j);
-                }
-                let mut k0 = 0;
-                while k0 < k_len {
-                    let n = PATCH.min(k_len - k0);
-                    let patch = buf.get_mut(..n).ok_or(fault("conv2d patch"))?;
-                    gather(x, pad, win, &at, full, k0, patch)?;
-                    let w_blk = w.get(o0 * k_len + k0..).unwrap_or(&[]);
-                    dot_rows::<A>(acc, patch, w_blk, k_len)?;
-                    k0 += n;
-                }
-                for (j, (y, &acc)) in y_blk.iter_mut().zip(acc.iter()).enumerate() {
-                    *y = a.finish(acc, o0 + j);
-                }
+    pixels_fast(xs, win, y, ys, |at, y_px| {
+        for (b, y_blk) in y_px.chunks_mut(ACCS).enumerate() {
+            let o0 = b * ACCS;
+            let acc = accs.get_mut(..y_blk.len()).ok_or(fault("conv2d block"))?;
+            start_all(a, acc, o0);
+            let mut k0 = 0;
+            while k0 < k_len {
+                let n = PATCH.min(k_len - k0);
+                let patch = buf.get_mut(..n).ok_or(fault("conv2d patch"))?;
+                gather(x, pad, win, at, k0, patch)?;
+                let w_blk = w.get(o0 * k_len + k0..).unwrap_or(&[]);
+                dot_rows::<A>(acc, patch, w_blk, k_len)?;
+                k0 += n;
             }
+            finish_all(a, acc, o0, y_blk);
         }
-    }
-    Ok(())
+        Ok(())
+    })
 }
 
 /// Output channels per pass of the banded conv2d: their accumulators live
@@ -524,20 +548,18 @@ fn dot_rows<A: Arith>(
 }
 
 /// Window values `k0..k0+patch.len()` (flat `[kh][kw][in_c]` index) of the
-/// output pixel `at` into `patch`; padded taps read `pad` (`full`: the
-/// pixel has none).
+/// output pixel `at` into `patch`; padded taps read `pad`.
 fn gather<X: Copy>(
     x: &[X],
     pad: X,
     win: &Window,
     at: &Px,
-    full: bool,
     k0: usize,
     patch: &mut [X],
 ) -> Result<(), Error> {
     let (ic, k1) = (at.c, k0 + patch.len());
     let row_len = win.kw as usize * ic;
-    if !full {
+    if !at.full(win) {
         patch.fill(pad);
     }
     let (kx0, kx1) = at.rx;
@@ -593,25 +615,20 @@ fn depthwise_pixel_ref<A: Arith>(
     ox: usize,
     y_px: &mut [A::X],
 ) -> Result<(), Error> {
-    let (ih, iw, c) = (xs.h as usize, xs.w as usize, xs.c as usize);
-    let (kh, kw) = (win.kh as usize, win.kw as usize);
+    let c = xs.c as usize;
     for (ch, y) in y_px.iter_mut().enumerate() {
         let mut acc = a.start(ch);
-        for ky in 0..kh {
-            let iy = tap(oy, ky, win.stride_h, win.dil_h, win.pad_top, ih);
-            for kx in 0..kw {
-                let ix = tap(ox, kx, win.stride_w, win.dil_w, win.pad_left, iw);
-                let wv = *w
-                    .get((ky * kw + kx) * c + ch)
-                    .ok_or(fault("depthwise weights too short"))?;
-                let xv = match (iy, ix) {
-                    (Some(iy), Some(ix)) => *x
-                        .get((iy * iw + ix) * c + ch)
-                        .ok_or(fault("depthwise input too short"))?,
-                    _ => a.pad(),
-                };
-                acc = A::mac(acc, xv, wv);
-            }
+        for (t, px) in taps_ref(xs, win, oy, ox) {
+            let wv = *w
+                .get(t * c + ch)
+                .ok_or(fault("depthwise weights too short"))?;
+            let xv = match px {
+                Some(px) => *x
+                    .get(px * c + ch)
+                    .ok_or(fault("depthwise input too short"))?,
+                None => a.pad(),
+            };
+            acc = A::mac(acc, xv, wv);
         }
         *y = a.finish(acc, ch);
     }
@@ -644,14 +661,9 @@ pub fn depthwise_ref<A: Arith>(
     ys: Shape,
 ) -> Result<(), Error> {
     depthwise_lens::<A>(x, xs, w, win, y, ys)?;
-    let (ow, c) = (ys.w as usize, ys.c as usize);
-    if c == 0 {
-        return Ok(());
-    }
-    for (p, y_px) in y.chunks_exact_mut(c).enumerate() {
-        depthwise_pixel_ref(a, x, xs, w, win, p / ow, p % ow, y_px)?;
-    }
-    Ok(())
+    pixels_ref(y, ys.w as usize, ys.c as usize, |oy, ox, y_px| {
+        depthwise_pixel_ref(a, x, xs, w, win, oy, ox, y_px)
+    })
 }
 
 /// Channels per pass of the fast depthwise and pooling loops: their
@@ -673,29 +685,12 @@ pub fn depthwise_fast<A: Arith>(
     ys: Shape,
 ) -> Result<(), Error> {
     depthwise_lens::<A>(x, xs, w, win, y, ys)?;
-    let (ih, iw, c) = (xs.h as usize, xs.w as usize, xs.c as usize);
-    let (kh, kw, ow) = (win.kh as usize, win.kw as usize, ys.w as usize);
-    if c == 0 || ow == 0 {
-        return Ok(());
-    }
-    for (oy, y_row) in y.chunks_exact_mut(ow * c).enumerate() {
-        let ry = axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih);
-        for (ox, y_px) in y_row.chunks_exact_mut(c).enumerate() {
-            let rx = axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw);
-            let at = Px {
-                oy,
-                ox,
-                ry,
-                rx,
-                iw,
-                c,
-            };
-            for (k, y_chunk) in y_px.chunks_mut(CHUNK).enumerate() {
-                depthwise_chunk(a, x, w, win, &at, k * CHUNK, y_chunk)?;
-            }
+    pixels_fast(xs, win, y, ys, |at, y_px| {
+        for (k, y_chunk) in y_px.chunks_mut(CHUNK).enumerate() {
+            depthwise_chunk(a, x, w, win, at, k * CHUNK, y_chunk)?;
         }
-    }
-    Ok(())
+        Ok(())
+    })
 }
 
 /// Depthwise of channels `c0..c0+y.len()` (at most `CHUNK`) of one output
@@ -715,9 +710,7 @@ fn depthwise_chunk<A: Arith>(
     let n = y.len();
     let mut buf = [a.start(0); CHUNK];
     let acc = buf.get_mut(..n).ok_or(fault("depthwise chunk"))?;
-    for (j, acc) in acc.iter_mut().enumerate() {
-        *acc = a.start(c0 + j);
-    }
+    start_all(a, acc, c0);
     let pads = [a.pad(); CHUNK];
     let pads = pads.get(..n).ok_or(fault("depthwise chunk"))?;
     let kw = win.kw as usize;
@@ -751,9 +744,7 @@ fn depthwise_chunk<A: Arith>(
             kx += 1;
         }
     }
-    for (j, (y, &acc)) in y.iter_mut().zip(acc.iter()).enumerate() {
-        *y = a.finish(acc, c0 + j);
-    }
+    finish_all(a, acc, c0, y);
     Ok(())
 }
 
@@ -815,33 +806,13 @@ pub fn pool<P: Pool>(
     y: &mut [P::X],
     ys: Shape,
 ) -> Result<(), Error> {
-    check_lens(x.len(), xs, y.len(), ys)?;
-    if xs.c != ys.c {
-        return Err(fault("pooling changes the channel count"));
-    }
-    let (ih, iw, c) = (xs.h as usize, xs.w as usize, xs.c as usize);
-    let (kh, kw, ow) = (win.kh as usize, win.kw as usize, ys.w as usize);
-    if c == 0 || ow == 0 {
-        return Ok(());
-    }
-    for (oy, y_row) in y.chunks_exact_mut(ow * c).enumerate() {
-        let ry = axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih);
-        for (ox, y_px) in y_row.chunks_exact_mut(c).enumerate() {
-            let rx = axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw);
-            let at = Px {
-                oy,
-                ox,
-                ry,
-                rx,
-                iw,
-                c,
-            };
-            for (k, y_chunk) in y_px.chunks_mut(CHUNK).enumerate() {
-                pool_chunk(p, x, win, &at, k * CHUNK, y_chunk)?;
-            }
+    pool_lens(x.len(), xs, y.len(), ys)?;
+    pixels_fast(xs, win, y, ys, |at, y_px| {
+        for (k, y_chunk) in y_px.chunks_mut(CHUNK).enumerate() {
+            pool_chunk(p, x, win, at, k * CHUNK, y_chunk)?;
         }
-    }
-    Ok(())
+        Ok(())
+    })
 }
 
 /// One output pixel of a windowed op: its position, in-bounds tap ranges
@@ -853,6 +824,53 @@ struct Px {
     rx: (usize, usize),
     iw: usize,
     c: usize,
+}
+
+impl Px {
+    /// Whether every tap of the window is in bounds (no padding to fill).
+    #[inline]
+    fn full(&self, win: &Window) -> bool {
+        self.ry == (0, win.kh as usize) && self.rx == (0, win.kw as usize)
+    }
+}
+
+/// Walk of the fast windowed ops over the output pixels (`ys.c` values
+/// each), row by row: the in-bounds tap ranges of a row are found once,
+/// those of a column once per pixel, then `f` computes the pixel.
+#[inline(always)]
+fn pixels_fast<X>(
+    xs: Shape,
+    win: &Window,
+    y: &mut [X],
+    ys: Shape,
+    mut f: impl FnMut(&Px, &mut [X]) -> Result<(), Error>,
+) -> Result<(), Error> {
+    let (ih, iw, ic) = (xs.h as usize, xs.w as usize, xs.c as usize);
+    let (kh, kw, ow, oc) = (
+        win.kh as usize,
+        win.kw as usize,
+        ys.w as usize,
+        ys.c as usize,
+    );
+    if oc == 0 || ow == 0 {
+        return Ok(());
+    }
+    for (oy, y_row) in y.chunks_exact_mut(ow * oc).enumerate() {
+        let ry = axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih);
+        for (ox, y_px) in y_row.chunks_exact_mut(oc).enumerate() {
+            let rx = axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw);
+            let at = Px {
+                oy,
+                ox,
+                ry,
+                rx,
+                iw,
+                c: ic,
+            };
+            f(&at, y_px)?;
+        }
+    }
+    Ok(())
 }
 
 /// Pooling of channels `c0..c0+y.len()` (at most `CHUNK`) of one output
@@ -899,37 +917,31 @@ pub fn pool_ref<P: Pool>(
     y: &mut [P::X],
     ys: Shape,
 ) -> Result<(), Error> {
-    check_lens(x.len(), xs, y.len(), ys)?;
-    if xs.c != ys.c {
-        return Err(fault("pooling changes the channel count"));
-    }
-    let (ih, iw, c) = (xs.h as usize, xs.w as usize, xs.c as usize);
-    let ow = ys.w as usize;
-    if c == 0 {
-        return Ok(());
-    }
-    for (px, y_px) in y.chunks_exact_mut(c).enumerate() {
-        let (oy, ox) = (px / ow, px % ow);
+    pool_lens(x.len(), xs, y.len(), ys)?;
+    let c = xs.c as usize;
+    pixels_ref(y, ys.w as usize, c, |oy, ox, y_px| {
         for (ch, y) in y_px.iter_mut().enumerate() {
             let mut acc = p.init();
             let mut count = 0u32;
-            for ky in 0..win.kh as usize {
-                let Some(iy) = tap(oy, ky, win.stride_h, win.dil_h, win.pad_top, ih) else {
+            for (_, px) in taps_ref(xs, win, oy, ox) {
+                let Some(px) = px else {
                     continue;
                 };
-                for kx in 0..win.kw as usize {
-                    let Some(ix) = tap(ox, kx, win.stride_w, win.dil_w, win.pad_left, iw) else {
-                        continue;
-                    };
-                    let xv = *x
-                        .get((iy * iw + ix) * c + ch)
-                        .ok_or(fault("pooling input too short"))?;
-                    acc = p.step(acc, xv);
-                    count = count.saturating_add(1);
-                }
+                let xv = *x.get(px * c + ch).ok_or(fault("pooling input too short"))?;
+                acc = p.step(acc, xv);
+                count = count.saturating_add(1);
             }
             *y = p.finish(acc, count);
         }
+        Ok(())
+    })
+}
+
+/// Checks the slice lengths and channel counts of pooling.
+fn pool_lens(x_len: usize, xs: Shape, y_len: usize, ys: Shape) -> Result<(), Error> {
+    check_lens(x_len, xs, y_len, ys)?;
+    if xs.c != ys.c {
+        return Err(fault("pooling changes the channel count"));
     }
     Ok(())
 }

@@ -81,35 +81,19 @@ fn main() -> ! {
     let b = ticks_of(|| nops80(1000));
     let _ = writeln!(out, "calibration a={a} b={b}");
 
-    // SAFETY: the host's loader wrote the job block there before reset; the
-    // harness's own data and stack live below JOB_ADDR (memory.x).
-    let head = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, JOB_HEADER_LEN) };
-    let job = match Job::parse_header(head) {
+    let (job, block) = match job_block() {
         Ok(j) => j,
         Err(e) => fail(&mut out, format_args!("{e}")),
     };
-    if job.workspace_offset > JOB_CAPACITY {
-        fail(
-            &mut out,
-            format_args!("workspace offset outside the job area"),
-        );
-    }
-    let block = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, job.workspace_offset) };
-    if let Err(e) = job.check(block) {
-        fail(&mut out, format_args!("{e}"));
-    }
-    let model_bytes = &block[job.model_offset..job.model_offset + job.model_len];
-    let model = match Model::parse(model_bytes) {
+    let model = match Model::parse(job.model(block)) {
         Ok(m) => m,
         Err(e) => fail(&mut out, format_args!("model: {e}")),
     };
     let ws_len = model.workspace_len();
-    if job.workspace_offset + ws_len > JOB_CAPACITY {
-        fail(
-            &mut out,
-            format_args!("workspace does not fit in the job area"),
-        );
-    }
+    let ws = match job.workspace(ws_len) {
+        Ok(ws) => ws,
+        Err(e) => fail(&mut out, format_args!("{e}")),
+    };
     let layers = model.layer_count();
     if layers > MAX_LAYERS {
         fail(
@@ -118,9 +102,6 @@ fn main() -> ! {
         );
     }
     let _ = writeln!(out, "model layers={layers} workspace={ws_len}");
-    let ws = unsafe {
-        core::slice::from_raw_parts_mut((JOB_ADDR + job.workspace_offset) as *mut u8, ws_len)
-    };
 
     let mut clock = Clock {
         before: 0,
@@ -128,9 +109,7 @@ fn main() -> ! {
     };
     let sp = paint_stack();
     for k in 0..job.input_count {
-        let start = job.input_offset + k * job.input_len;
-        let input = &block[start..start + job.input_len];
-        let result = model.run_observed(input, ws, &mut clock);
+        let result = model.run_observed(job.input(block, k), ws, &mut clock);
         let output = match result {
             Ok(o) => o,
             Err(e) => fail(&mut out, format_args!("run {k}: {e}")),
