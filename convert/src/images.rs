@@ -210,6 +210,27 @@ mod tests {
     }
 
     #[test]
+    fn loads_jpeg() {
+        // JPEG is lossy, but a flat 8×8 block is one DC coefficient: it
+        // decodes to its grey level within a step or two (common practice).
+        let d = scratch("jpeg");
+        let p = d.join("flat.jpg");
+        image::GrayImage::from_pixel(8, 8, image::Luma([128]))
+            .save(&p)
+            .unwrap();
+        let spec = ImageSpec {
+            h: 8,
+            w: 8,
+            c: 1,
+            resize: false,
+        };
+        let px = load_image(&p, &spec).unwrap();
+        assert_eq!(px.len(), 64);
+        assert!(px.iter().all(|&v| v.abs_diff(128) <= 2), "{px:?}");
+        fs::remove_dir_all(&d).unwrap();
+    }
+
+    #[test]
     fn size_is_refused_or_resized() {
         let d = scratch("size");
         let p = d.join("big.png");
