@@ -28,6 +28,23 @@ pub fn output_len(
 }
 
 impl Window {
+    /// A window from (height, width) pairs of kernel size, stride and
+    /// dilation, and padding `[top, left, bottom, right]`.
+    pub const fn new(k: (u16, u16), stride: (u16, u16), dil: (u16, u16), pad: [u16; 4]) -> Self {
+        Window {
+            kh: k.0,
+            kw: k.1,
+            stride_h: stride.0,
+            stride_w: stride.1,
+            dil_h: dil.0,
+            dil_w: dil.1,
+            pad_top: pad[0],
+            pad_left: pad[1],
+            pad_bottom: pad[2],
+            pad_right: pad[3],
+        }
+    }
+
     /// Output (height, width) for an input of `in_h`×`in_w`, or `None` when
     /// the window is degenerate or larger than the padded input.
     pub fn output_hw(&self, in_h: u16, in_w: u16) -> Option<(u16, u16)> {
@@ -62,7 +79,7 @@ impl Padding {
         stride: (u16, u16),
         dil: (u16, u16),
     ) -> Window {
-        let [pad_top, pad_left, pad_bottom, pad_right] = match self {
+        let pad = match self {
             Padding::Valid => [0; 4],
             Padding::Explicit(p) => p,
             Padding::Same => {
@@ -71,18 +88,7 @@ impl Padding {
                 [t, l, b, r]
             }
         };
-        Window {
-            kh: k.0,
-            kw: k.1,
-            stride_h: stride.0,
-            stride_w: stride.1,
-            dil_h: dil.0,
-            dil_w: dil.1,
-            pad_top,
-            pad_left,
-            pad_bottom,
-            pad_right,
-        }
+        Window::new(k, stride, dil, pad)
     }
 }
 

@@ -8,18 +8,7 @@ use midge_runtime::geometry::output_len;
 use midge_runtime::{Padding, Window};
 
 fn win(k: u16, s: u16, d: u16, p: u16) -> Window {
-    Window {
-        kh: k,
-        kw: k,
-        stride_h: s,
-        stride_w: s,
-        dil_h: d,
-        dil_w: d,
-        pad_top: p,
-        pad_left: p,
-        pad_bottom: p,
-        pad_right: p,
-    }
+    Window::new((k, k), (s, s), (d, d), [p; 4])
 }
 
 #[test]

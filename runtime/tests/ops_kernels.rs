@@ -14,18 +14,7 @@ use rand_chacha::ChaCha8Rng;
 
 #[allow(clippy::too_many_arguments)]
 fn window(kh: u16, kw: u16, sh: u16, sw: u16, dh: u16, dw: u16, pad: [u16; 4]) -> Window {
-    Window {
-        kh,
-        kw,
-        stride_h: sh,
-        stride_w: sw,
-        dil_h: dh,
-        dil_w: dw,
-        pad_top: pad[0],
-        pad_left: pad[1],
-        pad_bottom: pad[2],
-        pad_right: pad[3],
-    }
+    Window::new((kh, kw), (sh, sw), (dh, dw), pad)
 }
 
 /// A random window and input that give a non-empty output. `big` allows

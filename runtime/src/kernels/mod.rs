@@ -143,18 +143,7 @@ fn pos(o: usize, k: usize, stride: u16, dil: u16, pad_lo: u16) -> usize {
 /// The full-input window of global average pooling (`h`×`w`, unit stride
 /// and dilation, no padding).
 pub const fn global_window(h: u16, w: u16) -> Window {
-    Window {
-        kh: h,
-        kw: w,
-        stride_h: 1,
-        stride_w: 1,
-        dil_h: 1,
-        dil_w: 1,
-        pad_top: 0,
-        pad_left: 0,
-        pad_bottom: 0,
-        pad_right: 0,
-    }
+    Window::new((h, w), (1, 1), (1, 1), [0; 4])
 }
 
 /// Checks the slice lengths every loop nest relies on.
