@@ -128,27 +128,33 @@ fn tap(o: usize, k: usize, stride: u16, dil: u16, pad: u16, len: u16) -> Option<
     (p < len as usize).then_some(p)
 }
 
+/// The in-bounds taps of output pixel (`oy`, `ox`): (tap index ky·kw + kx,
+/// input pixel index iy·W + ix). Padding taps are skipped: they read 0.
+fn taps(w: &Window, xs: Shape, oy: usize, ox: usize) -> impl Iterator<Item = (usize, usize)> + '_ {
+    let kw = w.kw as usize;
+    (0..w.kh as usize)
+        .filter_map(move |ky| Some((ky, tap(oy, ky, w.stride_h, w.dil_h, w.pad_top, xs.h)?)))
+        .flat_map(move |(ky, iy)| {
+            (0..kw).filter_map(move |kx| {
+                let ix = tap(ox, kx, w.stride_w, w.dil_w, w.pad_left, xs.w)?;
+                Some((ky * kw + kx, iy * xs.w as usize + ix))
+            })
+        })
+}
+
 fn conv2d(x: &[f32], xs: Shape, os: Shape, w: &Window, weight: &[f32], bias: &[f32]) -> Vec<f32> {
     let (ic, oc) = (xs.c as usize, os.c as usize);
-    let (kh, kw) = (w.kh as usize, w.kw as usize);
+    let window_len = w.kh as usize * w.kw as usize * ic;
     let mut y = vec![0.0f32; os.elems()];
     for oy in 0..os.h as usize {
         for ox in 0..os.w as usize {
             let out = &mut y[(oy * os.w as usize + ox) * oc..][..oc];
             out.copy_from_slice(bias);
-            for ky in 0..kh {
-                let Some(iy) = tap(oy, ky, w.stride_h, w.dil_h, w.pad_top, xs.h) else {
-                    continue;
-                };
-                for kx in 0..kw {
-                    let Some(ix) = tap(ox, kx, w.stride_w, w.dil_w, w.pad_left, xs.w) else {
-                        continue;
-                    };
-                    let px = &x[(iy * xs.w as usize + ix) * ic..][..ic];
-                    for (o, acc) in out.iter_mut().enumerate() {
-                        let wr = &weight[((o * kh + ky) * kw + kx) * ic..][..ic];
-                        *acc += wr.iter().zip(px).map(|(a, b)| a * b).sum::<f32>();
-                    }
+            for (t, i) in taps(w, xs, oy, ox) {
+                let px = &x[i * ic..][..ic];
+                for (o, acc) in out.iter_mut().enumerate() {
+                    let wr = &weight[o * window_len + t * ic..][..ic];
+                    *acc += wr.iter().zip(px).map(|(a, b)| a * b).sum::<f32>();
                 }
             }
         }
@@ -165,25 +171,16 @@ fn depthwise(
     bias: &[f32],
 ) -> Vec<f32> {
     let c = xs.c as usize;
-    let (kh, kw) = (w.kh as usize, w.kw as usize);
     let mut y = vec![0.0f32; os.elems()];
     for oy in 0..os.h as usize {
         for ox in 0..os.w as usize {
             let out = &mut y[(oy * os.w as usize + ox) * c..][..c];
             out.copy_from_slice(bias);
-            for ky in 0..kh {
-                let Some(iy) = tap(oy, ky, w.stride_h, w.dil_h, w.pad_top, xs.h) else {
-                    continue;
-                };
-                for kx in 0..kw {
-                    let Some(ix) = tap(ox, kx, w.stride_w, w.dil_w, w.pad_left, xs.w) else {
-                        continue;
-                    };
-                    let px = &x[(iy * xs.w as usize + ix) * c..][..c];
-                    let wr = &weight[(ky * kw + kx) * c..][..c];
-                    for ((acc, a), b) in out.iter_mut().zip(wr).zip(px) {
-                        *acc += a * b;
-                    }
+            for (t, i) in taps(w, xs, oy, ox) {
+                let px = &x[i * c..][..c];
+                let wr = &weight[t * c..][..c];
+                for ((acc, a), b) in out.iter_mut().zip(wr).zip(px) {
+                    *acc += a * b;
                 }
             }
         }
@@ -202,19 +199,11 @@ fn pool(x: &[f32], xs: Shape, os: Shape, w: &Window, max: bool) -> Vec<f32> {
             let out = &mut y[(oy * os.w as usize + ox) * c..][..c];
             let mut acc = vec![if max { f32::NEG_INFINITY } else { 0.0 }; c];
             let mut count = 0usize;
-            for ky in 0..w.kh as usize {
-                let Some(iy) = tap(oy, ky, w.stride_h, w.dil_h, w.pad_top, xs.h) else {
-                    continue;
-                };
-                for kx in 0..w.kw as usize {
-                    let Some(ix) = tap(ox, kx, w.stride_w, w.dil_w, w.pad_left, xs.w) else {
-                        continue;
-                    };
-                    count += 1;
-                    let px = &x[(iy * xs.w as usize + ix) * c..][..c];
-                    for (a, v) in acc.iter_mut().zip(px) {
-                        *a = if max { a.max(*v) } else { *a + v };
-                    }
+            for (_, i) in taps(w, xs, oy, ox) {
+                count += 1;
+                let px = &x[i * c..][..c];
+                for (a, v) in acc.iter_mut().zip(px) {
+                    *a = if max { a.max(*v) } else { *a + v };
                 }
             }
             for (o, a) in out.iter_mut().zip(&acc) {
