@@ -247,8 +247,11 @@ pub const DEFAULT_SEED: u64 = 0x6D_6964_6765;
 /// quantized with its weights and calibration images when it names both,
 /// else with seeded synthetic weights and synthetic calibration images.
 pub fn model_bytes_for(path: &Path, seed: u64) -> Result<Vec<u8>> {
-    let place = path.display().to_string();
-    if path.extension().and_then(|e| e.to_str()) == Some("toml") {
+    let is_toml = path
+        .extension()
+        .and_then(|e| e.to_str())
+        .is_some_and(|e| e.eq_ignore_ascii_case("toml"));
+    if is_toml {
         let desc = Description::load(path)?;
         if desc.weights.is_some() && desc.calibration.is_some() {
             return Ok(
@@ -259,7 +262,7 @@ pub fn model_bytes_for(path: &Path, seed: u64) -> Result<Vec<u8>> {
         }
         return Ok(synth::synth_quantize(&desc, seed)?.bytes);
     }
-    std::fs::read(path).map_err(|e| Error::new(&place, format!("cannot read model file: {e}")))
+    crate::files::read(path, &crate::limits::MODEL_FILE)
 }
 
 fn fmt_bytes(b: u64) -> String {

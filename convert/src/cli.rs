@@ -11,7 +11,7 @@ use midge_runtime::{ElemType, Model, Op};
 
 use crate::calibrate::RangeMethod;
 use crate::compare::{self, op_name, CompareOptions};
-use crate::error::{Error, Result};
+use crate::error::{escape, escape_path, Error, Result};
 use crate::firmware_module;
 use crate::graph::Precision;
 use crate::images::{self, ImageSpec};
@@ -91,11 +91,26 @@ pub struct ConvertFlags {
     #[arg(long, value_enum, default_value = "percentile")]
     pub calibration_method: MethodArg,
     /// Percentile (in percent, 50..=100) for --calibration-method percentile.
-    #[arg(long, default_value_t = 99.99)]
+    #[arg(long, default_value_t = 99.99, allow_negative_numbers = true, value_parser = parse_percentile)]
     pub percentile: f64,
     /// Calibration image folder instead of the description's `calibration`.
     #[arg(long, value_name = "DIR")]
     pub calibration: Option<PathBuf>,
+}
+
+/// `--percentile`: a number of percent in 50..=100.
+fn parse_percentile(s: &str) -> std::result::Result<f64, String> {
+    let p: f64 = s
+        .trim()
+        .parse()
+        .map_err(|_| "expected a number of percent in 50..=100".to_string())?;
+    if (50.0..=100.0).contains(&p) {
+        Ok(p)
+    } else {
+        Err(format!(
+            "expected a number of percent in 50..=100, found {p}"
+        ))
+    }
 }
 
 impl ConvertFlags {
@@ -223,11 +238,14 @@ fn method_text(m: RangeMethod) -> String {
 
 fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
     let opts = a.flags.options();
-    let conv = quantize::quantize_description(&a.description, &opts)?;
     let out = a
         .output
         .clone()
         .unwrap_or_else(|| default_output(&a.description));
+    let mut outs: Vec<&Path> = vec![&out];
+    outs.extend(a.rust_module.as_deref());
+    output::check_destinations(&outs, &[&a.description])?;
+    let conv = quantize::quantize_description(&a.description, &opts)?;
     let q = &conv.quantized;
     let module = a
         .rust_module
@@ -237,11 +255,12 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
     if let Some((path, text)) = &module {
         files.push((path, text.as_bytes()));
     }
-    output::write_all_atomic(&files)?;
+    output::write_outputs(&files, &conv.inputs(&a.description))?;
     for w in &conv.warnings {
         eprintln!(
-            "warning: {}: weight tensor {w} is not used by the description",
-            a.description.display()
+            "warning: {}: weight tensor {} is not used by the description",
+            escape_path(&a.description),
+            escape(w)
         );
     }
     let int8 = conv
@@ -252,9 +271,9 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
         .count();
     println!(
         "wrote {} ({} bytes): model {}, {} runtime layers for {} folded layers ({} int8, {} fp16)",
-        out.display(),
+        escape_path(&out),
         q.bytes.len(),
-        q.spec.name,
+        escape(&q.spec.name),
         q.spec.layers.len(),
         conv.graph.nodes.len(),
         int8,
@@ -272,7 +291,7 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
         over(q.plan.workspace_len, q.plan.lower_bound)
     );
     if let Some((path, _)) = &module {
-        println!("rust module: {}", path.display());
+        println!("rust module: {}", escape_path(path));
     }
     Ok(0)
 }
@@ -309,6 +328,11 @@ fn drop_status(drop_pp: f64, max_drop: Option<f64>) -> i32 {
 fn cmd_assess(a: &AssessArgs) -> Result<i32> {
     check_max_drop(a.max_drop)?;
     let opts = a.flags.options();
+    let out = a
+        .output
+        .clone()
+        .unwrap_or_else(|| default_output(&a.description));
+    output::check_destinations(&[&out], &[&a.description])?;
     let conv = quantize::quantize_description(&a.description, &opts)?;
     let place = a.description.display().to_string();
     let target = match (&a.target, &conv.desc.target) {
@@ -335,11 +359,10 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
     let q = &conv.quantized;
     let ev = crate::budget::evaluate(&q.bytes, &target, &budget_opts)
         .map_err(|e| Error::new(&place, e.to_string()))?;
-    let out = a
-        .output
-        .clone()
-        .unwrap_or_else(|| default_output(&a.description));
-    output::write_atomic(&out, &q.bytes)?;
+    let mut inputs = conv.inputs(&a.description);
+    let target_path = a.target.as_ref().map(PathBuf::from);
+    inputs.extend(target_path.as_deref());
+    output::write_outputs(&[(&out, &q.bytes)], &inputs)?;
     if a.json {
         let value = serde_json::json!({
             "model": out.display().to_string(),
@@ -352,7 +375,7 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
     } else {
         println!(
             "wrote {} ({} bytes; workspace {} bytes, lower bound {} bytes)\n",
-            out.display(),
+            escape_path(&out),
             q.bytes.len(),
             q.plan.workspace_len,
             q.plan.lower_bound
@@ -393,7 +416,7 @@ fn cmd_compare(a: &CompareArgs) -> Result<i32> {
 /// Read a model file into aligned bytes and check that it parses.
 pub fn read_model(path: &Path) -> Result<AlignedBytes> {
     let place = path.display().to_string();
-    let raw = std::fs::read(path).map_err(|e| Error::new(&place, format!("cannot read: {e}")))?;
+    let raw = crate::files::read(path, &crate::limits::MODEL_FILE)?;
     let bytes = AlignedBytes::from_slice(&raw);
     Model::parse(&bytes)
         .map_err(|e| Error::new(&place, format!("not a valid midge model: {e}")))?;
@@ -447,12 +470,12 @@ fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
         let label = |i: usize| {
             model
                 .label(i)
-                .map(str::to_string)
+                .map(|l| escape(l).into_owned())
                 .unwrap_or_else(|| format!("class {i}"))
         };
         let mut line = format!(
             "{}: {} ({:.3})",
-            img.display(),
+            escape_path(img),
             label(top),
             p.get(top).copied().unwrap_or(0.0)
         );
@@ -478,13 +501,14 @@ fn elem_name(e: ElemType) -> &'static str {
 /// The text `midge show` prints.
 pub fn show_text(model: &Model<'_>) -> String {
     let mut s = String::new();
-    let labels: Vec<&str> = (0..model.label_count())
+    let labels: Vec<String> = (0..model.label_count())
         .filter_map(|i| model.label(i))
+        .map(|l| escape(l).into_owned())
         .collect();
     let _ = writeln!(
         s,
         "model {} — {} bytes, {} layers, {} tensors",
-        model.name(),
+        escape(model.name()),
         model.bytes().len(),
         model.layer_count(),
         model.tensor_count()

@@ -11,7 +11,7 @@ use serde::de::{self, Deserializer, SeqAccess, Visitor};
 use serde::ser::{SerializeSeq, Serializer};
 use serde::{Deserialize, Serialize};
 
-use crate::{Error, Result};
+use crate::{limits, Error, Result};
 
 /// Numeric precision of a layer on the device.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default, Serialize, Deserialize)]
@@ -370,8 +370,7 @@ pub const DEFAULT_BN_EPS: f32 = 1e-5;
 impl Description {
     /// Read, parse and validate a description file.
     pub fn load(path: &Path) -> Result<Description> {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| Error::new(path.display().to_string(), format!("cannot read: {e}")))?;
+        let text = crate::files::read_text(path, &crate::limits::DESCRIPTION_FILE)?;
         Description::from_toml_str(&text, path)
     }
 
@@ -465,6 +464,7 @@ impl Description {
                 }
             }
         }
+        limits::check_description(&place, self.input.shape().elems() as u64, &out)?;
         let last = out.last().expect("checked non-empty");
         let s = last.in_shapes[0];
         if last.kind == LayerKind::Flatten && s.h as usize * s.w as usize > 1 && s.c > 1 {
@@ -494,11 +494,36 @@ impl Description {
     }
 
     fn check_top(&self, place: &str) -> Result<()> {
+        limits::check(
+            place,
+            "name (bytes)",
+            self.name.len() as u64,
+            limits::MAX_NAME_BYTES,
+        )?;
         if self.labels.is_empty() {
             return Err(Error::new(format!("{place}: labels"), "no labels given"));
         }
+        limits::check(
+            place,
+            "labels (count)",
+            self.labels.len() as u64,
+            limits::MAX_LABELS,
+        )?;
         let mut seen = BTreeSet::new();
-        for l in &self.labels {
+        for (k, l) in self.labels.iter().enumerate() {
+            let key = format!("labels[{k}]");
+            if l.is_empty() {
+                return Err(Error::new(
+                    format!("{place}: {key}"),
+                    "label is empty; expected a name (it is also the class folder's name)",
+                ));
+            }
+            limits::check(
+                place,
+                &format!("{key} (bytes)"),
+                l.len() as u64,
+                limits::MAX_LABEL_BYTES,
+            )?;
             if !seen.insert(l) {
                 return Err(Error::new(
                     format!("{place}: labels"),
@@ -508,6 +533,13 @@ impl Description {
         }
         let inp = &self.input;
         let ip = format!("{place}: input");
+        for (key, v, limit) in [
+            ("input.height", inp.height, limits::MAX_INPUT_SIDE),
+            ("input.width", inp.width, limits::MAX_INPUT_SIDE),
+            ("input.channels", inp.channels, limits::MAX_CHANNELS),
+        ] {
+            limits::check(place, key, v.into(), limit)?;
+        }
         if inp.height == 0 || inp.width == 0 || inp.channels == 0 {
             return Err(Error::new(
                 ip,
@@ -549,8 +581,38 @@ impl Description {
                 format!("must be positive, found {}", inp.pixel_range),
             ));
         }
+        limits::check_f32(
+            place,
+            "input.pixel_range",
+            inp.pixel_range,
+            limits::MAX_PIXEL_RANGE,
+        )?;
         if self.layers.is_empty() {
             return Err(Error::new(place, "no [[layer]] given"));
+        }
+        limits::check(
+            place,
+            "[[layer]] tables",
+            self.layers.len() as u64,
+            limits::MAX_LAYERS,
+        )?;
+        for (i, l) in self.layers.iter().enumerate() {
+            let lp = format!("{place}: layer {}", i + 1);
+            let refs = l.from.iter().flat_map(|r| r.0.iter());
+            for (key, s) in l
+                .name
+                .iter()
+                .map(|n| ("name", n))
+                .chain(l.tensor.iter().map(|n| ("tensor", n)))
+                .chain(refs.map(|n| ("from", n)))
+            {
+                limits::check(
+                    &lp,
+                    &format!("{key} (bytes)"),
+                    s.len() as u64,
+                    limits::MAX_NAME_BYTES,
+                )?;
+            }
         }
         Ok(())
     }
@@ -659,6 +721,7 @@ impl Description {
                     if a == 0 || b == 0 {
                         return Err(err(format!("`{key}` must be at least 1, found [{a}, {b}]")));
                     }
+                    limits::check(lp, key, a.max(b).into(), limits::MAX_WINDOW_SIDE)?;
                 }
                 let pad = l.padding.map_or(Padding::Valid, |p| p.0);
                 let w = pad.resolve(
@@ -711,6 +774,7 @@ impl Description {
                 if c == 0 {
                     return Err(err("`out_channels` must be at least 1".into()));
                 }
+                limits::check(lp, "out_channels", c.into(), limits::MAX_CHANNELS)?;
                 Shape::new(oh, ow, c)
             }
             LayerKind::GlobalAvgPool => Shape::new(1, 1, ins.c),
@@ -734,6 +798,12 @@ impl Description {
                 if n == 0 {
                     return Err(err("`out_features` must be at least 1".into()));
                 }
+                let key = if l.out_features.is_some() {
+                    "out_features"
+                } else {
+                    "out_channels"
+                };
+                limits::check(lp, key, n.into(), limits::MAX_CHANNELS)?;
                 Shape::new(1, 1, n)
             }
             LayerKind::Add => {

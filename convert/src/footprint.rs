@@ -108,7 +108,7 @@ pub fn runtime_cost(triple: &str) -> Result<RuntimeCost> {
     let build = firmware::build(triple)?;
     let read = |p: &std::path::Path| -> Result<ElfSizes> {
         let place = p.display().to_string();
-        let b = std::fs::read(p).map_err(|e| Error::new(&place, format!("cannot read: {e}")))?;
+        let b = crate::files::read(p, &crate::limits::ELF_FILE)?;
         elf_sizes(&b, &place)
     };
     let with_runtime = read(&build.footprint)?;

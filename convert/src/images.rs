@@ -2,12 +2,14 @@
 //! into HWC u8 pixels of the model's input size, plain folders (sorted) and
 //! labelled folders (one sub-folder per class label).
 
-use std::fs;
+use std::io::Cursor;
 use std::path::{Path, PathBuf};
 
 use image::imageops::FilterType;
 
 use crate::error::{Error, Result};
+use crate::files;
+use crate::limits;
 
 /// What the model's input wants: size, channel count (1 = grey, 3 = RGB) and
 /// whether other sizes are resized (bilinear, `FilterType::Triangle`) or refused.
@@ -25,22 +27,46 @@ pub struct ImageSpec {
 /// when it takes three. Alpha is dropped.
 pub fn load_image(path: &Path, spec: &ImageSpec) -> Result<Vec<u8>> {
     let place = path.display().to_string();
-    let img = image::ImageReader::open(path)
-        .map_err(|e| Error::new(&place, format!("cannot open: {e}")))?
-        .with_guessed_format()
-        .map_err(|e| Error::new(&place, format!("cannot read: {e}")))?
-        .decode()
-        .map_err(|e| Error::new(&place, format!("not a readable PNG/JPEG/BMP image: {e}")))?;
+    let bytes = files::read(path, &limits::IMAGE_FILE)?;
+    let reader = || {
+        image::ImageReader::new(Cursor::new(&bytes[..]))
+            .with_guessed_format()
+            .map_err(|e| Error::new(&place, format!("cannot read: {e}")))
+    };
+    let unreadable = |e: image::ImageError| {
+        Error::new(&place, format!("not a readable PNG/JPEG/BMP image: {e}"))
+    };
+    // The header's size first: refuse before the decoder allocates.
+    let (w, h) = reader()?.into_dimensions().map_err(unreadable)?;
+    let side = w.max(h) as u64;
+    limits::check(
+        &place,
+        "image width or height",
+        side,
+        limits::MAX_IMAGE_SIDE,
+    )?;
+    if (h, w) != (spec.h, spec.w) {
+        if !spec.resize {
+            return Err(wrong_size(&place, (w, h), spec));
+        }
+        limits::check(
+            &place,
+            "pixels of an image to resize",
+            w as u64 * h as u64,
+            limits::MAX_IMAGE_PIXELS,
+        )?;
+    }
+    let mut decoder_limits = image::Limits::default();
+    decoder_limits.max_image_width = Some(limits::MAX_IMAGE_SIDE as u32);
+    decoder_limits.max_image_height = Some(limits::MAX_IMAGE_SIDE as u32);
+    decoder_limits.max_alloc = Some(limits::MAX_IMAGE_DECODE_BYTES);
+    let mut r = reader()?;
+    r.limits(decoder_limits);
+    let img = r.decode().map_err(unreadable)?;
     let (w, h) = (img.width(), img.height());
     let img = if (h, w) != (spec.h, spec.w) {
         if !spec.resize {
-            return Err(Error::new(
-                &place,
-                format!(
-                    "image is {w}×{h} (width×height), the model input is {}×{}; resize it, or allow resizing (`resize = true` in the description, `--resize` for classify)",
-                    spec.w, spec.h
-                ),
-            ));
+            return Err(wrong_size(&place, (w, h), spec));
         }
         img.resize_exact(spec.w, spec.h, FilterType::Triangle)
     } else {
@@ -56,38 +82,37 @@ pub fn load_image(path: &Path, spec: &ImageSpec) -> Result<Vec<u8>> {
     }
 }
 
-fn is_hidden(p: &Path) -> bool {
-    p.file_name()
-        .map(|n| n.to_string_lossy().starts_with('.'))
-        .unwrap_or(false)
+fn wrong_size(place: &str, (w, h): (u32, u32), spec: &ImageSpec) -> Error {
+    Error::new(
+        place,
+        format!(
+            "image is {w}×{h} (width×height), the model input is {}×{}; resize it, or allow resizing (`resize = true` in the description, `--resize` for classify)",
+            spec.w, spec.h
+        ),
+    )
 }
 
-fn entries(dir: &Path) -> Result<Vec<PathBuf>> {
-    let place = dir.display().to_string();
-    let rd =
-        fs::read_dir(dir).map_err(|e| Error::new(&place, format!("cannot list folder: {e}")))?;
-    let mut out = Vec::new();
-    for e in rd {
-        let e = e.map_err(|e| Error::new(&place, format!("cannot list folder: {e}")))?;
-        let p = e.path();
-        if !is_hidden(&p) {
-            out.push(p);
-        }
-    }
-    out.sort();
-    Ok(out)
+/// The regular files among `entries` (sub-folders left out).
+fn files_of(entries: Vec<files::Entry>) -> Vec<PathBuf> {
+    entries
+        .into_iter()
+        .filter(|e| !e.is_dir)
+        .map(|e| e.path)
+        .collect()
+}
+
+fn no_images(dir: &Path) -> Error {
+    Error::new(dir.display().to_string(), "folder holds no images")
 }
 
 /// The image files of a folder, sorted by name (deterministic). Hidden
-/// entries and sub-folders are skipped; an empty folder is an error. Files
-/// are checked when loaded: `load_folder` names any that are not images.
+/// entries and sub-folders are skipped, anything but a file or folder is
+/// refused (`files::list_folder`); an empty folder is an error. Files are
+/// checked when loaded: `load_folder` names any that are not images.
 pub fn folder_images(dir: &Path) -> Result<Vec<PathBuf>> {
-    let files: Vec<PathBuf> = entries(dir)?.into_iter().filter(|p| !p.is_dir()).collect();
+    let files = files_of(files::list_folder(dir)?);
     if files.is_empty() {
-        return Err(Error::new(
-            dir.display().to_string(),
-            "folder holds no images",
-        ));
+        return Err(no_images(dir));
     }
     Ok(files)
 }
@@ -104,20 +129,19 @@ pub fn load_folder(dir: &Path, spec: &ImageSpec) -> Result<Vec<Vec<u8>>> {
 /// labelled folder), sorted by path; hidden entries skipped. Used for
 /// calibration, where labels do not matter.
 pub fn all_images(dir: &Path) -> Result<Vec<PathBuf>> {
+    let place = dir.display().to_string();
     let mut out = Vec::new();
-    for p in entries(dir)? {
-        if p.is_dir() {
-            out.extend(entries(&p)?.into_iter().filter(|f| !f.is_dir()));
+    for e in files::list_folder(dir)? {
+        if e.is_dir {
+            out.extend(files_of(files::list_folder(&e.path)?));
         } else {
-            out.push(p);
+            out.push(e.path);
         }
+        limits::check(&place, "images", out.len() as u64, limits::MAX_IMAGES)?;
     }
     out.sort();
     if out.is_empty() {
-        return Err(Error::new(
-            dir.display().to_string(),
-            "folder holds no images",
-        ));
+        return Err(no_images(dir));
     }
     Ok(out)
 }
@@ -125,10 +149,10 @@ pub fn all_images(dir: &Path) -> Result<Vec<PathBuf>> {
 /// A labelled folder: one sub-folder per class, named exactly as the labels.
 /// Returns (file, label index) for every image, by label then by file name.
 pub fn labelled_folder(dir: &Path, labels: &[String]) -> Result<Vec<(PathBuf, usize)>> {
-    let subs: Vec<String> = entries(dir)?
+    let subs: Vec<String> = files::list_folder(dir)?
         .into_iter()
-        .filter(|p| p.is_dir())
-        .filter_map(|p| p.file_name().map(|n| n.to_string_lossy().into_owned()))
+        .filter(|e| e.is_dir)
+        .filter_map(|e| e.path.file_name().map(|n| n.to_string_lossy().into_owned()))
         .collect();
     let missing: Vec<&str> = labels
         .iter()
@@ -162,6 +186,12 @@ pub fn labelled_folder(dir: &Path, labels: &[String]) -> Result<Vec<(PathBuf, us
         for f in folder_images(&dir.join(l))? {
             out.push((f, k));
         }
+        limits::check(
+            &dir.display().to_string(),
+            "images",
+            out.len() as u64,
+            limits::MAX_IMAGES,
+        )?;
     }
     Ok(out)
 }
@@ -169,6 +199,7 @@ pub fn labelled_folder(dir: &Path, labels: &[String]) -> Result<Vec<(PathBuf, us
 #[cfg(test)]
 mod tests {
     use super::*;
+    use std::fs;
 
     fn scratch(tag: &str) -> PathBuf {
         let d = std::env::temp_dir().join(format!("midge-images-{tag}-{}", std::process::id()));

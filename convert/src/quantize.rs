@@ -695,6 +695,17 @@ pub struct Conversion {
     pub calibration_images: usize,
 }
 
+impl Conversion {
+    /// The files this conversion read (description, weights, target
+    /// profile): outputs may not replace them.
+    pub fn inputs<'a>(&'a self, description: &'a Path) -> Vec<&'a Path> {
+        let mut v = vec![description];
+        v.extend(self.desc.weights.as_deref());
+        v.extend(self.desc.target.as_deref());
+        v
+    }
+}
+
 /// The input image requirements of a description.
 pub fn image_spec(desc: &Description) -> ImageSpec {
     ImageSpec {
@@ -736,6 +747,14 @@ pub fn calibrate_graph(
 ) -> Result<(Vec<Range>, usize)> {
     let spec = image_spec(desc);
     let files = images::all_images(dir)?;
+    let held = (files.len() as u64)
+        .saturating_mul(u64::from(spec.h) * u64::from(spec.w) * u64::from(spec.c));
+    crate::limits::check(
+        &dir.display().to_string(),
+        "input bytes of all calibration images",
+        held,
+        crate::limits::MAX_CALIBRATION_BYTES,
+    )?;
     let pixels: Vec<Vec<u8>> = files
         .iter()
         .map(|f| images::load_image(f, &spec))

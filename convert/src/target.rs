@@ -79,8 +79,7 @@ impl Target {
     /// Read and check a profile file.
     pub fn load(path: &Path) -> Result<Target> {
         let place = path.display().to_string();
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| Error::new(&place, format!("cannot read target profile: {e}")))?;
+        let text = crate::files::read_text(path, &crate::limits::TARGET_FILE)?;
         Target::from_toml_str(&text, &place)
     }
 
@@ -188,7 +187,8 @@ impl Target {
     /// and this source tree.
     pub fn resolve(name_or_path: &str) -> Result<Target> {
         let p = Path::new(name_or_path);
-        if p.is_file() {
+        // Anything that exists is the file meant (a FIFO or folder is refused by `load`).
+        if p.exists() {
             return Target::load(p);
         }
         let file = format!("{name_or_path}.toml");

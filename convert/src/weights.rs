@@ -8,7 +8,7 @@ use std::path::Path;
 use safetensors::tensor::{Dtype, SafeTensors, TensorView};
 
 use crate::description::Description;
-use crate::{Error, Result};
+use crate::{limits, Error, Result};
 
 /// One tensor: PyTorch shape and row-major f32 values.
 #[derive(Clone, Debug, PartialEq)]
@@ -47,14 +47,14 @@ impl TensorMap {
     /// Read a safetensors file.
     pub fn load(path: &Path) -> Result<TensorMap> {
         let place = path.display().to_string();
-        let bytes =
-            std::fs::read(path).map_err(|e| Error::new(&place, format!("cannot read: {e}")))?;
+        let bytes = crate::files::read(path, &crate::limits::WEIGHTS_FILE)?;
         TensorMap::from_bytes(&bytes, &place)
     }
 
     /// Parse safetensors bytes; `origin` names them in messages. Every value
     /// must be finite. Tensors of other dtypes are kept out (see `skipped`).
     pub fn from_bytes(bytes: &[u8], origin: &str) -> Result<TensorMap> {
+        check_header(bytes, origin)?;
         let st = SafeTensors::deserialize(bytes).map_err(|e| {
             use safetensors::SafeTensorError as E;
             let why = match e {
@@ -176,6 +176,62 @@ impl TensorMap {
         safetensors::serialize(views, None)
             .map_err(|e| Error::new(&self.origin, format!("cannot write safetensors: {e}")))
     }
+}
+
+/// Sizes claimed by a safetensors header, checked against `limits` before
+/// the file is parsed: header length, tensor count, each tensor's and all
+/// tensors' f32 bytes (named by tensor). A header that is not JSON is left
+/// to the safetensors parser to describe.
+fn check_header(bytes: &[u8], origin: &str) -> Result<()> {
+    let Some(len) = bytes.get(..8) else {
+        return Ok(());
+    };
+    let len = u64::from_le_bytes(len.try_into().expect("8 bytes"));
+    if len > bytes.len() as u64 - 8 {
+        // Not a header at all (or a truncated file): the parser says which.
+        return Ok(());
+    }
+    limits::check(
+        origin,
+        "safetensors header length",
+        len,
+        limits::MAX_SAFETENSORS_HEADER_BYTES,
+    )?;
+    let Some(header) = bytes.get(8..8 + len as usize) else {
+        return Ok(());
+    };
+    let Ok(serde_json::Value::Object(entries)) = serde_json::from_slice(header) else {
+        return Ok(());
+    };
+    limits::check(
+        origin,
+        "safetensors tensors",
+        entries.len() as u64,
+        limits::MAX_SAFETENSORS_TENSORS,
+    )?;
+    let mut total = 0u64;
+    for (name, info) in &entries {
+        let Some(shape) = info.get("shape").and_then(|s| s.as_array()) else {
+            continue;
+        };
+        let dims: Option<Vec<u64>> = shape.iter().map(|d| d.as_u64()).collect();
+        let Some(dims) = dims else { continue };
+        let text: Vec<String> = dims.iter().map(|d| d.to_string()).collect();
+        let bytes = limits::product(dims).and_then(|n| n.checked_mul(4));
+        limits::check_opt(
+            &format!("{origin}: {name}"),
+            &format!("f32 bytes of shape [{}]", text.join(", ")),
+            bytes,
+            limits::MAX_TENSOR_BYTES,
+        )?;
+        total = total.saturating_add(bytes.unwrap_or(u64::MAX));
+    }
+    limits::check(
+        origin,
+        "f32 bytes of all tensors",
+        total,
+        limits::MAX_WEIGHT_BYTES,
+    )
 }
 
 fn to_f32(view: &TensorView<'_>) -> std::result::Result<Vec<f32>, String> {

@@ -1,11 +1,12 @@
 //! The `midge` CLI against a catalogue of bad inputs, each built in its own
 //! temporary folder from the tiny valid model of `quant_support`: every case
 //! must exit with status 2, print exactly one line on stderr naming the
-//! file / key / layer and the problem, and leave no new file behind.
+//! file / key / layer and the problem, leave no new file behind and leave
+//! every file that was there (a previous `out.midge` among them) as it was.
 
 mod quant_support;
 
-use std::collections::BTreeSet;
+use std::collections::BTreeMap;
 use std::fs;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -350,35 +351,43 @@ fn catalogue() -> Vec<Case> {
     ]
 }
 
-/// Every file under `dir`, relative paths.
-fn files(dir: &Path) -> BTreeSet<PathBuf> {
-    let mut out = BTreeSet::new();
+/// Every entry under `dir` (symbolic links and special files not followed),
+/// relative paths, with the bytes of the regular files.
+fn files(dir: &Path) -> BTreeMap<PathBuf, Option<Vec<u8>>> {
+    let mut out = BTreeMap::new();
     let mut stack = vec![dir.to_path_buf()];
     while let Some(d) = stack.pop() {
         for e in fs::read_dir(&d).unwrap() {
             let p = e.unwrap().path();
-            if p.is_dir() {
+            let t = fs::symlink_metadata(&p).unwrap().file_type();
+            if t.is_dir() {
                 stack.push(p);
             } else {
-                out.insert(p.strip_prefix(dir).unwrap().to_path_buf());
+                let bytes = t.is_file().then(|| fs::read(&p).unwrap());
+                out.insert(p.strip_prefix(dir).unwrap().to_path_buf(), bytes);
             }
         }
     }
     out
 }
 
+/// Bytes of the output file every case finds in place before it runs.
+const PREVIOUS_OUTPUT: &[u8] = b"the user's previous model file";
+
 #[test]
 fn bad_inputs_exit_2_with_one_line_and_no_output() {
-    let cases = catalogue();
+    let cases: Vec<Case> = catalogue().into_iter().chain(hostile_catalogue()).collect();
     assert!(cases.len() >= 20);
     let mut failures = Vec::new();
     for (i, case) in cases.iter().enumerate() {
         let dir = scratch(&format!("catalogue-{i}"));
         write_model(&dir, "", 7);
+        fs::write(dir.join("out.midge"), PREVIOUS_OUTPUT).unwrap();
         let argv = (case.prepare)(&dir);
         let before = files(&dir);
         let o = Command::new(env!("CARGO_BIN_EXE_midge"))
             .args(&argv)
+            .stdin(std::process::Stdio::null())
             .output()
             .expect("run midge");
         let err = String::from_utf8_lossy(&o.stderr).into_owned();
@@ -396,9 +405,17 @@ fn bad_inputs_exit_2_with_one_line_and_no_output() {
                 problems.push(format!("stderr does not mention {e:?}"));
             }
         }
-        let new: Vec<_> = after.difference(&before).collect();
+        let new: Vec<_> = after.keys().filter(|k| !before.contains_key(*k)).collect();
         if !new.is_empty() {
             problems.push(format!("left files behind: {new:?}"));
+        }
+        let changed: Vec<_> = before
+            .iter()
+            .filter(|(k, v)| after.get(*k) != Some(v))
+            .map(|(k, _)| k)
+            .collect();
+        if !changed.is_empty() {
+            problems.push(format!("changed or removed files: {changed:?}"));
         }
         eprintln!("  {:<52} {}", case.name, err.trim_end());
         if problems.is_empty() {
@@ -417,4 +434,481 @@ fn bad_inputs_exit_2_with_one_line_and_no_output() {
         failures.len()
     );
     assert!(failures.is_empty(), "\n{}", failures.join("\n"));
+}
+
+// ---- Hostile input (issue 10, input/output half): limits, special files,
+// ---- outputs that must not lose the user's files, escaping.
+
+/// A FIFO (named pipe) at `p`, made by the `mkfifo` command.
+fn mkfifo(p: &Path) {
+    let ok = Command::new("mkfifo").arg(p).status().expect("run mkfifo");
+    assert!(ok.success(), "mkfifo {}", p.display());
+}
+
+/// A character device node at `p` (a copy of /dev/null's numbers, 1:3, from
+/// the Linux devices list; common practice) when this process may make one,
+/// otherwise a FIFO: either is a special file midge must not replace.
+fn special_file(p: &Path) {
+    let made = Command::new("mknod")
+        .arg(p)
+        .args(["c", "1", "3"])
+        .stderr(std::process::Stdio::null())
+        .status()
+        .is_ok_and(|s| s.success());
+    if !made {
+        mkfifo(p);
+    }
+}
+
+/// Replace the whole `[input]` table's size lines.
+fn set_input(dir: &Path, h: u32, w: u32, extra: &str) {
+    edit_description(
+        dir,
+        "height = 8\nwidth = 8\n",
+        &format!("height = {h}\nwidth = {w}\n{extra}\n"),
+    );
+}
+
+/// A 54-byte BMP header (BITMAPFILEHEADER + BITMAPINFOHEADER, 24 bits per
+/// pixel; Microsoft's BMP file format) claiming `w`×`h` pixels, with no
+/// pixel data: only its header can be read.
+fn bmp_header(w: i32, h: i32) -> Vec<u8> {
+    let mut b = Vec::new();
+    b.extend(b"BM");
+    b.extend(54u32.to_le_bytes()); // file size as written here
+    b.extend([0u8; 4]);
+    b.extend(54u32.to_le_bytes()); // pixel data offset
+    b.extend(40u32.to_le_bytes());
+    b.extend(w.to_le_bytes());
+    b.extend(h.to_le_bytes());
+    b.extend(1u16.to_le_bytes()); // planes
+    b.extend(24u16.to_le_bytes()); // bits per pixel
+    b.extend([0u8; 24]); // no compression, sizes and palette left zero
+    b
+}
+
+/// A safetensors file whose header names one tensor `name` of `shape`.
+fn safetensors_claiming(name: &str, shape: &[u64]) -> Vec<u8> {
+    let dims: Vec<String> = shape.iter().map(|d| d.to_string()).collect();
+    let mut header = format!(
+        r#"{{"{name}":{{"dtype":"F32","shape":[{}],"data_offsets":[0,4]}}}}"#,
+        dims.join(",")
+    )
+    .into_bytes();
+    while header.len() % 8 != 0 {
+        header.push(b' ');
+    }
+    let mut b = (header.len() as u64).to_le_bytes().to_vec();
+    b.extend(header);
+    b.extend([0u8; 4]);
+    b
+}
+
+fn hostile_catalogue() -> Vec<Case> {
+    vec![
+        // Class 1: resource limits, checked before anything is allocated.
+        Case {
+            name: "input of 65535×65535 with resizing on",
+            prepare: |d| {
+                set_input(d, 65535, 65535, "resize = true");
+                quantize(d)
+            },
+            expect: &["model.toml: input.height", "65535", "limit of 2048"],
+        },
+        Case {
+            name: "input that needs gigabytes of activations",
+            prepare: |d| {
+                set_input(d, 2048, 2048, "resize = true");
+                quantize(d)
+            },
+            expect: &["model.toml", "activation bytes", "limit of"],
+        },
+        Case {
+            name: "huge kernel",
+            prepare: |d| {
+                edit_description(
+                    d,
+                    "kernel = 3\npadding = 1\n",
+                    "kernel = 60000\npadding = 1\n",
+                );
+                quantize(d)
+            },
+            expect: &["layer 1 (stem): kernel", "60000", "limit of 256"],
+        },
+        Case {
+            name: "huge dense layer",
+            prepare: |d| {
+                edit_description(d, "out_features = 3", "out_features = 60000");
+                quantize(d)
+            },
+            expect: &["(head): out_features", "60000", "limit of 4096"],
+        },
+        Case {
+            name: "too many layers",
+            prepare: |d| {
+                let p = d.join("model.toml");
+                let mut t = fs::read_to_string(&p).unwrap();
+                t.push_str(&"\n[[layer]]\nop = \"relu\"\n".repeat(1100));
+                fs::write(&p, t).unwrap();
+                quantize(d)
+            },
+            expect: &["model.toml: [[layer]] tables", "1112", "limit of 1024"],
+        },
+        Case {
+            name: "over-long label",
+            prepare: |d| {
+                let long = "l".repeat(300);
+                edit_description(d, "\"ring\", \"dot\"", &format!("\"ring\", \"{long}\""));
+                quantize(d)
+            },
+            expect: &["model.toml: labels[1] (bytes)", "300", "limit of 256"],
+        },
+        Case {
+            name: "over-long layer name",
+            prepare: |d| {
+                let long = "n".repeat(300);
+                edit_description(d, "name = \"stem\"", &format!("name = \"{long}\""));
+                quantize(d)
+            },
+            expect: &["model.toml: layer 1: name (bytes)", "300", "limit of 256"],
+        },
+        Case {
+            name: "over-long model name",
+            prepare: |d| {
+                let long = "m".repeat(70000);
+                edit_description(d, "name = \"tiny-residual\"", &format!("name = \"{long}\""));
+                quantize(d)
+            },
+            expect: &["model.toml: name (bytes)", "70000", "limit of 256"],
+        },
+        Case {
+            name: "empty label",
+            prepare: |d| {
+                edit_description(d, "\"dot\"", "\"\"");
+                quantize(d)
+            },
+            expect: &["model.toml: labels[1]", "label is empty"],
+        },
+        Case {
+            name: "pixel_range 3e38",
+            prepare: |d| {
+                edit_description(d, "pixel_range = 1.0", "pixel_range = 3e38");
+                quantize(d)
+            },
+            expect: &["model.toml: input.pixel_range", "limit of 65535"],
+        },
+        Case {
+            name: "safetensors tensor whose shape needs gigabytes",
+            prepare: |d| {
+                fs::write(
+                    weights(d),
+                    safetensors_claiming("stem.weight", &[100000, 100000]),
+                )
+                .unwrap();
+                quantize(d)
+            },
+            expect: &[
+                "weights.safetensors: stem.weight",
+                "[100000, 100000]",
+                "limit of",
+            ],
+        },
+        Case {
+            name: "safetensors shape that overflows 64 bits",
+            prepare: |d| {
+                let big = u64::MAX / 2;
+                fs::write(weights(d), safetensors_claiming("head.bias", &[big, big])).unwrap();
+                quantize(d)
+            },
+            expect: &["weights.safetensors: head.bias", "more than 2^64"],
+        },
+        Case {
+            name: "image header of 20000×20000 pixels (never decoded)",
+            prepare: |d| {
+                fs::write(d.join("calib").join("c97.bmp"), bmp_header(20000, 20000)).unwrap();
+                quantize(d)
+            },
+            expect: &["c97.bmp: image width or height", "20000", "limit of 8192"],
+        },
+        Case {
+            name: "image of the wrong size refused by its header",
+            prepare: |d| {
+                fs::write(d.join("calib").join("c96.bmp"), bmp_header(4000, 3000)).unwrap();
+                quantize(d)
+            },
+            expect: &["c96.bmp", "4000×3000", "8×8"],
+        },
+        Case {
+            name: "image too large to resize",
+            prepare: |d| {
+                set_input(d, 8, 8, "resize = true");
+                fs::write(d.join("calib").join("c95.bmp"), bmp_header(8000, 8000)).unwrap();
+                quantize(d)
+            },
+            expect: &["c95.bmp: pixels of an image to resize", "64000000"],
+        },
+        Case {
+            name: "--percentile -5",
+            prepare: |d| {
+                let mut a = quantize(d);
+                a.extend(args(&["--percentile", "-5"]));
+                a
+            },
+            expect: &["--percentile", "-5", "50..=100"],
+        },
+        // Class 2: only regular files are opened, never a FIFO or device.
+        Case {
+            name: "FIFO among the calibration images",
+            prepare: |d| {
+                mkfifo(&d.join("calib").join("c50.png"));
+                quantize(d)
+            },
+            expect: &["c50.png", "FIFO", "expected image files and folders"],
+        },
+        Case {
+            name: "FIFO in a validation class folder",
+            prepare: |d| {
+                mkfifo(&d.join("val").join("dot").join("v9.png"));
+                args(&["compare", &s(&d.join("model.toml"))])
+            },
+            expect: &["v9.png", "FIFO"],
+        },
+        Case {
+            name: "weights file is a FIFO",
+            prepare: |d| {
+                fs::remove_file(weights(d)).unwrap();
+                mkfifo(&weights(d));
+                quantize(d)
+            },
+            expect: &["weights.safetensors", "FIFO", "regular weights file"],
+        },
+        Case {
+            name: "weights are /dev/zero",
+            prepare: |d| {
+                edit_description(d, "\"weights.safetensors\"", "\"/dev/zero\"");
+                quantize(d)
+            },
+            expect: &["/dev/zero", "character device", "regular weights file"],
+        },
+        Case {
+            name: "model file is /dev/zero",
+            prepare: |_| show(Path::new("/dev/zero")),
+            expect: &["/dev/zero", "character device", "regular model file"],
+        },
+        Case {
+            name: "description is a folder",
+            prepare: |d| {
+                args(&[
+                    "quantize",
+                    &s(&d.join("calib")),
+                    "-o",
+                    &s(&d.join("out.midge")),
+                ])
+            },
+            expect: &["calib", "a folder", "regular description file"],
+        },
+        Case {
+            name: "target profile is a FIFO",
+            prepare: |d| {
+                let p = write_midge(d);
+                let t = d.join("board.toml");
+                mkfifo(&t);
+                args(&[
+                    "budget",
+                    &s(&p),
+                    "--target",
+                    &s(&t),
+                    "--no-emulate",
+                    "--no-runtime-size",
+                ])
+            },
+            expect: &["board.toml", "FIFO", "regular target profile file"],
+        },
+        // Classes 3 and 4: all-or-nothing output that never replaces the
+        // user's inputs or anything but a regular file.
+        Case {
+            name: "--rust-module names a folder (previous -o kept)",
+            prepare: |d| {
+                let m = d.join("module");
+                fs::create_dir(&m).unwrap();
+                let mut a = quantize(d);
+                a.extend(args(&["--rust-module", &s(&m)]));
+                a
+            },
+            expect: &["module", "is a folder", "regular files"],
+        },
+        Case {
+            name: "-o and --rust-module name the same file",
+            prepare: |d| {
+                let mut a = quantize(d);
+                a.extend(args(&[
+                    "--rust-module",
+                    &s(&d.join("calib").join("..").join("out.midge")),
+                ]));
+                a
+            },
+            expect: &["out.midge", "names the same file as the output"],
+        },
+        Case {
+            name: "-o is the description itself",
+            prepare: |d| {
+                args(&[
+                    "quantize",
+                    &s(&d.join("model.toml")),
+                    "-o",
+                    &s(&d.join("./model.toml")),
+                ])
+            },
+            expect: &["model.toml", "is the input", "choose another output path"],
+        },
+        Case {
+            name: "-o is the weights file",
+            prepare: |d| args(&["quantize", &s(&d.join("model.toml")), "-o", &s(&weights(d))]),
+            expect: &["weights.safetensors", "is the input"],
+        },
+        Case {
+            name: "-o is a device node",
+            prepare: |d| {
+                let p = d.join("device");
+                special_file(&p);
+                args(&["quantize", &s(&d.join("model.toml")), "-o", &s(&p)])
+            },
+            expect: &[
+                "device",
+                "midge writes only new files or replaces regular files",
+            ],
+        },
+        Case {
+            name: "-o is a symbolic link to a device",
+            prepare: |d| {
+                let p = d.join("null-link");
+                std::os::unix::fs::symlink("/dev/null", &p).unwrap();
+                args(&["quantize", &s(&d.join("model.toml")), "-o", &s(&p)])
+            },
+            expect: &["null-link", "a symbolic link"],
+        },
+        Case {
+            name: "assess -o is the description",
+            prepare: |d| {
+                args(&[
+                    "assess",
+                    &s(&d.join("model.toml")),
+                    "-o",
+                    &s(&d.join("model.toml")),
+                ])
+            },
+            expect: &["model.toml", "is the input"],
+        },
+        // Class 7: one line whatever the names hold.
+        Case {
+            name: "newline in a layer name",
+            prepare: |d| {
+                edit_description(d, "name = \"stem\"", "name = \"st\\nem\\u001b[2J\"");
+                edit_description(d, "kernel = 3\npadding = 1\n", "kernel = 0\npadding = 1\n");
+                quantize(d)
+            },
+            expect: &["layer 1 (st\\nem\\u{1b}[2J)", "`kernel` must be at least 1"],
+        },
+        Case {
+            name: "newline in a missing file's name",
+            prepare: |d| {
+                args(&[
+                    "quantize",
+                    &s(&d.join("a\nb.toml")),
+                    "-o",
+                    &s(&d.join("out.midge")),
+                ])
+            },
+            expect: &["a\\nb.toml", "cannot read"],
+        },
+        Case {
+            name: "newline and escape codes in a duplicate layer name",
+            prepare: |d| {
+                edit_description(d, "name = \"block\"", "name = \"x\\ny\\u001b[31m\"");
+                edit_description(d, "name = \"pool\"", "name = \"x\\ny\\u001b[31m\"");
+                quantize(d)
+            },
+            expect: &["x\\ny\\u{1b}[31m", "already used"],
+        },
+        // The extension test is not case-sensitive: MODEL.TOML is a description.
+        Case {
+            name: "budget of a description named in upper case",
+            prepare: |d| {
+                edit_description(d, "op = \"depthwise\"", "op = \"conv3d\"");
+                let up = d.join("UPPER.TOML");
+                fs::rename(d.join("model.toml"), &up).unwrap();
+                args(&[
+                    "budget",
+                    &s(&up),
+                    "--target",
+                    "m4-80",
+                    "--no-emulate",
+                    "--no-runtime-size",
+                ])
+            },
+            expect: &["UPPER.TOML", "unknown op", "conv3d"],
+        },
+    ]
+}
+
+/// Run midge with `argv`; (status, stdout, stderr).
+fn midge(argv: &[String]) -> (Option<i32>, String, String) {
+    let o = Command::new(env!("CARGO_BIN_EXE_midge"))
+        .args(argv)
+        .stdin(std::process::Stdio::null())
+        .output()
+        .expect("run midge");
+    (
+        o.status.code(),
+        String::from_utf8_lossy(&o.stdout).into_owned(),
+        String::from_utf8_lossy(&o.stderr).into_owned(),
+    )
+}
+
+/// Class 7 and 8 on success: a model name and a label holding a newline,
+/// Rust code and a terminal escape are shown escaped by `show` and land
+/// only inside string literals of the generated Rust module.
+#[test]
+fn hostile_names_are_escaped_in_show_and_in_generated_source() {
+    let d = scratch("catalogue-hostile-names");
+    write_model(&d, "", 7);
+    edit_description(
+        &d,
+        "name = \"tiny-residual\"",
+        "name = \"evil\\npub fn injected() {}\\n//\\u001b[2J\"",
+    );
+    edit_description(&d, "\"bar\"", "\"b\\nar\"");
+    // The label is a class folder name too.
+    fs::rename(d.join("val").join("bar"), d.join("val").join("b\nar")).unwrap();
+    let out = d.join("out.midge");
+    let module = d.join("model.rs");
+    let mut a = quantize(&d);
+    a.extend(args(&["--rust-module", &s(&module)]));
+    let (code, stdout, stderr) = midge(&a);
+    assert_eq!(code, Some(0), "{stderr}");
+    assert!(!stdout.contains('\u{1b}'), "{stdout}");
+    let text = fs::read_to_string(&module).unwrap();
+    for line in text.lines() {
+        assert!(
+            line.starts_with("//") || line.starts_with("pub ") || line.is_empty(),
+            "line outside the module's shape: {line:?}"
+        );
+        assert!(!line.starts_with("pub fn"), "{line:?}");
+    }
+    assert!(
+        text.contains(r#""evil\npub fn injected() {}\n//\u{1b}[2J""#),
+        "{text}"
+    );
+    assert!(text.contains(r#""b\nar""#), "{text}");
+    let (code, stdout, _) = midge(&show(&out));
+    assert_eq!(code, Some(0));
+    assert!(!stdout.contains('\u{1b}'), "{stdout}");
+    let first = stdout.lines().next().unwrap();
+    assert!(
+        first.contains(r"evil\npub fn injected() {}\n//\u{1b}[2J"),
+        "{first}"
+    );
+    assert!(stdout.contains(r"b\nar"), "{stdout}");
+    assert!(!stdout.lines().any(|l| l.starts_with("pub fn")), "{stdout}");
+    fs::remove_dir_all(&d).unwrap();
 }
