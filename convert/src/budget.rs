@@ -276,7 +276,11 @@ fn fmt_bytes(b: u64) -> String {
 impl Budget {
     /// The terminal report.
     pub fn render_text(&self) -> String {
-        let mut s = format!("budget of {} on {}\n", self.model, self.target);
+        let mut s = format!(
+            "budget of {} on {}\n",
+            crate::error::escape(&self.model),
+            crate::error::escape(&self.target)
+        );
         for (title, items, total, limit, margin) in [
             (
                 "flash",
@@ -326,13 +330,20 @@ impl Budget {
         if let (Some(i), Some(ms)) = (self.instructions, self.estimated_ms) {
             s += &format!("emulated: {i} instructions per inference; estimate {ms:.2} ms (CPI factor of the profile)\n");
         }
+        let missing: Vec<&str> = self
+            .flash
+            .iter()
+            .chain(&self.ram)
+            .filter(|i| i.bytes.is_none())
+            .map(|i| i.name.as_str())
+            .collect();
         s += &format!(
             "\nverdict: {}{}\n",
             if self.fits { "FITS" } else { "DOES NOT FIT" },
-            if self.complete {
-                ""
+            if missing.is_empty() {
+                String::new()
             } else {
-                " (some items not measured, see above)"
+                format!(" without {} (not measured, see above)", missing.join(", "))
             }
         );
         s
@@ -356,6 +367,12 @@ mod tests {
         assert!(b.fits && !b.complete);
         assert_eq!(b.flash_margin, t.flash_available() as i64 - 10);
         assert!(b.render_text().contains("not measured: no qemu"));
+        assert!(
+            b.render_text()
+                .contains("verdict: FITS without stack (not measured, see above)"),
+            "{}",
+            b.render_text()
+        );
     }
 }
 

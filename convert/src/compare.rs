@@ -10,7 +10,7 @@ use midge_runtime::{exec, ElemType, Model, Observer, TensorRecord};
 use serde::Serialize;
 
 use crate::calibrate::progress_bar;
-use crate::error::{Error, Result};
+use crate::error::{escape, Error, Result};
 use crate::float_ref;
 use crate::graph::{FloatGraph, Precision};
 use crate::images;
@@ -385,7 +385,7 @@ impl Report {
         let _ = writeln!(
             s,
             "{} — {} images, {} model ({} bytes, workspace {} B, lower bound {} B)",
-            self.model,
+            escape(&self.model),
             self.images,
             self.precision,
             self.model_bytes,
@@ -431,7 +431,10 @@ impl Report {
             let _ = writeln!(
                 s,
                 "  {:<16} {:>6} {:>8.1} {:>8.1}",
-                c.label, c.images, c.float_top1, c.quantized_top1
+                escape(&c.label),
+                c.images,
+                c.float_top1,
+                c.quantized_top1
             );
         }
         let _ = writeln!(s);
@@ -439,7 +442,7 @@ impl Report {
         let w = self
             .labels
             .iter()
-            .map(|l| l.len())
+            .map(|l| escape(l).chars().count())
             .max()
             .unwrap_or(4)
             .clamp(4, 12);
@@ -477,8 +480,9 @@ impl Report {
     }
 }
 
+/// The first `n` characters of `s` with control characters escaped.
 fn truncate(s: &str, n: usize) -> String {
-    s.chars().take(n).collect()
+    escape(s).chars().take(n).collect()
 }
 
 #[cfg(test)]

@@ -104,8 +104,38 @@ pub fn build(triple: &str) -> Result<FirmwareBuild> {
         .clone()
 }
 
+/// Why the firmware cannot be built here, if it cannot: its source (found
+/// through the source tree this binary was compiled from), cargo, or the
+/// target's standard library is missing.
+pub fn build_unavailable(triple: &str) -> Option<Error> {
+    let dir = firmware_dir();
+    if !dir.join("Cargo.toml").is_file() {
+        return Some(Error::new(
+            dir.display().to_string(),
+            "firmware source not found: this midge binary was built from a source tree that is not here (an installed binary); run it from a midge checkout to measure this",
+        ));
+    }
+    let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
+    let runs = Command::new(&cargo)
+        .arg("--version")
+        .stdin(Stdio::null())
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .status()
+        .is_ok_and(|s| s.success());
+    if !runs {
+        return Some(Error::new(
+            cargo.to_string_lossy().into_owned(),
+            "cargo, needed to build the firmware, cannot be run; install a Rust toolchain (rustup) to measure this",
+        ));
+    }
+    rust_target_installed(triple).err()
+}
+
 fn build_uncached(triple: &str) -> Result<FirmwareBuild> {
-    rust_target_installed(triple)?;
+    if let Some(e) = build_unavailable(triple) {
+        return Err(e);
+    }
     let dir = firmware_dir();
     let target_dir = Path::new(env!("CARGO_MANIFEST_DIR"))
         .join("..")

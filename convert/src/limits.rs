@@ -188,56 +188,61 @@ pub fn check_description(place: &str, input_elems: u64, layers: &[LayerInfo]) ->
     )
 }
 
-/// Rows of the README's "Limits" table, in its order: (what, limit).
+/// Rows of the README's "Limits" table, in its order: (what, limit). A
+/// test keeps the README in step with these values.
 pub fn table() -> Vec<(&'static str, String)> {
-    let mib = |b: u64| format!("{} MiB", b / MIB);
-    let file = |c: FileCap| (c.what, mib(c.max_bytes));
+    let size = |b: u64| {
+        if b >= MIB {
+            format!("{} MiB", b / MIB)
+        } else {
+            format!("{} KiB", b / KIB)
+        }
+    };
     vec![
-        (
-            "description file",
-            format!("{} KiB", DESCRIPTION_FILE.max_bytes / KIB),
-        ),
-        (
-            "target profile file",
-            format!("{} KiB", TARGET_FILE.max_bytes / KIB),
-        ),
-        file(WEIGHTS_FILE),
-        file(MODEL_FILE),
-        file(IMAGE_FILE),
+        ("description file", size(DESCRIPTION_FILE.max_bytes)),
+        ("target profile file", size(TARGET_FILE.max_bytes)),
+        ("weights file", size(WEIGHTS_FILE.max_bytes)),
+        ("model file", size(MODEL_FILE.max_bytes)),
+        ("image file", size(IMAGE_FILE.max_bytes)),
         ("input height, width", MAX_INPUT_SIDE.to_string()),
-        (
-            "channels, out_channels, out_features",
-            MAX_CHANNELS.to_string(),
-        ),
-        (
-            "kernel, stride, dilation (each side)",
-            MAX_WINDOW_SIDE.to_string(),
-        ),
+        ("channels", MAX_CHANNELS.to_string()),
+        ("kernel, stride, dilation", MAX_WINDOW_SIDE.to_string()),
         ("layers", MAX_LAYERS.to_string()),
         ("labels", MAX_LABELS.to_string()),
-        ("label bytes", MAX_LABEL_BYTES.to_string()),
-        ("name bytes", MAX_NAME_BYTES.to_string()),
+        ("label", format!("{MAX_LABEL_BYTES} bytes")),
+        ("name", format!("{MAX_NAME_BYTES} bytes")),
         ("pixel_range", MAX_PIXEL_RANGE.to_string()),
-        ("one weight tensor (f32)", mib(MAX_TENSOR_BYTES)),
-        ("all weights (f32)", mib(MAX_WEIGHT_BYTES)),
-        ("safetensors header", mib(MAX_SAFETENSORS_HEADER_BYTES)),
+        ("one weight tensor", size(MAX_TENSOR_BYTES)),
+        ("all weights", size(MAX_WEIGHT_BYTES)),
+        ("safetensors header", size(MAX_SAFETENSORS_HEADER_BYTES)),
         ("safetensors tensors", MAX_SAFETENSORS_TENSORS.to_string()),
-        (
-            "activations of one inference (f32)",
-            mib(MAX_ACTIVATION_BYTES),
-        ),
-        ("MACs of one inference", MAX_MACS.to_string()),
+        ("activations", size(MAX_ACTIVATION_BYTES)),
+        ("MACs", MAX_MACS.to_string()),
         ("image width, height", MAX_IMAGE_SIDE.to_string()),
-        ("pixels of an image to resize", MAX_IMAGE_PIXELS.to_string()),
-        ("image decoder memory", mib(MAX_IMAGE_DECODE_BYTES)),
+        ("image to resize", format!("{MAX_IMAGE_PIXELS} pixels")),
+        ("image decoder", size(MAX_IMAGE_DECODE_BYTES)),
         ("images in a folder", MAX_IMAGES.to_string()),
-        ("calibration pixels held", mib(MAX_CALIBRATION_BYTES)),
+        ("calibration images held", size(MAX_CALIBRATION_BYTES)),
     ]
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn readme_states_every_limit() {
+        let readme = include_str!("../../README.md");
+        let section = readme
+            .split("\n## Limits\n")
+            .nth(1)
+            .expect("README has a Limits section");
+        let section = section.split("\n## ").next().unwrap_or(section);
+        for (what, value) in table() {
+            let row = format!("| {what} | {value} |");
+            assert!(section.contains(&row), "README Limits lacks {row:?}");
+        }
+    }
 
     #[test]
     fn check_names_key_value_and_limit() {
