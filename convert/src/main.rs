@@ -27,7 +27,7 @@ fn main() {
             let first = first.join(" ");
             eprintln!(
                 "midge: {} (see midge --help)",
-                first.trim_start_matches("error: ")
+                midge_convert::error::escape(first.trim_start_matches("error: "))
             );
             std::process::exit(EXIT_BAD_INPUT);
         }

@@ -127,6 +127,12 @@ pub fn check_destinations(outputs: &[&Path], inputs: &[&Path]) -> Result<()> {
     let ids: Vec<PathBuf> = outputs.iter().map(|p| identity(p)).collect();
     for (k, path) in outputs.iter().enumerate() {
         let place = escape_path(path);
+        if path.file_name().is_none() {
+            return Err(Error::new(
+                place,
+                "names no file (a path ending in a file name is needed)",
+            ));
+        }
         if let Ok(meta) = fs::symlink_metadata(path) {
             if !meta.file_type().is_file() {
                 return Err(Error::new(

@@ -799,7 +799,28 @@ fn hostile_catalogue() -> Vec<Case> {
             },
             expect: &["model.toml", "is the input"],
         },
+        Case {
+            name: "-o names a folder's parent, not a file",
+            prepare: |d| {
+                args(&[
+                    "quantize",
+                    &s(&d.join("model.toml")),
+                    "-o",
+                    &s(&d.join("calib").join("..")),
+                ])
+            },
+            expect: &["calib/..", "names no file"],
+        },
         // Class 7: one line whatever the names hold.
+        Case {
+            name: "carriage return in a flag value",
+            prepare: |d| {
+                let mut a = quantize(d);
+                a.extend(args(&["--precision", "int4\rfp16"]));
+                a
+            },
+            expect: &["--precision", "int4\\rfp16"],
+        },
         Case {
             name: "newline in a layer name",
             prepare: |d| {
