@@ -67,7 +67,9 @@ impl Precision {
 /// precision = "fp16"  # per-layer override
 /// ```
 ///
-/// Keys that do not apply to a layer's op are errors. Avgpool takes no
+/// Sizes (input, channels, windows, layer and label counts, name lengths,
+/// weight and activation bytes) are bounded by `crate::limits`, whose
+/// table is README's "Limits". Keys that do not apply to a layer's op are errors. Avgpool takes no
 /// padding (PyTorch's count_include_pad differs from in-bounds averaging).
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -446,6 +448,7 @@ impl Description {
         for (i, l) in self.layers.iter().enumerate() {
             let lp = self.layer_place(i, &names[i]);
             let info = self.resolve_layer(i, l, &names, &index_of, &shapes, &lp)?;
+            limits::check_layer(&place, &info)?;
             shapes.push(info.out_shape);
             out.push(info);
         }

@@ -151,25 +151,34 @@ pub fn layer_macs(l: &LayerInfo) -> u64 {
     }
 }
 
-/// The description-wide sums, checked once the layers are resolved: the
-/// weight bytes of each tensor and of all of them, the f32 activation bytes
-/// of one inference and its MACs. `place` names the description file.
+/// The weight tensors of one checked layer, each against
+/// `MAX_TENSOR_BYTES` (as f32), named by layer and tensor; returns their
+/// bytes. Called as each layer is resolved, before any later check.
+pub fn check_layer(place: &str, l: &LayerInfo) -> Result<u64> {
+    let lp = format!("{place}: layer {} ({})", l.index + 1, l.name);
+    let mut total = 0u64;
+    for (name, shape) in l.expected_tensors() {
+        let bytes = f32_bytes(&shape);
+        check_opt(
+            &lp,
+            &format!("f32 bytes of tensor \"{name}\""),
+            bytes,
+            MAX_TENSOR_BYTES,
+        )?;
+        total = total.saturating_add(bytes.unwrap_or(u64::MAX));
+    }
+    Ok(total)
+}
+
+/// The description-wide sums once every layer passed [`check_layer`]: all
+/// weight bytes, the f32 activation bytes of one inference and its MACs.
+/// `place` names the description file.
 pub fn check_description(place: &str, input_elems: u64, layers: &[LayerInfo]) -> Result<()> {
     let mut weights = 0u64;
     let mut acts = input_elems * 4;
     let mut macs = 0u64;
     for l in layers {
-        let lp = format!("{place}: layer {} ({})", l.index + 1, l.name);
-        for (name, shape) in l.expected_tensors() {
-            let bytes = f32_bytes(&shape);
-            check_opt(
-                &lp,
-                &format!("f32 bytes of tensor \"{name}\""),
-                bytes,
-                MAX_TENSOR_BYTES,
-            )?;
-            weights = weights.saturating_add(bytes.unwrap_or(u64::MAX));
-        }
+        weights = weights.saturating_add(check_layer(place, l)?);
         acts = acts.saturating_add(l.out_shape.elems() as u64 * 4);
         macs = macs.saturating_add(layer_macs(l));
     }

@@ -544,6 +544,22 @@ fn hostile_catalogue() -> Vec<Case> {
             expect: &["(head): out_features", "60000", "limit of 4096"],
         },
         Case {
+            name: "conv2d weight tensor of gigabytes",
+            prepare: |d| {
+                edit_description(
+                    d,
+                    "out_channels = 4\nkernel = 3\npadding = 1\n",
+                    "out_channels = 4096\nkernel = 256\npadding = 128\n",
+                );
+                quantize(d)
+            },
+            expect: &[
+                "layer 1 (stem): f32 bytes of tensor \"stem.weight\"",
+                "3221225472",
+                "limit of 67108864",
+            ],
+        },
+        Case {
             name: "too many layers",
             prepare: |d| {
                 let p = d.join("model.toml");
