@@ -51,19 +51,6 @@ fn open_nonblocking(path: &Path) -> std::io::Result<File> {
     o.open(path)
 }
 
-/// Error unless `path` (after symbolic links) is a regular file; `what`
-/// says what it should be.
-pub fn require_regular(path: &Path, what: &str) -> Result<()> {
-    let place = path.display().to_string();
-    let meta =
-        fs::metadata(path).map_err(|e| Error::new(&place, format!("cannot read {what}: {e}")))?;
-    if meta.is_file() {
-        Ok(())
-    } else {
-        Err(not_regular(&place, &meta.file_type(), what))
-    }
-}
-
 fn not_regular(place: &str, t: &FileType, what: &str) -> Error {
     Error::new(
         place,
@@ -76,6 +63,12 @@ pub fn read(path: &Path, cap: &FileCap) -> Result<Vec<u8>> {
     let place = path.display().to_string();
     let what = cap.what;
     let cannot = |e: std::io::Error| Error::new(&place, format!("cannot read {what}: {e}"));
+    // Checked before opening (a socket cannot be opened at all) and again
+    // on the open file (the path may have been replaced in between).
+    let meta = fs::metadata(path).map_err(cannot)?;
+    if !meta.is_file() {
+        return Err(not_regular(&place, &meta.file_type(), what));
+    }
     let f = open_nonblocking(path).map_err(cannot)?;
     let meta = f.metadata().map_err(cannot)?;
     if !meta.is_file() {
