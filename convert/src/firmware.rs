@@ -108,7 +108,10 @@ pub fn build(triple: &str) -> Result<FirmwareBuild> {
 /// through the source tree this binary was compiled from), cargo, or the
 /// target's standard library is missing.
 pub fn build_unavailable(triple: &str) -> Option<Error> {
-    let dir = firmware_dir();
+    build_unavailable_from(&firmware_dir(), triple)
+}
+
+fn build_unavailable_from(dir: &Path, triple: &str) -> Option<Error> {
     if !dir.join("Cargo.toml").is_file() {
         return Some(Error::new(
             dir.display().to_string(),
@@ -436,6 +439,17 @@ pub fn parse_report(text: &str, machine: &str, qemu: &str) -> Result<EmulatedRun
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_missing_firmware_source_is_named() {
+        let e = build_unavailable_from(
+            Path::new("/nonexistent/bench/firmware"),
+            "thumbv6m-none-eabi",
+        )
+        .expect("no source, no build");
+        assert_eq!(e.place, "/nonexistent/bench/firmware");
+        assert!(e.problem.contains("firmware source not found"), "{e}");
+    }
 
     #[test]
     fn job_block_layout() {
