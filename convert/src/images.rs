@@ -24,7 +24,9 @@ pub struct ImageSpec {
 /// Load one image as HWC u8 pixels matching `spec`. Colour images become
 /// grey by the `image` crate's luma conversion (ITU-R BT.709 weights) when
 /// the model takes one channel; grey images are repeated into R, G and B
-/// when it takes three. Alpha is dropped.
+/// when it takes three. Alpha is dropped. The size is read from the image
+/// header and checked (against `spec` and `limits`) before decoding, and
+/// the decoder runs under `limits::MAX_IMAGE_DECODE_BYTES`.
 pub fn load_image(path: &Path, spec: &ImageSpec) -> Result<Vec<u8>> {
     let place = path.display().to_string();
     let bytes = files::read(path, &limits::IMAGE_FILE)?;

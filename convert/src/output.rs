@@ -184,6 +184,12 @@ pub fn write_all_atomic(files: &[(&Path, &[u8])]) -> Result<()> {
 pub fn write_outputs(files: &[(&Path, &[u8])], inputs: &[&Path]) -> Result<()> {
     let outputs: Vec<&Path> = files.iter().map(|(p, _)| *p).collect();
     check_destinations(&outputs, inputs)?;
+    write_checked(files)
+}
+
+/// [`write_outputs`] after the destination checks.
+fn write_checked(files: &[(&Path, &[u8])]) -> Result<()> {
+    let outputs: Vec<&Path> = files.iter().map(|(p, _)| *p).collect();
     clean_up_on_signals();
     let mut temps: Vec<PathBuf> = Vec::new();
     for (path, bytes) in files {
@@ -322,6 +328,32 @@ mod tests {
         assert_eq!(fs::read(&b).unwrap(), b"new b");
         assert_eq!(fs::read_dir(&d).unwrap().count(), 2);
         assert!(!pending().iter().any(|p| p.starts_with(&d)));
+        fs::remove_dir_all(&d).unwrap();
+    }
+
+    #[test]
+    fn a_failed_rename_puts_replaced_files_back() {
+        let d = scratch("rollback");
+        let a = d.join("a.bin");
+        let fresh = d.join("fresh.bin");
+        fs::write(&a, b"old a").unwrap();
+        // Past the checks, a rename onto a folder fails after `a` and
+        // `fresh` were renamed: `a` gets its old bytes back, `fresh` (this
+        // call's own) goes, the folder and its file stay.
+        let occupied = d.join("occupied");
+        fs::create_dir(&occupied).unwrap();
+        fs::write(occupied.join("x"), b"x").unwrap();
+        let e = write_checked(&[(&a, b"new"), (&fresh, b"new"), (&occupied, b"new")]).unwrap_err();
+        assert!(e.problem.contains("cannot move"), "{e}");
+        assert_eq!(fs::read(&a).unwrap(), b"old a");
+        assert!(!fresh.exists());
+        assert_eq!(fs::read(occupied.join("x")).unwrap(), b"x");
+        let mut names: Vec<_> = fs::read_dir(&d)
+            .unwrap()
+            .map(|e| e.unwrap().file_name())
+            .collect();
+        names.sort();
+        assert_eq!(names, ["a.bin", "occupied"]);
         fs::remove_dir_all(&d).unwrap();
     }
 
