@@ -50,12 +50,21 @@ fn clean_up_on_signals() {
     });
 }
 
-/// A new sibling of `path` named `.<name>.<tag>-<pid>-<n>`.
+/// A new sibling of `path` named `.<name>.<tag>-<pid>-<n>`, `<name>` cut to
+/// 64 bytes so that the sibling's name is no longer than the file
+/// system allows wherever `path`'s is.
 fn sibling(path: &Path, tag: &str) -> PathBuf {
     static COUNTER: AtomicUsize = AtomicUsize::new(0);
-    let name = path
+    let name: String = path
         .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
+        .map(|n| {
+            let n = n.to_string_lossy();
+            let mut end = n.len().min(64);
+            while !n.is_char_boundary(end) {
+                end -= 1;
+            }
+            n[..end].to_string()
+        })
         .unwrap_or_else(|| "output".into());
     let n = COUNTER.fetch_add(1, Ordering::Relaxed);
     let tmp = format!(".{name}.{tag}-{}-{n}", std::process::id());
@@ -328,6 +337,15 @@ mod tests {
         assert_eq!(fs::read(&b).unwrap(), b"new b");
         assert_eq!(fs::read_dir(&d).unwrap().count(), 2);
         assert!(!pending().iter().any(|p| p.starts_with(&d)));
+        fs::remove_dir_all(&d).unwrap();
+    }
+
+    #[test]
+    fn long_names_get_short_temporaries() {
+        let d = scratch("long");
+        let p = d.join("é".repeat(127));
+        write_atomic(&p, b"x").unwrap();
+        assert_eq!(fs::read(&p).unwrap(), b"x");
         fs::remove_dir_all(&d).unwrap();
     }
 
