@@ -371,6 +371,29 @@ fn files(dir: &Path) -> BTreeMap<PathBuf, Option<Vec<u8>>> {
     out
 }
 
+/// Run midge with `argv`, killed after two minutes so that a case that
+/// hangs (a FIFO opened for reading, say) fails instead of stalling the
+/// suite; the bound is a guard, not a timing assertion.
+fn run_bounded(argv: &[String]) -> std::process::Output {
+    use std::process::Stdio;
+    let mut child = Command::new(env!("CARGO_BIN_EXE_midge"))
+        .args(argv)
+        .stdin(Stdio::null())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("run midge");
+    let start = std::time::Instant::now();
+    while child.try_wait().expect("wait for midge").is_none() {
+        if start.elapsed() > std::time::Duration::from_secs(120) {
+            let _ = child.kill();
+            break;
+        }
+        std::thread::sleep(std::time::Duration::from_millis(10));
+    }
+    child.wait_with_output().expect("midge output")
+}
+
 /// Bytes of the output file every case finds in place before it runs.
 const PREVIOUS_OUTPUT: &[u8] = b"the user's previous model file";
 
@@ -385,11 +408,7 @@ fn bad_inputs_exit_2_with_one_line_and_no_output() {
         fs::write(dir.join("out.midge"), PREVIOUS_OUTPUT).unwrap();
         let argv = (case.prepare)(&dir);
         let before = files(&dir);
-        let o = Command::new(env!("CARGO_BIN_EXE_midge"))
-            .args(&argv)
-            .stdin(std::process::Stdio::null())
-            .output()
-            .expect("run midge");
+        let o = run_bounded(&argv);
         let err = String::from_utf8_lossy(&o.stderr).into_owned();
         let lines: Vec<&str> = err.lines().collect();
         let after = files(&dir);
@@ -754,6 +773,18 @@ fn hostile_catalogue() -> Vec<Case> {
             expect: &["module", "is a folder", "regular files"],
         },
         Case {
+            name: "--rust-module in a missing folder (previous -o kept)",
+            prepare: |d| {
+                let mut a = quantize(d);
+                a.extend(args(&[
+                    "--rust-module",
+                    &s(&d.join("gone").join("model.rs")),
+                ]));
+                a
+            },
+            expect: &["gone/model.rs", "cannot write"],
+        },
+        Case {
             name: "-o and --rust-module name the same file",
             prepare: |d| {
                 let mut a = quantize(d);
@@ -890,11 +921,7 @@ fn hostile_catalogue() -> Vec<Case> {
 
 /// Run midge with `argv`; (status, stdout, stderr).
 fn midge(argv: &[String]) -> (Option<i32>, String, String) {
-    let o = Command::new(env!("CARGO_BIN_EXE_midge"))
-        .args(argv)
-        .stdin(std::process::Stdio::null())
-        .output()
-        .expect("run midge");
+    let o = run_bounded(argv);
     (
         o.status.code(),
         String::from_utf8_lossy(&o.stdout).into_owned(),
