@@ -71,6 +71,8 @@ impl Histogram {
         (self.hi as f64 - self.lo as f64) / self.counts.len() as f64
     }
 
+    /// Counts `values`, which must be finite (`collect` refuses samples that
+    /// are not); any other value is not counted.
     pub fn add(&mut self, values: &[f32]) {
         let n = self.counts.len();
         let w = self.width();
@@ -179,10 +181,8 @@ impl TensorStats {
 
     fn see_extremes(&mut self, values: &[f32]) {
         for &v in values {
-            if v.is_finite() {
-                self.min = self.min.min(v);
-                self.max = self.max.max(v);
-            }
+            self.min = self.min.min(v);
+            self.max = self.max.max(v);
         }
     }
 
@@ -235,6 +235,14 @@ pub fn collect(
     let mut stats: Vec<TensorStats> = Vec::new();
     for i in 0..count {
         let tensors = run(i)?;
+        for (t, v) in tensors.iter().enumerate() {
+            if let Some(x) = v.iter().find(|x| !x.is_finite()) {
+                return Err(Error::new(
+                    "calibration",
+                    format!("sample {i}: tensor t{t} holds {x}; ranges need finite values"),
+                ));
+            }
+        }
         if stats.is_empty() {
             stats = vec![TensorStats::empty(); tensors.len()];
         }

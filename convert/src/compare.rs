@@ -117,10 +117,18 @@ struct Sqnr<'a> {
     float: &'a [Vec<f32>],
     signal: Vec<f64>,
     noise: Vec<f64>,
+    /// The first layer whose output held an infinity or NaN (fp16 overflow).
+    non_finite: Option<usize>,
 }
 
 impl Observer for Sqnr<'_> {
     fn after_layer(&mut self, i: usize, out: &TensorRecord, bytes: &[u8]) {
+        if self.non_finite.is_none()
+            && out.elem == ElemType::F16
+            && dequantize_tensor(out, bytes).iter().any(|v| !v.is_finite())
+        {
+            self.non_finite = Some(i);
+        }
         let Some(t) = self
             .outputs
             .get(i)
@@ -138,6 +146,26 @@ impl Observer for Sqnr<'_> {
     }
 }
 
+/// Most workspace bytes a host tool allocates to run a model (256 MiB; a
+/// parsed model's workspace is exactly what its tensors use, but a file can
+/// still claim up to 4 GiB).
+pub const HOST_MAX_WORKSPACE: usize = 256 << 20;
+
+/// A zeroed workspace for `model`, refused (naming `place`) beyond
+/// `HOST_MAX_WORKSPACE`.
+pub fn host_workspace(model: &Model<'_>, place: &str) -> Result<AlignedBytes> {
+    let len = model.workspace_len();
+    if len > HOST_MAX_WORKSPACE {
+        return Err(Error::new(
+            place,
+            format!(
+                "workspace of {len} bytes is more than the host tools allocate ({HOST_MAX_WORKSPACE} bytes)"
+            ),
+        ));
+    }
+    Ok(AlignedBytes::zeroed(len))
+}
+
 /// One quantized model ready to run on the host.
 struct Runner {
     bytes: AlignedBytes,
@@ -147,13 +175,10 @@ struct Runner {
 impl Runner {
     fn new(q: &Quantized, place: &str) -> Result<Runner> {
         let bytes = AlignedBytes::from_slice(&q.bytes);
-        let len = Model::parse(&bytes)
-            .map_err(|e| Error::new(place, format!("the runtime rejects the model: {e}")))?
-            .workspace_len();
-        Ok(Runner {
-            bytes,
-            ws: AlignedBytes::zeroed(len),
-        })
+        let model = Model::parse(&bytes)
+            .map_err(|e| Error::new(place, format!("the runtime rejects the model: {e}")))?;
+        let ws = host_workspace(&model, place)?;
+        Ok(Runner { bytes, ws })
     }
 
     /// Run once; `(top-1, dequantized logits)`.
@@ -243,7 +268,7 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
     let bar = progress_bar(progress, files.len() as u64, "evaluating");
     for (file, truth) in &files {
         let px = images::load_image(file, &spec)?;
-        let tensors = float_ref::run(graph, &px);
+        let tensors = float_ref::run_finite(graph, &px).map_err(|e| e.error(file))?;
         let logits = tensors.last().cloned().unwrap_or_default();
         let f_top = argmax(&logits).unwrap_or(0);
         let mut obs = Sqnr {
@@ -252,8 +277,18 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
             float: &tensors,
             signal: std::mem::take(&mut signal),
             noise: std::mem::take(&mut noise),
+            non_finite: None,
         };
         let (q_top, q_logits) = main.run(&px, &mut obs, &place)?;
+        if let Some(i) = obs.non_finite {
+            return Err(Error::new(
+                file.display().to_string(),
+                format!(
+                    "the quantized model: layer {} produced a non-finite fp16 value (overflow past ±65504); keep it int8 or rescale",
+                    q.layer_names.get(i).map(String::as_str).unwrap_or("?")
+                ),
+            ));
+        }
         signal = obs.signal;
         noise = obs.noise;
         for (a, b) in logits.iter().zip(&q_logits) {
@@ -276,6 +311,12 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
         }
         if let Some(r) = fp16.as_mut() {
             let (h_top, h_logits) = r.run(&px, &mut (), &place)?;
+            if h_logits.iter().any(|v| !v.is_finite()) {
+                return Err(Error::new(
+                    file.display().to_string(),
+                    "the all-fp16 conversion produced non-finite logits (overflow past ±65504)",
+                ));
+            }
             h_ok += (h_top == *truth) as usize;
             h_agree += (h_top == f_top) as usize;
             for (a, b) in logits.iter().zip(&h_logits) {

@@ -71,7 +71,7 @@ fn zp_ok(t: &TensorRecord) -> bool {
 }
 
 fn scale_ok(t: &TensorRecord) -> bool {
-    t.quant.scale.is_finite() && t.quant.scale > 0.0
+    crate::format::scale_in_range(t.quant.scale)
 }
 
 fn clamp_i8_ok(c: [i32; 2]) -> bool {
@@ -171,7 +171,14 @@ fn check_weighted(
             if w.len() != w_len {
                 return Err(bad(index, "weight length does not match the shapes"));
             }
+            // One linear scan at parse time (FORMAT.md, "Limits").
+            if !w.iter().all(|v| v.is_finite()) {
+                return Err(bad(index, "fp16 weights must be finite (no inf or NaN)"));
+            }
             match layer.bias {
+                Bias::F32(b) if b.iter().any(|v| !v.is_finite()) => {
+                    return Err(bad(index, "fp16 layer bias must be finite (no inf or NaN)"))
+                }
                 Bias::F32(b) if b.is_empty() || b.len() == out_c => {}
                 Bias::None => {}
                 Bias::F32(_) => {
@@ -195,7 +202,8 @@ fn check_weighted(
 /// Checks, per op: element types; the output shape (from
 /// `Window::output_hw` for windowed ops); blob kinds and lengths; requant
 /// multipliers in 0..2^31 and rshifts in 1..=62; clamp bounds ordered (int8:
-/// within −128..=127); int8 zero points in −128..=127; for pooling at least
+/// within −128..=127); int8 zero points in −128..=127; fp16 weights and
+/// biases finite; int8 scales of quantize/dequantize in range; for pooling at least
 /// one in-bounds tap per output and an exact int32 sum; and the worst-case
 /// int32 accumulator of conv2d/depthwise/dense (see `check_accumulator`).
 pub fn check_layer(
