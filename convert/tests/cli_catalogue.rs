@@ -418,3 +418,313 @@ fn bad_inputs_exit_2_with_one_line_and_no_output() {
     );
     assert!(failures.is_empty(), "\n{}", failures.join("\n"));
 }
+
+// ---------------------------------------------------------------------------
+// Numeric and model-parse cases (issue 10, classes 5, 6, 9, 10, 11, 13): a
+// separate catalogue with a stricter runner that also checks every file
+// that existed before the run is byte-for-byte unchanged.
+
+use midge_convert::graph::Precision;
+use midge_runtime::format::field;
+
+/// Offsets of the model-info block and its fields inside a model file.
+const INFO: usize = field::header::LEN;
+
+/// Write `value` at file offset `at` of the model file `p` and fix its CRC.
+fn patch_midge(p: &Path, at: usize, value: &[u8]) {
+    let mut b = fs::read(p).unwrap();
+    b[at..at + value.len()].copy_from_slice(value);
+    let crc = midge_runtime::crc::crc32(&b[field::header::LEN..]);
+    b[field::header::CRC].copy_from_slice(&crc.to_le_bytes());
+    fs::write(p, b).unwrap();
+}
+
+fn read_u32(b: &[u8], at: usize) -> usize {
+    u32::from_le_bytes(b[at..at + 4].try_into().unwrap()) as usize
+}
+
+/// File offset of field `f` of tensor record `t`.
+fn tensor_field(t: usize, f: field::Field) -> usize {
+    INFO + field::info::LEN + t * field::tensor::LEN + f.start
+}
+
+/// An all-fp16 `model.midge` of the tiny description.
+fn write_fp16_midge(dir: &Path) -> PathBuf {
+    let opts = QuantizeOptions {
+        precision: Some(Precision::Fp16),
+        ..QuantizeOptions::default()
+    };
+    let conv =
+        quantize_description(&dir.join("model.toml"), &opts).unwrap_or_else(|e| panic!("{e}"));
+    let p = dir.join("model.midge");
+    fs::write(&p, &conv.quantized.bytes).unwrap();
+    p
+}
+
+/// File offset of the first weights blob of `p` (a conv2d's, in the tiny model).
+fn first_weights_blob(p: &Path) -> usize {
+    let b = fs::read(p).unwrap();
+    let table = read_u32(&b, INFO + field::info::LAYERS.start);
+    let layers = u16::from_le_bytes(b[INFO + 8..INFO + 10].try_into().unwrap()) as usize;
+    (0..layers)
+        .map(|i| {
+            read_u32(
+                &b,
+                table + i * field::layer::LEN + field::layer::WEIGHTS.start,
+            )
+        })
+        .find(|&off| off != 0)
+        .expect("a layer with weights")
+}
+
+fn classify(p: &Path, d: &Path) -> Vec<String> {
+    args(&["classify", &s(p), &s(&d.join("calib").join("c00.png"))])
+}
+
+fn profile_with(d: &Path, key_line: &str) -> PathBuf {
+    let t = d.join("board.toml");
+    let text = fs::read_to_string(
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("../models/targets/m4-80.toml"),
+    )
+    .unwrap();
+    let key = key_line.split('=').next().unwrap().trim();
+    let line = text
+        .lines()
+        .find(|l| l.starts_with(&format!("{key} ")))
+        .unwrap_or_else(|| panic!("m4-80.toml has no {key}"));
+    fs::write(&t, text.replacen(line, key_line, 1)).unwrap();
+    t
+}
+
+fn budget_with(d: &Path, key_line: &str) -> Vec<String> {
+    let p = write_midge(d);
+    let t = profile_with(d, key_line);
+    args(&[
+        "budget",
+        &s(&p),
+        "--target",
+        &s(&t),
+        "--no-emulate",
+        "--no-runtime-size",
+    ])
+}
+
+fn numeric_catalogue() -> Vec<Case> {
+    vec![
+        // Class 5: a CRC-valid file claiming a 4 GiB workspace.
+        Case {
+            name: "model claims a 4 GiB workspace",
+            prepare: |d| {
+                let p = write_midge(d);
+                patch_midge(
+                    &p,
+                    INFO + field::info::WORKSPACE_LEN.start,
+                    &u32::MAX.to_le_bytes(),
+                );
+                classify(&p, d)
+            },
+            expect: &["model.midge", "workspace length", "4294967295"],
+        },
+        // Class 6: layer-count limit, in a model file and in a description.
+        Case {
+            name: "model file claims more layers than the format allows",
+            prepare: |d| {
+                let p = write_midge(d);
+                patch_midge(
+                    &p,
+                    INFO + field::info::LAYER_COUNT.start,
+                    &40000u16.to_le_bytes(),
+                );
+                show(&p)
+            },
+            expect: &["model.midge", "layer count", "32768", "40000"],
+        },
+        Case {
+            name: "description with more layers than a model file holds",
+            prepare: |d| {
+                let p = d.join("model.toml");
+                let mut t = fs::read_to_string(&p).unwrap();
+                for _ in 0..32768 {
+                    t.push_str("\n[[layer]]\nop = \"maxpool\"\nkernel = 1\n");
+                }
+                fs::write(&p, t).unwrap();
+                quantize(d)
+            },
+            expect: &["model.toml", "layers", "32768"],
+        },
+        // Class 9: fp16 overflow is refused, naming the layer, value and range.
+        Case {
+            name: "--precision fp16 on a weight beyond 65504",
+            prepare: |d| {
+                edit_weights(d, |m| {
+                    m.tensors.get_mut("block.weight").unwrap().data[5] = 1.0e5;
+                });
+                let mut a = quantize(d);
+                a.extend(args(&["--precision", "fp16"]));
+                a
+            },
+            expect: &["layer block", "1e5", "fp16 range", "65504"],
+        },
+        Case {
+            name: "fp16 model file with an infinite weight",
+            prepare: |d| {
+                let p = write_fp16_midge(d);
+                let at = first_weights_blob(&p);
+                patch_midge(&p, at, &0x7C00u16.to_le_bytes()); // binary16 +inf
+                show(&p)
+            },
+            expect: &["model.midge", "fp16 weights must be finite"],
+        },
+        // Class 10: non-finite float reference during calibration.
+        Case {
+            name: "weights overflow the float reference (quantize)",
+            prepare: |d| {
+                // The head reads non-negative averages of ReLU6 outputs, so
+                // its sums overflow (equal weights on signed inputs may cancel).
+                edit_weights(d, |m| {
+                    m.tensors
+                        .get_mut("head.weight")
+                        .unwrap()
+                        .data
+                        .iter_mut()
+                        .for_each(|v| *v = 3.0e38);
+                });
+                quantize(d)
+            },
+            expect: &[
+                "calib",
+                ".png",
+                "float reference",
+                "layer head",
+                "overflow f32",
+            ],
+        },
+        Case {
+            name: "weights overflow the float reference (compare)",
+            prepare: |d| {
+                edit_weights(d, |m| {
+                    m.tensors
+                        .get_mut("head.weight")
+                        .unwrap()
+                        .data
+                        .iter_mut()
+                        .for_each(|v| *v = 3.0e38);
+                });
+                args(&["compare", &s(&d.join("model.toml"))])
+            },
+            expect: &[".png", "float reference", "layer head", "inf"],
+        },
+        // Class 11: profile values beyond the sane maxima.
+        Case {
+            name: "target profile RAM beyond 4 GiB",
+            prepare: |d| budget_with(d, "ram_bytes = 9223372036854775807"),
+            expect: &["board.toml", "ram_bytes", "4 GiB"],
+        },
+        Case {
+            name: "target profile clock beyond 4 GHz",
+            prepare: |d| budget_with(d, "clock_hz = 80000000000"),
+            expect: &["board.toml", "clock_hz", "4000000000"],
+        },
+        // Class 13: absurd and non-finite scales; classify never prints NaN.
+        Case {
+            name: "model output scale 3e38",
+            prepare: |d| {
+                let p = write_midge(d);
+                let b = fs::read(&p).unwrap();
+                let out = u16::from_le_bytes(b[INFO + 4..INFO + 6].try_into().unwrap()) as usize;
+                patch_midge(
+                    &p,
+                    tensor_field(out, field::tensor::SCALE),
+                    &3.0e38f32.to_le_bytes(),
+                );
+                classify(&p, d)
+            },
+            expect: &["model.midge", "scale 3e38", "2^32"],
+        },
+        Case {
+            name: "model tensor scale NaN",
+            prepare: |d| {
+                let p = write_midge(d);
+                patch_midge(
+                    &p,
+                    tensor_field(1, field::tensor::SCALE),
+                    &f32::NAN.to_le_bytes(),
+                );
+                classify(&p, d)
+            },
+            expect: &["model.midge", "tensor 1", "scale NaN"],
+        },
+    ]
+}
+
+/// Every file under `dir` with its contents.
+fn contents(dir: &Path) -> std::collections::BTreeMap<PathBuf, Vec<u8>> {
+    files(dir)
+        .into_iter()
+        .map(|p| {
+            let b = fs::read(dir.join(&p)).unwrap();
+            (p, b)
+        })
+        .collect()
+}
+
+#[test]
+fn numeric_bad_inputs_exit_2_with_one_line_and_leave_files_alone() {
+    let cases = numeric_catalogue();
+    let mut failures = Vec::new();
+    for (i, case) in cases.iter().enumerate() {
+        let dir = scratch(&format!("numeric-catalogue-{i}"));
+        write_model(&dir, "", 7);
+        let argv = (case.prepare)(&dir);
+        let before = contents(&dir);
+        let o = Command::new(env!("CARGO_BIN_EXE_midge"))
+            .args(&argv)
+            .output()
+            .expect("run midge");
+        let err = String::from_utf8_lossy(&o.stderr).into_owned();
+        let after = contents(&dir);
+        let mut problems = Vec::new();
+        if o.status.code() != Some(2) {
+            problems.push(format!("exit status {:?}, expected 2", o.status.code()));
+        }
+        if err.lines().count() != 1 {
+            problems.push(format!("{} stderr lines, expected 1", err.lines().count()));
+        }
+        if String::from_utf8_lossy(&o.stdout).contains("NaN") {
+            problems.push("stdout shows NaN".into());
+        }
+        for e in case.expect {
+            if !err.contains(e) {
+                problems.push(format!("stderr does not mention {e:?}"));
+            }
+        }
+        let new: Vec<_> = after.keys().filter(|p| !before.contains_key(*p)).collect();
+        if !new.is_empty() {
+            problems.push(format!("left files behind: {new:?}"));
+        }
+        let changed: Vec<_> = before
+            .iter()
+            .filter(|(p, b)| after.get(*p) != Some(b))
+            .map(|(p, _)| p)
+            .collect();
+        if !changed.is_empty() {
+            problems.push(format!("changed or removed existing files: {changed:?}"));
+        }
+        eprintln!("  {:<52} {}", case.name, err.trim_end());
+        if problems.is_empty() {
+            let _ = fs::remove_dir_all(&dir);
+        } else {
+            failures.push(format!(
+                "{}: {}\n    args {argv:?}\n    stderr {err:?}",
+                case.name,
+                problems.join("; ")
+            ));
+        }
+    }
+    eprintln!(
+        "CLI numeric catalogue: {} bad inputs, {} failed",
+        cases.len(),
+        failures.len()
+    );
+    assert!(failures.is_empty(), "\n{}", failures.join("\n"));
+}

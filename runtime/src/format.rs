@@ -506,10 +506,10 @@ impl TensorRecord {
             ElemType::I8 | ElemType::U8 => scale_in_range(scale),
         };
         if !scale_ok {
-            return Err(bad(
-                "scale (f32 bits; I8 and U8 need 2^-64..=2^32, F16 exactly 1.0)",
-                view.scale_bits(),
-            ));
+            return Err(Error::TensorScale {
+                index,
+                bits: view.scale_bits(),
+            });
         }
         let zp_ok = match elem {
             ElemType::I8 => (-128..=127).contains(&zero_point),
