@@ -407,6 +407,20 @@ mod tests {
         assert!(collect(0, RangeMethod::MinMax, false, |_| Ok(vec![])).is_err());
         let e = collect(1, RangeMethod::Percentile(20.0), false, |_| Ok(vec![])).unwrap_err();
         assert!(e.problem.contains("20"));
+        // Non-finite samples are refused, not dropped.
+        for bad in [f32::NAN, f32::INFINITY, f32::NEG_INFINITY] {
+            let e = collect(2, RangeMethod::Mse, false, |i| {
+                Ok(vec![
+                    vec![0.5, 1.0],
+                    vec![2.0, if i == 1 { bad } else { 0.0 }],
+                ])
+            })
+            .unwrap_err();
+            assert!(
+                e.problem.contains("sample 1") && e.problem.contains("t1"),
+                "{e}"
+            );
+        }
     }
 
     #[test]

@@ -117,18 +117,10 @@ struct Sqnr<'a> {
     float: &'a [Vec<f32>],
     signal: Vec<f64>,
     noise: Vec<f64>,
-    /// The first layer whose output held an infinity or NaN (fp16 overflow).
-    non_finite: Option<usize>,
 }
 
 impl Observer for Sqnr<'_> {
     fn after_layer(&mut self, i: usize, out: &TensorRecord, bytes: &[u8]) {
-        if self.non_finite.is_none()
-            && out.elem == ElemType::F16
-            && dequantize_tensor(out, bytes).iter().any(|v| !v.is_finite())
-        {
-            self.non_finite = Some(i);
-        }
         let Some(t) = self
             .outputs
             .get(i)
@@ -277,18 +269,8 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
             float: &tensors,
             signal: std::mem::take(&mut signal),
             noise: std::mem::take(&mut noise),
-            non_finite: None,
         };
         let (q_top, q_logits) = main.run(&px, &mut obs, &place)?;
-        if let Some(i) = obs.non_finite {
-            return Err(Error::new(
-                file.display().to_string(),
-                format!(
-                    "the quantized model: layer {} produced a non-finite fp16 value (overflow past ±65504); keep it int8 or rescale",
-                    q.layer_names.get(i).map(String::as_str).unwrap_or("?")
-                ),
-            ));
-        }
         signal = obs.signal;
         noise = obs.noise;
         for (a, b) in logits.iter().zip(&q_logits) {
@@ -311,12 +293,6 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
         }
         if let Some(r) = fp16.as_mut() {
             let (h_top, h_logits) = r.run(&px, &mut (), &place)?;
-            if h_logits.iter().any(|v| !v.is_finite()) {
-                return Err(Error::new(
-                    file.display().to_string(),
-                    "the all-fp16 conversion produced non-finite logits (overflow past ±65504)",
-                ));
-            }
             h_ok += (h_top == *truth) as usize;
             h_agree += (h_top == f_top) as usize;
             for (a, b) in logits.iter().zip(&h_logits) {

@@ -48,8 +48,8 @@ use crate::graph::{load_graph, FloatGraph, FloatOp, Node, Precision};
 use crate::images::{self, ImageSpec};
 use crate::plan;
 
-/// Largest finite binary16 value.
-pub const F16_MAX: f32 = 65504.0;
+/// Largest finite binary16 value (the runtime's definition).
+pub use midge_runtime::format::F16_MAX;
 
 /// `x / scale + zp`, rounded to nearest with ties away from zero, clamped
 /// to `lo..=hi`.

@@ -642,6 +642,23 @@ fn numeric_catalogue() -> Vec<Case> {
             expect: &["model.midge", "scale 3e38", "2^32"],
         },
         Case {
+            // With infinite clamps an fp16 head could store ±inf, which
+            // `classify` would have turned into NaN scores.
+            name: "fp16 model with infinite clamp bounds",
+            prepare: |d| {
+                let p = write_fp16_midge(d);
+                let b = fs::read(&p).unwrap();
+                let table = read_u32(&b, INFO + field::info::LAYERS.start);
+                let layers = u16::from_le_bytes(b[INFO + 8..INFO + 10].try_into().unwrap());
+                let last = table + (layers as usize - 1) * field::layer::LEN;
+                let mut inf = f32::NEG_INFINITY.to_le_bytes().to_vec();
+                inf.extend(f32::INFINITY.to_le_bytes());
+                patch_midge(&p, last + field::layer::CLAMP_F32_MIN.start, &inf);
+                classify(&p, d)
+            },
+            expect: &["model.midge", "fp16 clamp", "65504"],
+        },
+        Case {
             name: "model tensor scale NaN",
             prepare: |d| {
                 let p = write_midge(d);

@@ -3,6 +3,7 @@
 //! dispatches to the kernels. Also the on-device result helper `top1`.
 
 use crate::error::Error;
+use crate::format::F16_MAX;
 use crate::kernels::{self, fault, fp16, int8};
 use crate::repr::{Bias, ElemType, LayerRef, Op, Params, Shape, TensorRecord, Weights};
 use crate::requant::requant_in_range;
@@ -78,9 +79,11 @@ fn clamp_i8_ok(c: [i32; 2]) -> bool {
     -128 <= c[0] && c[0] <= c[1] && c[1] <= 127
 }
 
+/// Ordered and inside the finite binary16 range: every fp16 store clamps,
+/// so fp16 activations are always finite (NaN is stored as the low bound).
 fn clamp_f32_ok(c: [f32; 2]) -> bool {
     // Comparisons with NaN are false, so NaN bounds are rejected too.
-    c[0] <= c[1]
+    -F16_MAX <= c[0] && c[0] <= c[1] && c[1] <= F16_MAX
 }
 
 /// Checks the per-output-channel requant pairs of an int8 layer.
@@ -234,7 +237,10 @@ pub fn check_layer(
             ))
         }
         ElemType::F16 if !clamp_f32_ok(h.clamp_f32) => {
-            return Err(bad(index, "fp16 clamp must be ordered and not NaN"))
+            return Err(bad(
+                index,
+                "fp16 clamp must be ordered and within -65504..=65504",
+            ))
         }
         ElemType::U8 => return Err(bad(index, "no layer outputs u8")),
         _ => {}

@@ -16,6 +16,9 @@ pub const ALIGN: usize = 8;
 /// Most layers a model may have (FORMAT.md, "Limits"): 2^15, far beyond
 /// any network a microcontroller runs, and it bounds the validation work.
 pub const MAX_LAYERS: usize = 32768;
+/// Largest finite binary16 value (IEEE 754; common practice): the bound of
+/// fp16 clamps.
+pub const F16_MAX: f32 = 65504.0;
 /// Largest scale of an I8 or U8 tensor (2^32; FORMAT.md, "Limits").
 pub const SCALE_MAX: f32 = (1u64 << 32) as f32;
 /// Smallest scale of an I8 or U8 tensor (2^−64; FORMAT.md, "Limits").

@@ -289,3 +289,31 @@ fn fp16_weights_and_biases_must_be_finite() {
         );
     }
 }
+
+#[test]
+fn fp16_clamps_stay_inside_the_binary16_range() {
+    let w = [0.5, -1.0, 0.25, 2.0].map(f16::from_f32);
+    let mut spec = fp16_dense(w, [0.0, 1.0]);
+    // At the limits (the converter's "no activation" clamp) and inside.
+    for c in [[-65504.0, 65504.0], [0.0, 6.0], [1.0, 1.0]] {
+        spec.layers[1].header.clamp_f32 = c;
+        spec.emit().unwrap();
+    }
+    for c in [
+        [f32::NEG_INFINITY, f32::INFINITY],
+        [-65505.0, 0.0],
+        [0.0, 65520.0],
+        [f32::NAN, 1.0],
+        [2.0, 1.0],
+    ] {
+        spec.layers[1].header.clamp_f32 = c;
+        assert_eq!(
+            spec.emit(),
+            Err(Error::Layer {
+                index: 1,
+                problem: "fp16 clamp must be ordered and within -65504..=65504"
+            }),
+            "clamp {c:?}"
+        );
+    }
+}
