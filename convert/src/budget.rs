@@ -254,7 +254,17 @@ fn emulate_once(
 ) -> Result<EmulatedRun> {
     firmware::qemu_version()?;
     let build = firmware::build(&target.rust_target)?;
-    let input = vec![0u8; model.input().byte_len()];
+    let len = model.input().byte_len();
+    if len > firmware::JOB_CAPACITY {
+        return Err(Error::new(
+            "emulator job",
+            format!(
+                "the input tensor needs {len} bytes, the harness's job area holds {}",
+                firmware::JOB_CAPACITY
+            ),
+        ));
+    }
+    let input = vec![0u8; len];
     let job = firmware::job_block(bytes, &[&input], model.workspace_len())?;
     firmware::run(&target.emulator.machine, &build.harness, &job, timeout)
 }

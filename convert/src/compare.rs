@@ -138,24 +138,28 @@ impl Observer for Sqnr<'_> {
     }
 }
 
-/// Most workspace bytes a host tool allocates to run a model (256 MiB; a
-/// parsed model's workspace is exactly what its tensors use, but a file can
-/// still claim up to 4 GiB).
-pub const HOST_MAX_WORKSPACE: usize = 256 << 20;
+/// Most bytes a host tool allocates for one buffer of a model run, the
+/// workspace or the input (256 MiB; a parsed model's workspace is exactly
+/// what its tensors use, but a file can still describe up to 4 GiB).
+pub const HOST_MAX_BUFFER: usize = 256 << 20;
 
-/// A zeroed workspace for `model`, refused (naming `place`) beyond
-/// `HOST_MAX_WORKSPACE`.
+/// A zeroed workspace for `model`, refused (naming `place`) when the
+/// workspace or the input tensor is larger than `HOST_MAX_BUFFER`.
 pub fn host_workspace(model: &Model<'_>, place: &str) -> Result<AlignedBytes> {
-    let len = model.workspace_len();
-    if len > HOST_MAX_WORKSPACE {
-        return Err(Error::new(
-            place,
-            format!(
-                "workspace of {len} bytes is more than the host tools allocate ({HOST_MAX_WORKSPACE} bytes)"
-            ),
-        ));
+    for (what, len) in [
+        ("workspace", model.workspace_len()),
+        ("input tensor", model.input().byte_len()),
+    ] {
+        if len > HOST_MAX_BUFFER {
+            return Err(Error::new(
+                place,
+                format!(
+                    "{what} of {len} bytes is more than the host tools allocate ({HOST_MAX_BUFFER} bytes)"
+                ),
+            ));
+        }
     }
-    Ok(AlignedBytes::zeroed(len))
+    Ok(AlignedBytes::zeroed(model.workspace_len()))
 }
 
 /// One quantized model ready to run on the host.

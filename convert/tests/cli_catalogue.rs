@@ -509,6 +509,65 @@ fn budget_with(d: &Path, key_line: &str) -> Vec<String> {
     ])
 }
 
+/// A valid 3-layer model file of a few hundred bytes whose 65535×65535
+/// camera image and first tensor need a 4 GiB workspace: pixels, then a
+/// 1×1 max pool of stride 65535 down to one value.
+fn huge_workspace_model() -> Vec<u8> {
+    use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
+    use midge_runtime::{Activation, ElemType, LayerHeader, Op, Padding, Quant, Shape, Window};
+    let t = |h, w, elem, offset| midge_runtime::TensorRecord {
+        shape: Shape::new(h, w, 1),
+        elem,
+        quant: Quant {
+            scale: 1.0 / 255.0,
+            zero_point: 0,
+        },
+        offset,
+    };
+    let head = |op, input, output, window| LayerHeader {
+        op,
+        act: Activation::None,
+        inputs: [input, 0],
+        output,
+        window,
+        clamp_i8: [-128, 127],
+        clamp_f32: [-65504.0, 65504.0],
+    };
+    let big = 65535u32 * 65535;
+    let out_at = big.div_ceil(8) * 8;
+    let spec = ModelSpec {
+        name: "huge".into(),
+        labels: vec!["only".into()],
+        tensors: vec![
+            t(65535, 65535, ElemType::U8, 0),
+            t(65535, 65535, ElemType::I8, 0),
+            t(1, 1, ElemType::I8, out_at),
+        ],
+        layers: vec![
+            LayerSpec {
+                header: head(Op::Pixels, 0, 1, Window::default()),
+                weights: WeightsBuf::None,
+                bias: BiasBuf::None,
+                params: ParamsBuf::I32(vec![128 * 256, 1 << 30, 38]),
+            },
+            LayerSpec {
+                header: head(
+                    Op::MaxPool,
+                    1,
+                    2,
+                    Padding::Valid.resolve((65535, 65535), (1, 1), (65535, 65535), (1, 1)),
+                ),
+                weights: WeightsBuf::None,
+                bias: BiasBuf::None,
+                params: ParamsBuf::None,
+            },
+        ],
+        output: 2,
+        workspace_len: out_at + 1,
+    };
+    spec.emit().unwrap()
+}
+
 fn numeric_catalogue() -> Vec<Case> {
     vec![
         // Class 5: a CRC-valid file claiming a 4 GiB workspace.
@@ -524,6 +583,19 @@ fn numeric_catalogue() -> Vec<Case> {
                 classify(&p, d)
             },
             expect: &["model.midge", "workspace length", "4294967295"],
+        },
+        Case {
+            name: "valid model whose workspace needs 4 GiB",
+            prepare: |d| {
+                let p = d.join("model.midge");
+                fs::write(&p, huge_workspace_model()).unwrap();
+                classify(&p, d)
+            },
+            expect: &[
+                "model.midge",
+                "workspace of 4294836233 bytes",
+                "host tools allocate",
+            ],
         },
         // Class 6: layer-count limit, in a model file and in a description.
         Case {
