@@ -524,7 +524,7 @@ fn fp16_range(place: &str, w: &[f32]) -> Result<()> {
         Some(i) => Err(Error::new(
             place,
             format!(
-                "weight tensor element {i} is {:e} (after BatchNorm folding), outside the fp16 range -{F16_MAX}..={F16_MAX}; keep this layer int8 or rescale its weights",
+                "weight {i} of the layer's weight tensor (after any BatchNorm folding) is {:e}, outside the fp16 range -{F16_MAX}..={F16_MAX}; keep this layer int8 or rescale its weights",
                 w[i]
             ),
         )),
