@@ -432,6 +432,26 @@ fn first_weights_blob(p: &Path) -> usize {
         .expect("a layer with weights")
 }
 
+/// Head weights of 3e38: the head reads non-negative averages of ReLU6
+/// outputs, so its sums pass f32::MAX (equal weights on signed inputs, as
+/// in the stem, may cancel instead).
+fn overflow_head(d: &Path) {
+    edit_weights(d, |m| {
+        let w = &mut m.tensors.get_mut("head.weight").unwrap().data;
+        w.iter_mut().for_each(|v| *v = 3.0e38);
+    });
+}
+
+/// `classify` on the model file `p` after setting tensor `t`'s scale.
+fn classify_with_scale(p: &Path, d: &Path, t: usize, scale: f32) -> Vec<String> {
+    patch_midge(
+        p,
+        tensor_field(t, field::tensor::SCALE),
+        &scale.to_le_bytes(),
+    );
+    classify(p, d)
+}
+
 fn classify(p: &Path, d: &Path) -> Vec<String> {
     args(&["classify", &s(p), &s(&d.join("calib").join("c00.png"))])
 }
@@ -606,16 +626,7 @@ fn numeric_catalogue() -> Vec<Case> {
         Case {
             name: "weights overflow the float reference (quantize)",
             prepare: |d| {
-                // The head reads non-negative averages of ReLU6 outputs, so
-                // its sums overflow (equal weights on signed inputs may cancel).
-                edit_weights(d, |m| {
-                    m.tensors
-                        .get_mut("head.weight")
-                        .unwrap()
-                        .data
-                        .iter_mut()
-                        .for_each(|v| *v = 3.0e38);
-                });
+                overflow_head(d);
                 quantize(d)
             },
             expect: &[
@@ -629,17 +640,22 @@ fn numeric_catalogue() -> Vec<Case> {
         Case {
             name: "weights overflow the float reference (compare)",
             prepare: |d| {
-                edit_weights(d, |m| {
-                    m.tensors
-                        .get_mut("head.weight")
-                        .unwrap()
-                        .data
-                        .iter_mut()
-                        .for_each(|v| *v = 3.0e38);
-                });
+                overflow_head(d);
                 args(&["compare", &s(&d.join("model.toml"))])
             },
             expect: &[".png", "float reference", "layer head", "inf"],
+        },
+        Case {
+            // Finite but huge activations would need an int8 scale beyond 2^32.
+            name: "activation range beyond the int8 scale limit",
+            prepare: |d| {
+                edit_weights(d, |m| {
+                    let w = &mut m.tensors.get_mut("head.weight").unwrap().data;
+                    w.iter_mut().for_each(|v| *v = 1.0e37);
+                });
+                quantize(d)
+            },
+            expect: &["layer head", "int8 activation scale", "outside"],
         },
         // Class 11: profile values beyond the sane maxima.
         Case {
@@ -658,13 +674,8 @@ fn numeric_catalogue() -> Vec<Case> {
             prepare: |d| {
                 let p = write_midge(d);
                 let b = fs::read(&p).unwrap();
-                let out = u16::from_le_bytes(b[INFO + 4..INFO + 6].try_into().unwrap()) as usize;
-                patch_midge(
-                    &p,
-                    tensor_field(out, field::tensor::SCALE),
-                    &3.0e38f32.to_le_bytes(),
-                );
-                classify(&p, d)
+                let out = u16::from_le_bytes(b[INFO + 4..INFO + 6].try_into().unwrap());
+                classify_with_scale(&p, d, out as usize, 3.0e38)
             },
             expect: &["model.midge", "scale 3e38", "2^32"],
         },
@@ -689,12 +700,7 @@ fn numeric_catalogue() -> Vec<Case> {
             name: "model tensor scale NaN",
             prepare: |d| {
                 let p = write_midge(d);
-                patch_midge(
-                    &p,
-                    tensor_field(1, field::tensor::SCALE),
-                    &f32::NAN.to_le_bytes(),
-                );
-                classify(&p, d)
+                classify_with_scale(&p, d, 1, f32::NAN)
             },
             expect: &["model.midge", "tensor 1", "scale NaN"],
         },
