@@ -89,7 +89,7 @@ pub fn host_latency(
 ) -> Result<HostLatency> {
     let aligned = AlignedBytes::from_slice(model_bytes);
     let model = Model::parse(&aligned).map_err(|e| Error::new("model", e.to_string()))?;
-    let mut ws = AlignedBytes::zeroed(model.workspace_len());
+    let mut ws = midge_convert::compare::host_workspace(&model, "model")?;
     let n = model.layer_count();
     let mut watch = Stopwatch {
         start: None,

@@ -78,23 +78,42 @@ pub struct Budget {
 }
 
 /// Sums `flash` and `ram` and compares them with the target's limits: a
-/// model fits when both sums are at most the limits (equal fits).
+/// model fits when both sums are at most the limits (equal fits). All sums
+/// and margins are checked: a bill that does not fit in u64, or a margin
+/// outside i64, is an error rather than a wrapped number.
 pub fn verdict(
     target: &Target,
     model: &str,
     flash: Vec<Item>,
     ram: Vec<Item>,
     peak_layer: Option<PeakLayer>,
-) -> Budget {
-    let sum = |v: &[Item]| v.iter().filter_map(|i| i.bytes).sum::<u64>();
-    let (flash_bytes, ram_bytes) = (sum(&flash), sum(&ram));
+) -> Result<Budget> {
+    let sum = |what: &str, v: &[Item]| -> Result<u64> {
+        v.iter()
+            .filter_map(|i| i.bytes)
+            .try_fold(0u64, u64::checked_add)
+            .ok_or_else(|| Error::new(model, format!("{what} bill overflows 64 bits")))
+    };
+    let margin = |what: &str, limit: u64, bytes: u64| -> Result<i64> {
+        i64::try_from(limit)
+            .ok()
+            .zip(i64::try_from(bytes).ok())
+            .and_then(|(l, b)| l.checked_sub(b))
+            .ok_or_else(|| {
+                Error::new(
+                    model,
+                    format!("{what} margin of {limit} B available against {bytes} B does not fit in 64 bits"),
+                )
+            })
+    };
+    let (flash_bytes, ram_bytes) = (sum("flash", &flash)?, sum("RAM", &ram)?);
     let (flash_limit, ram_limit) = (target.flash_available(), target.ram_available());
     let complete = flash.iter().chain(&ram).all(|i| i.bytes.is_some());
-    Budget {
+    Ok(Budget {
         target: target.name.clone(),
         model: model.to_string(),
-        flash_margin: flash_limit as i64 - flash_bytes as i64,
-        ram_margin: ram_limit as i64 - ram_bytes as i64,
+        flash_margin: margin("flash", flash_limit, flash_bytes)?,
+        ram_margin: margin("RAM", ram_limit, ram_bytes)?,
         fits: flash_bytes <= flash_limit && ram_bytes <= ram_limit,
         complete,
         flash,
@@ -106,7 +125,7 @@ pub fn verdict(
         peak_layer,
         instructions: None,
         estimated_ms: None,
-    }
+    })
 }
 
 /// What `evaluate` measures beyond the model file itself.
@@ -213,7 +232,7 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
             op: r.op.to_string(),
             live_bytes: r.live_bytes as u64,
         });
-    let mut budget = verdict(target, &fp.name, flash, ram, peak);
+    let mut budget = verdict(target, &fp.name, flash, ram, peak)?;
     if let Ok(run) = &emulated {
         let instr: u64 = run.layer_instructions(0).iter().sum();
         budget.instructions = Some(instr);
@@ -235,7 +254,17 @@ fn emulate_once(
 ) -> Result<EmulatedRun> {
     firmware::qemu_version()?;
     let build = firmware::build(&target.rust_target)?;
-    let input = vec![0u8; model.input().byte_len()];
+    let len = model.input().byte_len();
+    if len > firmware::JOB_CAPACITY {
+        return Err(Error::new(
+            "emulator job",
+            format!(
+                "the input tensor needs {len} bytes, the harness's job area holds {}",
+                firmware::JOB_CAPACITY
+            ),
+        ));
+    }
+    let input = vec![0u8; len];
     let job = firmware::job_block(bytes, &[&input], model.workspace_len())?;
     firmware::run(&target.emulator.machine, &build.harness, &job, timeout)
 }
@@ -363,7 +392,8 @@ mod tests {
             vec![Item::measured("a", 10, "")],
             vec![Item::missing("stack", "no qemu")],
             None,
-        );
+        )
+        .unwrap();
         assert!(b.fits && !b.complete);
         assert_eq!(b.flash_margin, t.flash_available() as i64 - 10);
         assert!(b.render_text().contains("not measured: no qemu"));
@@ -373,6 +403,28 @@ mod tests {
             "{}",
             b.render_text()
         );
+    }
+
+    #[test]
+    fn bills_that_overflow_are_errors_not_wrapped_margins() {
+        let t = Target::resolve("m4-80").unwrap();
+        let huge = || {
+            vec![
+                Item::measured("a", u64::MAX, ""),
+                Item::measured("b", 1, ""),
+            ]
+        };
+        let e = verdict(&t, "m", huge(), vec![], None).unwrap_err();
+        assert!(e.to_string().contains("flash bill overflows"), "{e}");
+        let e = verdict(
+            &t,
+            "m",
+            vec![],
+            vec![Item::measured("a", u64::MAX, "")],
+            None,
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("RAM margin"), "{e}");
     }
 }
 

@@ -11,6 +11,11 @@ use crate::error::{Error, Result};
 /// Histogram resolution used for percentile and MSE ranges.
 pub const BINS: usize = 2048;
 
+/// Histogram bins `collect` holds at once (2^22 counts, 32 MiB). A model
+/// with more tensors than that many bins cover gets its histograms filled
+/// group by group, with one more pass over the samples per group.
+pub const HIST_BUDGET_BINS: usize = 1 << 22;
+
 /// How a tensor's range is chosen from its statistics.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize)]
 pub enum RangeMethod {
@@ -71,6 +76,8 @@ impl Histogram {
         (self.hi as f64 - self.lo as f64) / self.counts.len() as f64
     }
 
+    /// Counts `values`, which must be finite (`collect` refuses samples that
+    /// are not); any other value is not counted.
     pub fn add(&mut self, values: &[f32]) {
         let n = self.counts.len();
         let w = self.width();
@@ -166,6 +173,9 @@ pub struct TensorStats {
     pub min: f32,
     pub max: f32,
     pub hist: Option<Histogram>,
+    /// When `collect` had to drop the histogram to stay within
+    /// `HIST_BUDGET_BINS`: the range its method chose from it.
+    pub chosen: Option<Range>,
 }
 
 impl TensorStats {
@@ -174,20 +184,23 @@ impl TensorStats {
             min: f32::INFINITY,
             max: f32::NEG_INFINITY,
             hist: None,
+            chosen: None,
         }
     }
 
     fn see_extremes(&mut self, values: &[f32]) {
         for &v in values {
-            if v.is_finite() {
-                self.min = self.min.min(v);
-                self.max = self.max.max(v);
-            }
+            self.min = self.min.min(v);
+            self.max = self.max.max(v);
         }
     }
 
-    /// The range chosen by `method`. Needs the histogram for all but min/max.
+    /// The range chosen by `method`. Needs the histogram for all but min/max
+    /// (or, for a dropped one, `chosen`: the range of the method `collect` ran with).
     pub fn range(&self, method: RangeMethod) -> Range {
+        if let (Some(r), false) = (self.chosen, method == RangeMethod::MinMax) {
+            return r;
+        }
         if self.min > self.max {
             return Range { min: 0.0, max: 0.0 };
         }
@@ -230,11 +243,18 @@ pub fn collect(
             ));
         }
     }
-    let passes = if method.needs_histogram() { 2 } else { 1 };
-    let bar = progress_bar(show_progress, (count * passes) as u64, "calibrating");
+    let bar = progress_bar(show_progress, count as u64, "calibrating");
     let mut stats: Vec<TensorStats> = Vec::new();
     for i in 0..count {
         let tensors = run(i)?;
+        for (t, v) in tensors.iter().enumerate() {
+            if let Some(x) = v.iter().find(|x| !x.is_finite()) {
+                return Err(Error::new(
+                    "calibration",
+                    format!("sample {i}: tensor t{t} holds {x}; ranges need finite values"),
+                ));
+            }
+        }
         if stats.is_empty() {
             stats = vec![TensorStats::empty(); tensors.len()];
         }
@@ -244,19 +264,33 @@ pub fn collect(
         bar.inc(1);
     }
     if method.needs_histogram() {
-        for s in stats.iter_mut() {
-            if s.min <= s.max {
-                s.hist = Some(Histogram::new(s.min, s.max, BINS));
-            }
-        }
-        for i in 0..count {
-            let tensors = run(i)?;
-            for (s, t) in stats.iter_mut().zip(&tensors) {
-                if let Some(h) = s.hist.as_mut() {
-                    h.add(t);
+        let group = (HIST_BUDGET_BINS / BINS).max(1);
+        let keep = stats.len() <= group;
+        let groups = stats.len().div_ceil(group);
+        bar.set_length((count * (1 + groups)) as u64);
+        for g0 in (0..stats.len()).step_by(group) {
+            let g1 = (g0 + group).min(stats.len());
+            for s in &mut stats[g0..g1] {
+                if s.min <= s.max {
+                    s.hist = Some(Histogram::new(s.min, s.max, BINS));
                 }
             }
-            bar.inc(1);
+            for i in 0..count {
+                let tensors = run(i)?;
+                let part = tensors.get(g0..g1).unwrap_or(&[]);
+                for (s, t) in stats[g0..g1].iter_mut().zip(part) {
+                    if let Some(h) = s.hist.as_mut() {
+                        h.add(t);
+                    }
+                }
+                bar.inc(1);
+            }
+            if !keep {
+                for s in &mut stats[g0..g1] {
+                    s.chosen = Some(s.range(method));
+                    s.hist = None;
+                }
+            }
         }
     }
     bar.finish_and_clear();
@@ -399,6 +433,44 @@ mod tests {
         assert!(collect(0, RangeMethod::MinMax, false, |_| Ok(vec![])).is_err());
         let e = collect(1, RangeMethod::Percentile(20.0), false, |_| Ok(vec![])).unwrap_err();
         assert!(e.problem.contains("20"));
+        // Non-finite samples are refused, not dropped.
+        for bad in [f32::NAN, f32::INFINITY, f32::NEG_INFINITY] {
+            let e = collect(2, RangeMethod::Mse, false, |i| {
+                Ok(vec![
+                    vec![0.5, 1.0],
+                    vec![2.0, if i == 1 { bad } else { 0.0 }],
+                ])
+            })
+            .unwrap_err();
+            assert!(
+                e.problem.contains("sample 1") && e.problem.contains("t1"),
+                "{e}"
+            );
+        }
+    }
+
+    #[test]
+    fn grouped_histograms_give_the_same_ranges() {
+        // More tensors than one group's budget: ranges equal those of each
+        // tensor collected on its own (where the histogram is kept).
+        let n = HIST_BUDGET_BINS / BINS + 3;
+        let samples: Vec<Vec<Vec<f32>>> = (0..3)
+            .map(|i| {
+                (0..n)
+                    .map(|t| normal(40, (i * n + t) as u64))
+                    .collect::<Vec<_>>()
+            })
+            .collect();
+        // (Percentile only: an MSE search over thousands of tensors is slow
+        // at test opt-level; both methods share the grouping code.)
+        let method = RangeMethod::Percentile(99.0);
+        let all = collect(3, method, false, |i| Ok(samples[i].clone())).unwrap();
+        assert!(all.iter().all(|s| s.hist.is_none() && s.chosen.is_some()));
+        for t in [0, n / 2, n - 1] {
+            let one = collect(3, method, false, |i| Ok(vec![samples[i][t].clone()])).unwrap();
+            assert!(one[0].hist.is_some());
+            assert_eq!(all[t].range(method), one[0].range(method), "tensor {t}");
+        }
     }
 
     #[test]

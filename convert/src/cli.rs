@@ -450,7 +450,7 @@ fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
         c: inp.shape.c as u32,
         resize: a.resize,
     };
-    let mut ws = AlignedBytes::zeroed(model.workspace_len());
+    let mut ws = compare::host_workspace(&model, &a.model.display().to_string())?;
     for img in &a.images {
         let px = images::load_image(img, &spec)?;
         let out = model.run(&px, &mut ws).map_err(|e| {
@@ -461,6 +461,17 @@ fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
         })?;
         let rec = model.output();
         let logits = dequantize_tensor(&rec, out);
+        // Scores are never printed as NaN: a non-finite output (an fp16
+        // overflow inside the model) is an error naming the image.
+        if let Some(v) = logits.iter().find(|v| !v.is_finite()) {
+            return Err(Error::new(
+                img.display().to_string(),
+                format!(
+                    "model output t{} holds {v}: the model overflows fp16 on this image, no scores to print",
+                    model.output_id()
+                ),
+            ));
+        }
         let top = midge_runtime::exec::top1(&rec, out)
             .map(|(i, _)| i)
             .unwrap_or(0);
@@ -501,10 +512,7 @@ fn elem_name(e: ElemType) -> &'static str {
 /// The text `midge show` prints.
 pub fn show_text(model: &Model<'_>) -> String {
     let mut s = String::new();
-    let labels: Vec<String> = (0..model.label_count())
-        .filter_map(|i| model.label(i))
-        .map(|l| escape(l).into_owned())
-        .collect();
+    let labels: Vec<String> = model.labels().map(|l| escape(l).into_owned()).collect();
     let _ = writeln!(
         s,
         "model {} — {} bytes, {} layers, {} tensors",

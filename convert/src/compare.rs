@@ -138,6 +138,30 @@ impl Observer for Sqnr<'_> {
     }
 }
 
+/// Most bytes a host tool allocates for one buffer of a model run, the
+/// workspace or the input (256 MiB; a parsed model's workspace is exactly
+/// what its tensors use, but a file can still describe up to 4 GiB).
+pub const HOST_MAX_BUFFER: usize = 256 << 20;
+
+/// A zeroed workspace for `model`, refused (naming `place`) when the
+/// workspace or the input tensor is larger than `HOST_MAX_BUFFER`.
+pub fn host_workspace(model: &Model<'_>, place: &str) -> Result<AlignedBytes> {
+    for (what, len) in [
+        ("workspace", model.workspace_len()),
+        ("input tensor", model.input().byte_len()),
+    ] {
+        if len > HOST_MAX_BUFFER {
+            return Err(Error::new(
+                place,
+                format!(
+                    "{what} of {len} bytes is more than the host tools allocate ({HOST_MAX_BUFFER} bytes)"
+                ),
+            ));
+        }
+    }
+    Ok(AlignedBytes::zeroed(model.workspace_len()))
+}
+
 /// One quantized model ready to run on the host.
 struct Runner {
     bytes: AlignedBytes,
@@ -147,13 +171,10 @@ struct Runner {
 impl Runner {
     fn new(q: &Quantized, place: &str) -> Result<Runner> {
         let bytes = AlignedBytes::from_slice(&q.bytes);
-        let len = Model::parse(&bytes)
-            .map_err(|e| Error::new(place, format!("the runtime rejects the model: {e}")))?
-            .workspace_len();
-        Ok(Runner {
-            bytes,
-            ws: AlignedBytes::zeroed(len),
-        })
+        let model = Model::parse(&bytes)
+            .map_err(|e| Error::new(place, format!("the runtime rejects the model: {e}")))?;
+        let ws = host_workspace(&model, place)?;
+        Ok(Runner { bytes, ws })
     }
 
     /// Run once; `(top-1, dequantized logits)`.
@@ -243,7 +264,7 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
     let bar = progress_bar(progress, files.len() as u64, "evaluating");
     for (file, truth) in &files {
         let px = images::load_image(file, &spec)?;
-        let tensors = float_ref::run(graph, &px);
+        let tensors = float_ref::run_finite(graph, &px).map_err(|e| e.error(file))?;
         let logits = tensors.last().cloned().unwrap_or_default();
         let f_top = argmax(&logits).unwrap_or(0);
         let mut obs = Sqnr {

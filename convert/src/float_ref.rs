@@ -2,9 +2,35 @@
 //! bytes with plain loops, f32 values and f32 accumulation, HWC tensors.
 //! It is the converter's only second implementation, checked against candle.
 
+use std::path::Path;
+
 use midge_runtime::{Activation, Shape, Window};
 
+use crate::error::Error;
 use crate::graph::{FloatGraph, FloatOp, InputSpec, Node};
+
+/// The first value outside f32's finite range the reference produced: in
+/// tensor `tensor` (0 = the normalized input), written by layer `layer`.
+#[derive(Clone, Debug, PartialEq)]
+pub struct NonFinite {
+    pub tensor: usize,
+    pub layer: String,
+    pub element: usize,
+    pub value: f32,
+}
+
+impl NonFinite {
+    /// The error for image `image`, naming the layer.
+    pub fn error(&self, image: &Path) -> Error {
+        Error::new(
+            image.display().to_string(),
+            format!(
+                "float reference: layer {} produced {} (element {} of tensor t{}); the weights or the input normalization overflow f32",
+                self.layer, self.value, self.element, self.tensor
+            ),
+        )
+    }
+}
 
 /// Camera bytes (HWC) → normalized input:
 /// `x = (p / 255 · pixel_range − mean[c]) / std[c]`.
@@ -35,6 +61,26 @@ pub fn run(graph: &FloatGraph, pixels: &[u8]) -> Vec<Vec<f32>> {
         expected
     );
     run_normalized(graph, normalize(&graph.input, pixels))
+}
+
+/// Like [`run`], but stops at the first tensor holding an infinity or NaN
+/// (calibration and evaluation must not go on with them).
+pub fn run_finite(graph: &FloatGraph, pixels: &[u8]) -> Result<Vec<Vec<f32>>, NonFinite> {
+    let tensors = run(graph, pixels);
+    for (t, v) in tensors.iter().enumerate() {
+        if let Some(element) = v.iter().position(|x| !x.is_finite()) {
+            return Err(NonFinite {
+                tensor: t,
+                layer: match t {
+                    0 => "input (normalized)".to_string(),
+                    _ => graph.nodes[t - 1].name.clone(),
+                },
+                element,
+                value: v[element],
+            });
+        }
+    }
+    Ok(tensors)
 }
 
 /// Like [`run`], from an already normalized input (HWC f32).

@@ -195,14 +195,8 @@ pub fn model_footprint(model: &Model) -> ModelFootprint {
         .collect();
     let steps = plan::steps(&headers);
     let lifetimes = plan::lifetimes(&sizes, &steps, model.output_id(), &[0]);
-    let live = |step: usize| -> usize {
-        lifetimes
-            .iter()
-            .flatten()
-            .filter(|l| l.first <= step && step <= l.last)
-            .map(|l| l.bytes)
-            .sum()
-    };
+    let live_at = plan::live_bytes(&lifetimes);
+    let live = |step: usize| -> usize { live_at.get(step).copied().unwrap_or(0) };
     let mut layers = Vec::new();
     for i in 0..model.layer_count() {
         let Some(l) = model.layer(i) else { continue };

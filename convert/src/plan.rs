@@ -109,25 +109,27 @@ fn align_up(v: usize) -> usize {
 /// already-placed, lifetime-meeting tensors that holds it, else after the
 /// last of them. Offsets are multiples of `ALIGN`.
 pub fn place(lifetimes: &[Option<Lifetime>]) -> Plan {
-    let mut order: Vec<usize> = (0..lifetimes.len())
-        .filter(|&i| lifetimes[i].is_some())
+    let mut order: Vec<(usize, Lifetime)> = lifetimes
+        .iter()
+        .enumerate()
+        .filter_map(|(i, l)| Some((i, (*l)?)))
         .collect();
-    order.sort_by(|&a, &b| {
-        let (la, lb) = (lifetimes[a].unwrap(), lifetimes[b].unwrap());
-        lb.bytes.cmp(&la.bytes).then(a.cmp(&b))
-    });
+    order.sort_by(|(a, la), (b, lb)| lb.bytes.cmp(&la.bytes).then(a.cmp(b)));
+    let steps = order.iter().map(|(_, l)| l.last + 1).max().unwrap_or(0);
+    // Placed tensors live at each step: the tensors a new one meets are
+    // those listed at its steps, so placing costs the summed lifetimes,
+    // not the tensor count squared.
+    let mut at_step: Vec<Vec<usize>> = vec![Vec::new(); steps];
     let mut offsets: Vec<Option<usize>> = vec![None; lifetimes.len()];
-    let mut placed: Vec<usize> = Vec::new();
-    for &t in &order {
-        let me = lifetimes[t].unwrap();
+    let mut workspace_len = 0usize;
+    for &(t, me) in &order {
+        let mut meeting: Vec<usize> = at_step[me.first..=me.last].concat();
+        meeting.sort_unstable();
+        meeting.dedup();
         // Occupied intervals of meeting tensors, by offset.
-        let mut busy: Vec<(usize, usize)> = placed
+        let mut busy: Vec<(usize, usize)> = meeting
             .iter()
-            .filter(|&&p| lifetimes[p].unwrap().meets(&me))
-            .map(|&p| {
-                let o = offsets[p].unwrap();
-                (o, o + lifetimes[p].unwrap().bytes)
-            })
+            .filter_map(|&p| Some((offsets[p]?, offsets[p]? + lifetimes[p]?.bytes)))
             .collect();
         busy.sort_unstable();
         let mut best: Option<(usize, usize)> = None; // (gap size, offset)
@@ -147,13 +149,11 @@ pub fn place(lifetimes: &[Option<Lifetime>]) -> Plan {
             None => align_up(cursor),
         };
         offsets[t] = Some(offset);
-        placed.push(t);
+        workspace_len = workspace_len.max(offset + me.bytes);
+        for s in &mut at_step[me.first..=me.last] {
+            s.push(t);
+        }
     }
-    let workspace_len = placed
-        .iter()
-        .map(|&p| offsets[p].unwrap() + lifetimes[p].unwrap().bytes)
-        .max()
-        .unwrap_or(0);
     Plan {
         offsets,
         lifetimes: lifetimes.to_vec(),
@@ -162,25 +162,33 @@ pub fn place(lifetimes: &[Option<Lifetime>]) -> Plan {
     }
 }
 
-/// Max over steps of the summed bytes of the tensors live at that step.
-pub fn lower_bound(lifetimes: &[Option<Lifetime>]) -> usize {
+/// Summed bytes of the tensors live at each step (index = step), from one
+/// sweep over the lifetimes' starts and ends.
+pub fn live_bytes(lifetimes: &[Option<Lifetime>]) -> Vec<usize> {
     let steps = lifetimes
         .iter()
         .flatten()
         .map(|l| l.last + 1)
         .max()
         .unwrap_or(0);
-    (0..steps)
-        .map(|s| {
-            lifetimes
-                .iter()
-                .flatten()
-                .filter(|l| l.first <= s && s <= l.last)
-                .map(|l| l.bytes)
-                .sum::<usize>()
+    let mut delta = vec![0i128; steps + 1];
+    for l in lifetimes.iter().flatten() {
+        delta[l.first] += l.bytes as i128;
+        delta[l.last + 1] -= l.bytes as i128;
+    }
+    let mut live = 0i128;
+    delta[..steps]
+        .iter()
+        .map(|d| {
+            live += d;
+            usize::try_from(live).unwrap_or(usize::MAX)
         })
-        .max()
-        .unwrap_or(0)
+        .collect()
+}
+
+/// Max over steps of the summed bytes of the tensors live at that step.
+pub fn lower_bound(lifetimes: &[Option<Lifetime>]) -> usize {
+    live_bytes(lifetimes).into_iter().max().unwrap_or(0)
 }
 
 /// Pairs of tensors that are live together and share bytes (empty for a

@@ -32,6 +32,7 @@ use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
 use half::f16;
+use midge_runtime::format::{scale_in_range, MAX_LAYERS, SCALE_MAX, SCALE_MIN};
 use midge_runtime::requant::requant_from_real;
 use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
 use midge_runtime::{
@@ -47,8 +48,8 @@ use crate::graph::{load_graph, FloatGraph, FloatOp, Node, Precision};
 use crate::images::{self, ImageSpec};
 use crate::plan;
 
-/// Largest finite binary16 value.
-pub const F16_MAX: f32 = 65504.0;
+/// Largest finite binary16 value (the runtime's definition).
+pub use midge_runtime::format::F16_MAX;
 
 /// `x / scale + zp`, rounded to nearest with ties away from zero, clamped
 /// to `lo..=hi`.
@@ -248,6 +249,21 @@ impl<'g> Builder<'g> {
         })
     }
 
+    /// `quant` of an int8 or u8 tensor, refused (naming `place`) when its
+    /// scale is outside what a model file allows.
+    fn checked_quant(place: &str, what: &str, quant: Quant) -> Result<Quant> {
+        if scale_in_range(quant.scale) {
+            return Ok(quant);
+        }
+        Err(Error::new(
+            place,
+            format!(
+                "{what} scale {:e} is outside {:e}..={:e}, the range a model file allows (runtime/FORMAT.md, Limits)",
+                quant.scale, SCALE_MIN, SCALE_MAX
+            ),
+        ))
+    }
+
     fn new_tensor(&mut self, shape: Shape, elem: ElemType, quant: Quant) -> Result<u16> {
         let id = u16::try_from(self.tensors.len())
             .map_err(|_| Error::new(self.graph.name.clone(), "more than 65535 tensors"))?;
@@ -277,8 +293,12 @@ impl<'g> Builder<'g> {
             ElemType::I8 => (Op::Quantize, activation_quant(self.range(t)?), "to_int8"),
             _ => (Op::Dequantize, Quant::IDENTITY, "to_fp16"),
         };
-        let id = self.new_tensor(rec.shape, elem, quant)?;
         let name = format!("{}.{suffix}", self.tensor_name(t));
+        if elem == ElemType::I8 {
+            let place = format!("{}: layer {name}", self.graph.name);
+            Self::checked_quant(&place, "int8 activation", quant)?;
+        }
+        let id = self.new_tensor(rec.shape, elem, quant)?;
         self.push(
             name,
             LayerSpec {
@@ -329,10 +349,14 @@ impl<'g> Builder<'g> {
             }
         }
         let shape = inp.shape();
-        let camera = Quant {
-            scale: (range / 255.0) as f32,
-            zero_point: 0,
-        };
+        let camera = Self::checked_quant(
+            &place,
+            "camera byte (pixel_range / 255)",
+            Quant {
+                scale: (range / 255.0) as f32,
+                zero_point: 0,
+            },
+        )?;
         let input = self.new_tensor(shape, ElemType::U8, camera)?;
         debug_assert_eq!(input, 0);
         // Exact range of the normalized input.
@@ -348,10 +372,14 @@ impl<'g> Builder<'g> {
         }
         let (quant, params) = match elem {
             ElemType::I8 => {
-                let q = activation_quant(Range {
-                    min: lo as f32,
-                    max: hi as f32,
-                });
+                let q = Self::checked_quant(
+                    &place,
+                    "normalized input",
+                    activation_quant(Range {
+                        min: lo as f32,
+                        max: hi as f32,
+                    }),
+                )?;
                 let mut p = Vec::with_capacity(3 * c);
                 for k in 0..c {
                     let (m, s) = (inp.mean[k] as f64, inp.std[k] as f64);
@@ -436,7 +464,11 @@ impl<'g> Builder<'g> {
         let pool = matches!(op, Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool);
         let quant = match elem {
             ElemType::I8 if pool => a.quant,
-            ElemType::I8 => activation_quant(self.range(t_out)?),
+            ElemType::I8 => Self::checked_quant(
+                &place,
+                "int8 activation",
+                activation_quant(self.range(t_out)?),
+            )?,
             _ => Quant::IDENTITY,
         };
         let out = self.new_tensor(node.out_shape, elem, quant)?;
@@ -456,6 +488,7 @@ impl<'g> Builder<'g> {
             }
             (FloatOp::Conv2d { .. } | FloatOp::Depthwise { .. } | FloatOp::Dense { .. }, _) => {
                 let (w, b) = node.op.weight_bias().unwrap_or((&[], &[]));
+                fp16_range(&place, w)?;
                 (
                     WeightsBuf::F16(w.iter().map(|&v| f16::from_f32(v)).collect()),
                     BiasBuf::F32(b.to_vec()),
@@ -480,6 +513,21 @@ impl<'g> Builder<'g> {
         );
         self.produced(t_out, out);
         Ok(())
+    }
+}
+
+/// Refuses (naming the layer, the element and its value) a weight outside
+/// the finite binary16 range, which fp16 would turn into ±inf.
+fn fp16_range(place: &str, w: &[f32]) -> Result<()> {
+    match w.iter().position(|v| v.abs() > F16_MAX) {
+        None => Ok(()),
+        Some(i) => Err(Error::new(
+            place,
+            format!(
+                "weight {i} of the layer's weight tensor (after any BatchNorm folding) is {:e}, outside the fp16 range -{F16_MAX}..={F16_MAX}; keep this layer int8 or rescale its weights",
+                w[i]
+            ),
+        )),
     }
 }
 
@@ -579,6 +627,7 @@ pub fn quantize_graph(graph: &FloatGraph, ranges: &[Range]) -> Result<Quantized>
     if graph.nodes.is_empty() {
         return Err(Error::new(graph.name.clone(), "the model has no layers"));
     }
+    check_layer_count(&graph.name, graph.nodes.len() + 1)?;
     let first_reader = graph
         .nodes
         .iter()
@@ -598,6 +647,7 @@ pub fn quantize_graph(graph: &FloatGraph, ranges: &[Range]) -> Result<Quantized>
         b.node(k)?;
     }
     let output = b.primary[graph.output_id()];
+    check_layer_count(&graph.name, b.layers.len())?;
 
     let sizes: Vec<usize> = b.tensors.iter().map(|t| t.byte_len()).collect();
     let steps = plan::steps(b.layers.iter().map(|l| &l.header));
@@ -655,6 +705,20 @@ pub fn quantize_graph(graph: &FloatGraph, ranges: &[Range]) -> Result<Quantized>
         source,
         plan: summary,
     })
+}
+
+/// Refuses a model of more runtime layers (`layers`: the folded layers, the
+/// pixels layer and any precision conversions) than a model file holds.
+pub fn check_layer_count(place: &str, layers: usize) -> Result<()> {
+    if layers <= MAX_LAYERS {
+        return Ok(());
+    }
+    Err(Error::new(
+        place,
+        format!(
+            "{layers} runtime layers (folded layers, the pixels layer and precision conversions); a model file holds at most {MAX_LAYERS} (runtime/FORMAT.md, Limits)"
+        ),
+    ))
 }
 
 /// Options of one conversion (the CLI's flags).
@@ -725,11 +789,15 @@ pub fn load_with_precision(
     let (desc, mut graph, warnings) = load_graph(path)?;
     if let Some(p) = precision {
         let infos = desc.topology()?;
+        let by_name: HashMap<&str, usize> = infos
+            .iter()
+            .rev()
+            .map(|l| (l.name.as_str(), l.index))
+            .collect();
         for node in graph.nodes.iter_mut() {
-            let explicit = infos
-                .iter()
-                .find(|l| l.name == node.name)
-                .and_then(|l| desc.layers.get(l.index))
+            let explicit = by_name
+                .get(node.name.as_str())
+                .and_then(|&i| desc.layers.get(i))
                 .and_then(|l| l.precision);
             node.precision = explicit.unwrap_or(p);
         }
@@ -760,7 +828,7 @@ pub fn calibrate_graph(
         .map(|f| images::load_image(f, &spec))
         .collect::<Result<_>>()?;
     let stats = calibrate::collect(pixels.len(), method, progress, |i| {
-        Ok(float_ref::run(graph, &pixels[i]))
+        float_ref::run_finite(graph, &pixels[i]).map_err(|e| e.error(&files[i]))
     })?;
     Ok((
         stats.iter().map(|s| s.range(method)).collect(),
@@ -772,6 +840,8 @@ pub fn calibrate_graph(
 /// quantize, plan, emit (nothing is written to disk).
 pub fn quantize_description(path: &Path, opts: &QuantizeOptions) -> Result<Conversion> {
     let (desc, graph, warnings) = load_with_precision(path, opts.precision)?;
+    // Before calibration, which costs time and memory per layer.
+    check_layer_count(&path.display().to_string(), graph.nodes.len() + 1)?;
     let dir = opts
         .calibration
         .clone()
@@ -890,5 +960,13 @@ mod tests {
         let s = (p[2] as f64).exp2();
         assert!((p[0] as f64 / s - 0.5).abs() < 1e-9);
         assert!((p[1] as f64 / s - 0.25).abs() < 1e-9);
+    }
+
+    #[test]
+    fn layer_count_beyond_the_format_limit_is_refused() {
+        assert!(check_layer_count("m", MAX_LAYERS).is_ok());
+        let e = check_layer_count("m", MAX_LAYERS + 1).unwrap_err().to_string();
+        assert!(e.contains("32769 runtime layers"), "{e}");
+        assert!(e.contains("at most 32768"), "{e}");
     }
 }

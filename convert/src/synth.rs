@@ -2,6 +2,8 @@
 //! ship no weights (reference architectures, sweeps): the normal graph,
 //! calibration and quantize path then gives a model of the true size.
 
+use std::path::Path;
+
 use crate::calibrate::{self, RangeMethod};
 use crate::description::{Description, LayerKind};
 use crate::float_ref;
@@ -86,7 +88,8 @@ pub fn synth_quantize(desc: &Description, seed: u64) -> Result<Quantized> {
     let pixels = synth_pixels(desc, SYNTH_CALIBRATION_IMAGES, seed);
     let method = RangeMethod::MinMax;
     let stats = calibrate::collect(pixels.len(), method, false, |i| {
-        Ok(float_ref::run(&graph, &pixels[i]))
+        float_ref::run_finite(&graph, &pixels[i])
+            .map_err(|e| e.error(Path::new(&format!("synthetic image {i}"))))
     })?;
     let ranges: Vec<_> = stats.iter().map(|s| s.range(method)).collect();
     quantize::quantize_graph(&graph, &ranges)

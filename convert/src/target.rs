@@ -46,6 +46,14 @@ impl Core {
 /// with `info mtree`): SSRAM1 at 0, SSRAM2/3 at 0x2000_0000.
 pub const EMULATOR_MACHINES: [&str; 3] = ["mps2-an385", "mps2-an386", "mps2-an500"];
 
+/// Largest RAM or flash a profile may state, reserved parts included:
+/// 4 GiB, the whole 32-bit address space of a Cortex-M core.
+pub const MAX_MEMORY_BYTES: u64 = 1 << 32;
+/// Fastest clock a profile may state: 4 GHz (Cortex-M parts run below 1.5 GHz).
+pub const MAX_CLOCK_HZ: u64 = 4_000_000_000;
+/// Largest planning CPI factor a profile may state.
+pub const MAX_CYCLES_PER_INSTRUCTION: f64 = 1000.0;
+
 /// The `[emulator]` table.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -118,18 +126,36 @@ impl Target {
                 ),
             ));
         }
-        if self.clock_hz == 0 {
+        if self.clock_hz == 0 || self.clock_hz > MAX_CLOCK_HZ {
             return Err(bad(
                 "clock_hz",
-                "expected a clock above 0 Hz, found 0".into(),
+                format!(
+                    "expected a clock in 1..={MAX_CLOCK_HZ} Hz, found {}",
+                    self.clock_hz
+                ),
             ));
         }
         let cpi = self.cycles_per_instruction;
-        if !(cpi.is_finite() && cpi > 0.0) {
+        if !(cpi.is_finite() && cpi > 0.0 && cpi <= MAX_CYCLES_PER_INSTRUCTION) {
             return Err(bad(
                 "cycles_per_instruction",
-                format!("expected a positive number, found {cpi}"),
+                format!(
+                    "expected a positive number at most {MAX_CYCLES_PER_INSTRUCTION}, found {cpi}"
+                ),
             ));
+        }
+        for (key, v) in [
+            ("ram_bytes", self.ram_bytes),
+            ("flash_bytes", self.flash_bytes),
+            ("reserved_ram_bytes", self.reserved_ram_bytes),
+            ("reserved_flash_bytes", self.reserved_flash_bytes),
+        ] {
+            if v > MAX_MEMORY_BYTES {
+                return Err(bad(
+                    key,
+                    format!("expected at most {MAX_MEMORY_BYTES} (4 GiB), found {v}"),
+                ));
+            }
         }
         if self.reserved_ram_bytes > self.ram_bytes {
             return Err(bad(
@@ -269,6 +295,32 @@ machine = "mps2-an386"
         let e = Target::from_toml_str(&GOOD.replace("thumbv7em-none-eabihf", "x86"), "t.toml")
             .unwrap_err();
         assert!(e.to_string().contains("rust_target"), "{e}");
+        // Sane maxima: 4 GiB of memory, 4 GHz, CPI 1000.
+        for (from, to, key) in [
+            (
+                "ram_bytes = 100",
+                "ram_bytes = 18446744073709551615",
+                "ram_bytes",
+            ),
+            (
+                "flash_bytes = 200",
+                "flash_bytes = 4294967297",
+                "flash_bytes",
+            ),
+            ("clock_hz = 1000", "clock_hz = 4000000001", "clock_hz"),
+            (
+                "cycles_per_instruction = 2.0",
+                "cycles_per_instruction = 1e300",
+                "cycles_per_instruction",
+            ),
+        ] {
+            let e = Target::from_toml_str(&GOOD.replace(from, to), "t.toml").unwrap_err();
+            assert!(e.to_string().contains(&format!("key `{key}`")), "{e}");
+        }
+        let at_limit = GOOD
+            .replace("ram_bytes = 100", "ram_bytes = 4294967296")
+            .replace("clock_hz = 1000", "clock_hz = 4000000000");
+        assert!(Target::from_toml_str(&at_limit, "t.toml").is_ok());
     }
 
     #[test]

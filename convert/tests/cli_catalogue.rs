@@ -401,23 +401,353 @@ const PREVIOUS_OUTPUT: &[u8] = b"the user's previous model file";
 fn bad_inputs_exit_2_with_one_line_and_no_output() {
     let cases: Vec<Case> = catalogue().into_iter().chain(hostile_catalogue()).collect();
     assert!(cases.len() >= 20);
+    run_cases("catalogue", &cases);
+}
+
+// ---------------------------------------------------------------------------
+// Numeric and model-parse cases (issue 10, classes 5, 6, 9, 10, 11, 13),
+// and the runner both catalogues share.
+
+use midge_convert::graph::Precision;
+use midge_runtime::format::field;
+
+/// Offsets of the model-info block and its fields inside a model file.
+const INFO: usize = field::header::LEN;
+
+/// Write `value` at file offset `at` of the model file `p` and fix its CRC.
+fn patch_midge(p: &Path, at: usize, value: &[u8]) {
+    let mut b = fs::read(p).unwrap();
+    b[at..at + value.len()].copy_from_slice(value);
+    let crc = midge_runtime::crc::crc32(&b[field::header::LEN..]);
+    b[field::header::CRC].copy_from_slice(&crc.to_le_bytes());
+    fs::write(p, b).unwrap();
+}
+
+fn read_u32(b: &[u8], at: usize) -> usize {
+    u32::from_le_bytes(b[at..at + 4].try_into().unwrap()) as usize
+}
+
+/// File offset of field `f` of tensor record `t`.
+fn tensor_field(t: usize, f: field::Field) -> usize {
+    INFO + field::info::LEN + t * field::tensor::LEN + f.start
+}
+
+/// An all-fp16 `model.midge` of the tiny description.
+fn write_fp16_midge(dir: &Path) -> PathBuf {
+    let opts = QuantizeOptions {
+        precision: Some(Precision::Fp16),
+        ..QuantizeOptions::default()
+    };
+    let conv =
+        quantize_description(&dir.join("model.toml"), &opts).unwrap_or_else(|e| panic!("{e}"));
+    let p = dir.join("model.midge");
+    fs::write(&p, &conv.quantized.bytes).unwrap();
+    p
+}
+
+/// File offset of the first weights blob of `p` (a conv2d's, in the tiny model).
+fn first_weights_blob(p: &Path) -> usize {
+    let b = fs::read(p).unwrap();
+    let table = read_u32(&b, INFO + field::info::LAYERS.start);
+    let layers = u16::from_le_bytes(b[INFO + 8..INFO + 10].try_into().unwrap()) as usize;
+    (0..layers)
+        .map(|i| {
+            read_u32(
+                &b,
+                table + i * field::layer::LEN + field::layer::WEIGHTS.start,
+            )
+        })
+        .find(|&off| off != 0)
+        .expect("a layer with weights")
+}
+
+/// Head weights of 3e38: the head reads non-negative averages of ReLU6
+/// outputs, so its sums pass f32::MAX (equal weights on signed inputs, as
+/// in the stem, may cancel instead).
+fn overflow_head(d: &Path) {
+    edit_weights(d, |m| {
+        let w = &mut m.tensors.get_mut("head.weight").unwrap().data;
+        w.iter_mut().for_each(|v| *v = 3.0e38);
+    });
+}
+
+/// `classify` on the model file `p` after setting tensor `t`'s scale.
+fn classify_with_scale(p: &Path, d: &Path, t: usize, scale: f32) -> Vec<String> {
+    patch_midge(
+        p,
+        tensor_field(t, field::tensor::SCALE),
+        &scale.to_le_bytes(),
+    );
+    classify(p, d)
+}
+
+fn classify(p: &Path, d: &Path) -> Vec<String> {
+    args(&["classify", &s(p), &s(&d.join("calib").join("c00.png"))])
+}
+
+fn profile_with(d: &Path, key_line: &str) -> PathBuf {
+    let t = d.join("board.toml");
+    let text = fs::read_to_string(
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("../models/targets/m4-80.toml"),
+    )
+    .unwrap();
+    let key = key_line.split('=').next().unwrap().trim();
+    let line = text
+        .lines()
+        .find(|l| l.starts_with(&format!("{key} ")))
+        .unwrap_or_else(|| panic!("m4-80.toml has no {key}"));
+    fs::write(&t, text.replacen(line, key_line, 1)).unwrap();
+    t
+}
+
+fn budget_with(d: &Path, key_line: &str) -> Vec<String> {
+    let p = write_midge(d);
+    let t = profile_with(d, key_line);
+    args(&[
+        "budget",
+        &s(&p),
+        "--target",
+        &s(&t),
+        "--no-emulate",
+        "--no-runtime-size",
+    ])
+}
+
+/// A valid 3-layer model file of a few hundred bytes whose 65535×65535
+/// camera image and first tensor need a 4 GiB workspace: pixels, then a
+/// 1×1 max pool of stride 65535 down to one value.
+fn huge_workspace_model() -> Vec<u8> {
+    use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
+    use midge_runtime::{Activation, ElemType, LayerHeader, Op, Padding, Quant, Shape, Window};
+    let t = |h, w, elem, offset| midge_runtime::TensorRecord {
+        shape: Shape::new(h, w, 1),
+        elem,
+        quant: Quant {
+            scale: 1.0 / 255.0,
+            zero_point: 0,
+        },
+        offset,
+    };
+    let head = |op, input, output, window| LayerHeader {
+        op,
+        act: Activation::None,
+        inputs: [input, 0],
+        output,
+        window,
+        clamp_i8: [-128, 127],
+        clamp_f32: [-65504.0, 65504.0],
+    };
+    let big = 65535u32 * 65535;
+    let out_at = big.div_ceil(8) * 8;
+    let spec = ModelSpec {
+        name: "huge".into(),
+        labels: vec!["only".into()],
+        tensors: vec![
+            t(65535, 65535, ElemType::U8, 0),
+            t(65535, 65535, ElemType::I8, 0),
+            t(1, 1, ElemType::I8, out_at),
+        ],
+        layers: vec![
+            LayerSpec {
+                header: head(Op::Pixels, 0, 1, Window::default()),
+                weights: WeightsBuf::None,
+                bias: BiasBuf::None,
+                params: ParamsBuf::I32(vec![128 * 256, 1 << 30, 38]),
+            },
+            LayerSpec {
+                header: head(
+                    Op::MaxPool,
+                    1,
+                    2,
+                    Padding::Valid.resolve((65535, 65535), (1, 1), (65535, 65535), (1, 1)),
+                ),
+                weights: WeightsBuf::None,
+                bias: BiasBuf::None,
+                params: ParamsBuf::None,
+            },
+        ],
+        output: 2,
+        workspace_len: out_at + 1,
+    };
+    spec.emit().unwrap()
+}
+
+fn numeric_catalogue() -> Vec<Case> {
+    vec![
+        // Class 5: a CRC-valid file claiming a 4 GiB workspace.
+        Case {
+            name: "model claims a 4 GiB workspace",
+            prepare: |d| {
+                let p = write_midge(d);
+                patch_midge(
+                    &p,
+                    INFO + field::info::WORKSPACE_LEN.start,
+                    &u32::MAX.to_le_bytes(),
+                );
+                classify(&p, d)
+            },
+            expect: &["model.midge", "workspace length", "4294967295"],
+        },
+        Case {
+            name: "valid model whose workspace needs 4 GiB",
+            prepare: |d| {
+                let p = d.join("model.midge");
+                fs::write(&p, huge_workspace_model()).unwrap();
+                classify(&p, d)
+            },
+            expect: &[
+                "model.midge",
+                "workspace of 4294836233 bytes",
+                "host tools allocate",
+            ],
+        },
+        // Class 6: layer-count limit, in a model file and in a description.
+        Case {
+            name: "model file claims more layers than the format allows",
+            prepare: |d| {
+                let p = write_midge(d);
+                patch_midge(
+                    &p,
+                    INFO + field::info::LAYER_COUNT.start,
+                    &40000u16.to_le_bytes(),
+                );
+                show(&p)
+            },
+            expect: &["model.midge", "layer count", "32768", "40000"],
+        },
+        // Class 9: fp16 overflow is refused, naming the layer, value and range.
+        Case {
+            name: "--precision fp16 on a weight beyond 65504",
+            prepare: |d| {
+                edit_weights(d, |m| {
+                    m.tensors.get_mut("block.weight").unwrap().data[5] = 1.0e5;
+                });
+                let mut a = quantize(d);
+                a.extend(args(&["--precision", "fp16"]));
+                a
+            },
+            expect: &["layer block", "1e5", "fp16 range", "65504"],
+        },
+        Case {
+            name: "fp16 model file with an infinite weight",
+            prepare: |d| {
+                let p = write_fp16_midge(d);
+                let at = first_weights_blob(&p);
+                patch_midge(&p, at, &0x7C00u16.to_le_bytes()); // binary16 +inf
+                show(&p)
+            },
+            expect: &["model.midge", "fp16 weights must be finite"],
+        },
+        // Class 10: non-finite float reference during calibration.
+        Case {
+            name: "weights overflow the float reference (quantize)",
+            prepare: |d| {
+                overflow_head(d);
+                quantize(d)
+            },
+            expect: &[
+                "calib",
+                ".png",
+                "float reference",
+                "layer head",
+                "overflow f32",
+            ],
+        },
+        Case {
+            name: "weights overflow the float reference (compare)",
+            prepare: |d| {
+                overflow_head(d);
+                args(&["compare", &s(&d.join("model.toml"))])
+            },
+            expect: &[".png", "float reference", "layer head", "inf"],
+        },
+        Case {
+            // Finite but huge activations would need an int8 scale beyond 2^32.
+            name: "activation range beyond the int8 scale limit",
+            prepare: |d| {
+                edit_weights(d, |m| {
+                    let w = &mut m.tensors.get_mut("head.weight").unwrap().data;
+                    w.iter_mut().for_each(|v| *v = 1.0e37);
+                });
+                quantize(d)
+            },
+            expect: &["layer head", "int8 activation scale", "outside"],
+        },
+        // Class 11: profile values beyond the sane maxima.
+        Case {
+            name: "target profile RAM beyond 4 GiB",
+            prepare: |d| budget_with(d, "ram_bytes = 9223372036854775807"),
+            expect: &["board.toml", "ram_bytes", "4 GiB"],
+        },
+        Case {
+            name: "target profile clock beyond 4 GHz",
+            prepare: |d| budget_with(d, "clock_hz = 80000000000"),
+            expect: &["board.toml", "clock_hz", "4000000000"],
+        },
+        // Class 13: absurd and non-finite scales; classify never prints NaN.
+        Case {
+            name: "model output scale 3e38",
+            prepare: |d| {
+                let p = write_midge(d);
+                let b = fs::read(&p).unwrap();
+                let out = u16::from_le_bytes(b[INFO + 4..INFO + 6].try_into().unwrap());
+                classify_with_scale(&p, d, out as usize, 3.0e38)
+            },
+            expect: &["model.midge", "scale 3e38", "2^32"],
+        },
+        Case {
+            // With infinite clamps an fp16 head could store ±inf, which
+            // `classify` would have turned into NaN scores.
+            name: "fp16 model with infinite clamp bounds",
+            prepare: |d| {
+                let p = write_fp16_midge(d);
+                let b = fs::read(&p).unwrap();
+                let table = read_u32(&b, INFO + field::info::LAYERS.start);
+                let layers = u16::from_le_bytes(b[INFO + 8..INFO + 10].try_into().unwrap());
+                let last = table + (layers as usize - 1) * field::layer::LEN;
+                let mut inf = f32::NEG_INFINITY.to_le_bytes().to_vec();
+                inf.extend(f32::INFINITY.to_le_bytes());
+                patch_midge(&p, last + field::layer::CLAMP_F32_MIN.start, &inf);
+                classify(&p, d)
+            },
+            expect: &["model.midge", "fp16 clamp", "65504"],
+        },
+        Case {
+            name: "model tensor scale NaN",
+            prepare: |d| {
+                let p = write_midge(d);
+                classify_with_scale(&p, d, 1, f32::NAN)
+            },
+            expect: &["model.midge", "tensor 1", "scale NaN"],
+        },
+    ]
+}
+
+
+/// Runs every case in its own fresh copy of the tiny model: exit status 2,
+/// exactly one stderr line mentioning every `expect` string, no NaN on
+/// stdout, no new file, and every file that existed before the run
+/// byte-for-byte unchanged.
+fn run_cases(tag: &str, cases: &[Case]) {
     let mut failures = Vec::new();
     for (i, case) in cases.iter().enumerate() {
-        let dir = scratch(&format!("catalogue-{i}"));
+        let dir = scratch(&format!("{tag}-{i}"));
         write_model(&dir, "", 7);
         fs::write(dir.join("out.midge"), PREVIOUS_OUTPUT).unwrap();
         let argv = (case.prepare)(&dir);
         let before = files(&dir);
         let o = run_bounded(&argv);
         let err = String::from_utf8_lossy(&o.stderr).into_owned();
-        let lines: Vec<&str> = err.lines().collect();
         let after = files(&dir);
         let mut problems = Vec::new();
         if o.status.code() != Some(2) {
             problems.push(format!("exit status {:?}, expected 2", o.status.code()));
         }
-        if lines.len() != 1 {
-            problems.push(format!("{} stderr lines, expected 1", lines.len()));
+        if err.lines().count() != 1 {
+            problems.push(format!("{} stderr lines, expected 1", err.lines().count()));
+        }
+        if String::from_utf8_lossy(&o.stdout).contains("NaN") {
+            problems.push("stdout shows NaN".into());
         }
         for e in case.expect {
             if !err.contains(e) {
@@ -448,7 +778,7 @@ fn bad_inputs_exit_2_with_one_line_and_no_output() {
         }
     }
     eprintln!(
-        "CLI catalogue: {} bad inputs, {} failed",
+        "CLI {tag}: {} bad inputs, {} failed",
         cases.len(),
         failures.len()
     );
@@ -975,4 +1305,9 @@ fn hostile_names_are_escaped_in_show_and_in_generated_source() {
     assert!(stdout.contains(r"b\nar"), "{stdout}");
     assert!(!stdout.lines().any(|l| l.starts_with("pub fn")), "{stdout}");
     fs::remove_dir_all(&d).unwrap();
+}
+
+#[test]
+fn numeric_bad_inputs_exit_2_with_one_line_and_leave_files_alone() {
+    run_cases("numeric-catalogue", &numeric_catalogue());
 }

@@ -30,6 +30,9 @@ pub enum Error {
         what: &'static str,
         value: u32,
     },
+    /// The scale of tensor record `index` (f32 bits) is outside its range:
+    /// `format::SCALE_MIN..=SCALE_MAX` for I8 and U8, exactly 1.0 for F16.
+    TensorScale { index: usize, bits: u32 },
     /// A field of layer record `index` holds a value outside its allowed set.
     LayerField {
         index: usize,
@@ -86,6 +89,11 @@ impl fmt::Display for Error {
             Error::TensorField { index, what, value } => {
                 write!(f, "tensor {index}: invalid {what}: {value}")
             }
+            Error::TensorScale { index, bits } => write!(
+                f,
+                "tensor {index}: scale {:e} is outside 2^-64..=2^32 (int8 and u8 tensors; fp16 tensors have exactly 1)",
+                f32::from_bits(bits)
+            ),
             Error::LayerField { index, what, value } => {
                 write!(f, "layer {index}: invalid {what}: {value}")
             }

@@ -3,6 +3,7 @@
 //! dispatches to the kernels. Also the on-device result helper `top1`.
 
 use crate::error::Error;
+use crate::format::F16_MAX;
 use crate::kernels::{self, fault, fp16, int8};
 use crate::repr::{Bias, ElemType, LayerRef, Op, Params, Shape, TensorRecord, Weights};
 use crate::requant::requant_in_range;
@@ -71,16 +72,18 @@ fn zp_ok(t: &TensorRecord) -> bool {
 }
 
 fn scale_ok(t: &TensorRecord) -> bool {
-    t.quant.scale.is_finite() && t.quant.scale > 0.0
+    crate::format::scale_in_range(t.quant.scale)
 }
 
 fn clamp_i8_ok(c: [i32; 2]) -> bool {
     -128 <= c[0] && c[0] <= c[1] && c[1] <= 127
 }
 
+/// Ordered and inside the finite binary16 range: every fp16 store clamps,
+/// so fp16 activations are always finite (NaN is stored as the low bound).
 fn clamp_f32_ok(c: [f32; 2]) -> bool {
     // Comparisons with NaN are false, so NaN bounds are rejected too.
-    c[0] <= c[1]
+    -F16_MAX <= c[0] && c[0] <= c[1] && c[1] <= F16_MAX
 }
 
 /// Checks the per-output-channel requant pairs of an int8 layer.
@@ -171,7 +174,14 @@ fn check_weighted(
             if w.len() != w_len {
                 return Err(bad(index, "weight length does not match the shapes"));
             }
+            // One linear scan at parse time (FORMAT.md, "Limits").
+            if !w.iter().all(|v| v.is_finite()) {
+                return Err(bad(index, "fp16 weights must be finite (no inf or NaN)"));
+            }
             match layer.bias {
+                Bias::F32(b) if b.iter().any(|v| !v.is_finite()) => {
+                    return Err(bad(index, "fp16 layer bias must be finite (no inf or NaN)"))
+                }
                 Bias::F32(b) if b.is_empty() || b.len() == out_c => {}
                 Bias::None => {}
                 Bias::F32(_) => {
@@ -195,7 +205,8 @@ fn check_weighted(
 /// Checks, per op: element types; the output shape (from
 /// `Window::output_hw` for windowed ops); blob kinds and lengths; requant
 /// multipliers in 0..2^31 and rshifts in 1..=62; clamp bounds ordered (int8:
-/// within −128..=127); int8 zero points in −128..=127; for pooling at least
+/// within −128..=127); int8 zero points in −128..=127; fp16 weights and
+/// biases finite; int8 scales of quantize/dequantize in range; for pooling at least
 /// one in-bounds tap per output and an exact int32 sum; and the worst-case
 /// int32 accumulator of conv2d/depthwise/dense (see `check_accumulator`).
 pub fn check_layer(
@@ -226,7 +237,10 @@ pub fn check_layer(
             ))
         }
         ElemType::F16 if !clamp_f32_ok(h.clamp_f32) => {
-            return Err(bad(index, "fp16 clamp must be ordered and not NaN"))
+            return Err(bad(
+                index,
+                "fp16 clamp must be ordered and within -65504..=65504",
+            ))
         }
         ElemType::U8 => return Err(bad(index, "no layer outputs u8")),
         _ => {}

@@ -13,6 +13,23 @@ pub const VERSION: u16 = 1;
 /// Every section and every blob starts at a multiple of this, counted from file start.
 pub const ALIGN: usize = 8;
 
+/// Most layers a model may have (FORMAT.md, "Limits"): 2^15, far beyond
+/// any network a microcontroller runs, and it bounds the validation work.
+pub const MAX_LAYERS: usize = 32768;
+/// Largest finite binary16 value (IEEE 754; common practice): the bound of
+/// fp16 clamps.
+pub const F16_MAX: f32 = 65504.0;
+/// Largest scale of an I8 or U8 tensor (2^32; FORMAT.md, "Limits").
+pub const SCALE_MAX: f32 = (1u64 << 32) as f32;
+/// Smallest scale of an I8 or U8 tensor (2^−64; FORMAT.md, "Limits").
+pub const SCALE_MIN: f32 = 1.0 / SCALE_MAX / SCALE_MAX;
+
+/// Whether `scale` is allowed for an I8 or U8 tensor: finite and in
+/// `SCALE_MIN..=SCALE_MAX` (NaN fails both comparisons).
+pub fn scale_in_range(scale: f32) -> bool {
+    (SCALE_MIN..=SCALE_MAX).contains(&scale)
+}
+
 /// Named byte ranges of each structure (offsets inside the structure).
 pub mod field {
     pub type Field = core::ops::Range<usize>;
@@ -466,8 +483,8 @@ impl<T: AsRef<[u8]>> TensorView<T> {
 impl TensorRecord {
     /// Reads one record and checks each field on its own: element type,
     /// non-empty shape, quantization allowed for the element type
-    /// (I8: scale finite > 0, zero point in −128..=127; U8: scale finite > 0,
-    /// zero point 0; F16: scale 1.0, zero point 0), and the reserved byte.
+    /// (I8: scale in `SCALE_MIN..=SCALE_MAX`, zero point in −128..=127; U8:
+    /// scale in that range, zero point 0; F16: scale 1.0, zero point 0), and the reserved byte.
     /// `index` is for error context only.
     pub fn parse<T: AsRef<[u8]>>(
         view: &TensorView<T>,
@@ -489,10 +506,13 @@ impl TensorRecord {
         let zero_point = view.zero_point();
         let scale_ok = match elem {
             ElemType::F16 => view.scale_bits() == 1.0f32.to_bits(),
-            ElemType::I8 | ElemType::U8 => scale.is_finite() && scale > 0.0,
+            ElemType::I8 | ElemType::U8 => scale_in_range(scale),
         };
         if !scale_ok {
-            return Err(bad("scale (f32 bits)", view.scale_bits()));
+            return Err(Error::TensorScale {
+                index,
+                bits: view.scale_bits(),
+            });
         }
         let zp_ok = match elem {
             ElemType::I8 => (-128..=127).contains(&zero_point),

@@ -7,7 +7,8 @@ use crate::error::Error;
 use crate::exec;
 use crate::format::{
     self, blob_types, canonical_sections, field, read_string, BlobType, FileHeader, HeaderView,
-    InfoView, LayerRecord, LayerView, ModelInfo, Span, TensorView, ALIGN, SECTIONS_START,
+    InfoView, LayerRecord, LayerView, ModelInfo, Span, TensorView, ALIGN, MAX_LAYERS,
+    SECTIONS_START,
 };
 use crate::repr::{Bias, LayerRef, Op, Params, TensorRecord, Weights};
 
@@ -54,6 +55,11 @@ pub struct Model<'a> {
     bytes: &'a [u8],
     info: ModelInfo,
 }
+
+/// Tensors whose last readers `check_lifetimes` finds per pass over the
+/// layer table when it cannot allocate (256 bytes of stack).
+#[cfg_attr(feature = "std", allow(dead_code))]
+const LIFETIME_BLOCK: usize = 128;
 
 fn is_aligned(bytes: &[u8], align: usize) -> bool {
     (bytes.as_ptr() as usize).is_multiple_of(align)
@@ -132,6 +138,12 @@ impl<'a> Model<'a> {
     /// Sections in canonical places, zero padding between them.
     fn check_layout(&self) -> Result<(), Error> {
         let info = &self.info;
+        if info.layer_count as usize > MAX_LAYERS {
+            return Err(Error::BadField {
+                what: "layer count (at most 32768)",
+                value: info.layer_count as u32,
+            });
+        }
         let (spans, file_len) = canonical_sections(
             info.tensor_count,
             info.layer_count,
@@ -234,7 +246,8 @@ impl<'a> Model<'a> {
     }
 
     /// Every record valid; every tensor but the input inside the workspace at
-    /// an 8-aligned offset; the input's byte length fits in u32.
+    /// an 8-aligned offset; the workspace no longer than those tensors need;
+    /// the input's byte length fits in u32.
     fn check_tensors(&self) -> Result<(), Error> {
         if self.info.tensor_count == 0 {
             return Err(Error::BadField {
@@ -243,6 +256,7 @@ impl<'a> Model<'a> {
             });
         }
         let ws = self.info.workspace_len as u64;
+        let mut needed = 0u64;
         for i in 0..self.tensor_count() {
             let t = self.tensor_checked(i)?;
             let len = tensor_len_u64(&t);
@@ -262,12 +276,24 @@ impl<'a> Model<'a> {
                     value: t.offset,
                 });
             }
-            if t.offset as u64 + len > ws {
+            let end = t.offset as u64 + len;
+            if end > ws {
                 return Err(Error::Tensor {
                     index: i,
                     problem: "does not fit inside the workspace",
                 });
             }
+            needed = needed.max(end);
+        }
+        // The claim must be what the placement needs (rounded up to 8 at
+        // most), so no host allocates more than the tensors use.
+        let most = needed.div_ceil(ALIGN as u64) * ALIGN as u64;
+        if ws > most {
+            return Err(Error::Layout {
+                what: "workspace length (the end of the last tensor, rounded up to 8 at most)",
+                expected: usize::try_from(most).unwrap_or(usize::MAX),
+                found: usize::try_from(ws).unwrap_or(usize::MAX),
+            });
         }
         Ok(())
     }
@@ -497,59 +523,95 @@ impl<'a> Model<'a> {
         Ok(())
     }
 
-    fn output_of(&self, layer: usize) -> Option<u16> {
-        self.record(layer).ok().map(|r| r.header.output)
-    }
-
-    /// Whether layer `k` reads tensor `t`.
-    fn reads(&self, k: usize, t: u16) -> bool {
-        match self.record(k) {
-            Ok(r) => r
-                .header
-                .inputs
-                .get(..r.header.op.arity())
-                .is_some_and(|ins| ins.contains(&t)),
-            Err(_) => false,
-        }
+    /// Input tensor ids of layer `k` read straight from the layer table (the
+    /// record was validated by `check_layers`) and how many the op reads.
+    fn inputs_of(&self, k: usize) -> ([u16; 2], usize) {
+        use field::layer as f;
+        let table = self.section(self.info.layers);
+        let rec = k
+            .checked_mul(f::LEN)
+            .and_then(|s| table.get(s..s.checked_add(f::LEN)?))
+            .unwrap_or(&[]);
+        let arity = Op::from_u8(format::rd_u8(rec, f::OP)).map_or(0, Op::arity);
+        (
+            [
+                format::rd_u16(rec, f::INPUT_A),
+                format::rd_u16(rec, f::INPUT_B),
+            ],
+            arity,
+        )
     }
 
     /// A tensor is live from the layer that writes it to the last layer that
     /// reads it (the model output: to the end). Each layer's output must not
     /// share a workspace byte with any tensor live during that layer, its
     /// inputs included. The error names the earliest such layer (and, for
-    /// it, the earliest-written live tensor). Quadratic in the layer count
-    /// whatever the overlaps (per tensor: find its last reader, then check
-    /// the outputs of the layers up to it), with no allocation.
+    /// it, the earliest-written live tensor).
+    ///
+    /// Without allocation the last readers are found for blocks of
+    /// `LIFETIME_BLOCK` tensors at a time, one pass over the layer table per
+    /// block; with the `std` feature (host tools) one block holds every
+    /// tensor, so the pass runs once. Then each tensor's output checks cover
+    /// exactly the layers it is live for. Cost: layers · ⌈layers / block⌉
+    /// table reads plus the summed lifetimes (FORMAT.md, "Limits").
     fn check_lifetimes(&self) -> Result<(), Error> {
+        #[cfg(feature = "std")]
+        let mut last = std::vec![0u16; self.layer_count().max(1)];
+        #[cfg(not(feature = "std"))]
+        let mut last = [0u16; LIFETIME_BLOCK];
+        self.check_lifetimes_in(&mut last)
+    }
+
+    /// `check_lifetimes` with `last.len()` tensors per block (any length ≥ 1
+    /// gives the same result). Needs `layer_count() ≤ MAX_LAYERS`.
+    fn check_lifetimes_in(&self, last: &mut [u16]) -> Result<(), Error> {
         let range = |t: &TensorRecord| {
             let s = t.offset as u64;
             s..s + tensor_len_u64(t)
         };
         let lc = self.layer_count();
+        let out = self.info.output as usize;
+        let block = last.len().max(1);
         let mut first: Option<Error> = None;
         let mut first_layer = usize::MAX;
-        for j in 0..lc {
-            let t = self.output_of(j).unwrap_or(0);
-            let last = if t == self.info.output {
-                lc.saturating_sub(1)
-            } else {
-                (j + 1..lc).rev().find(|&k| self.reads(k, t)).unwrap_or(j)
-            };
-            let rt = range(&self.tensor_checked(t as usize)?);
-            // Only layers before the earliest clash found so far matter.
-            for i in j + 1..=last.min(first_layer.saturating_sub(1)) {
-                let o = self.output_of(i).unwrap_or(0);
-                let ro = range(&self.tensor_checked(o as usize)?);
-                if ro.start < rt.end && rt.start < ro.end {
-                    first_layer = i;
-                    first = Some(Error::Overlap {
-                        layer: i,
-                        output: o as usize,
-                        live: t as usize,
-                    });
-                    break;
+        // Tensor t (1..=lc) is written by layer t − 1.
+        let mut t0 = 1;
+        while t0 <= lc && t0 < first_layer {
+            let t1 = t0.saturating_add(block).min(lc + 1);
+            for (t, l) in (t0..t1).zip(last.iter_mut()) {
+                let own = if t == out { lc - 1 } else { t - 1 };
+                *l = u16::try_from(own).unwrap_or(u16::MAX);
+            }
+            // Layer k reads only tensors ≤ k, so the block is first read at t0.
+            for k in t0..lc {
+                let (ins, n) = self.inputs_of(k);
+                for &x in ins.get(..n).unwrap_or(&[]) {
+                    let x = x as usize;
+                    if (t0..t1).contains(&x) {
+                        if let Some(l) = last.get_mut(x - t0) {
+                            *l = (*l).max(u16::try_from(k).unwrap_or(u16::MAX));
+                        }
+                    }
                 }
             }
+            for t in t0..t1 {
+                let live_to = last.get(t - t0).copied().unwrap_or(0) as usize;
+                let rt = range(&self.tensor_checked(t)?);
+                // Only layers before the earliest clash found so far matter.
+                for i in t..=live_to.min(first_layer.saturating_sub(1)) {
+                    let ro = range(&self.tensor_checked(i + 1)?);
+                    if ro.start < rt.end && rt.start < ro.end {
+                        first_layer = i;
+                        first = Some(Error::Overlap {
+                            layer: i,
+                            output: i + 1,
+                            live: t,
+                        });
+                        break;
+                    }
+                }
+            }
+            t0 = t1;
         }
         first.map_or(Ok(()), Err)
     }
@@ -570,7 +632,19 @@ impl<'a> Model<'a> {
         self.info.label_count as usize
     }
 
-    /// Class label `i` (labels are few; this walks the strings section).
+    /// The class labels in order, read in one walk of the strings section.
+    pub fn labels(&self) -> impl Iterator<Item = &'a str> + 'a {
+        let s = self.section(self.info.strings);
+        let mut pos = 0;
+        let named = read_string(s, &mut pos).is_some();
+        let mut left = if named { self.label_count() } else { 0 };
+        core::iter::from_fn(move || {
+            left = left.checked_sub(1)?;
+            read_string(s, &mut pos)
+        })
+    }
+
+    /// Class label `i` (this walks the strings section; `labels` walks it once for all).
     pub fn label(&self, i: usize) -> Option<&'a str> {
         if i >= self.label_count() {
             return None;
@@ -801,4 +875,150 @@ enum Blob<'a> {
     F16(&'a [half::f16]),
     I32(&'a [i32]),
     F32(&'a [f32]),
+}
+
+#[cfg(all(test, feature = "write"))]
+mod tests {
+    use super::*;
+    use crate::embed::AlignedBytes;
+    use crate::repr::{Activation, ElemType, LayerHeader, Padding, Quant, Shape, Window};
+    use crate::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// A random graph of int8 1×1×4 tensors: pixels, then max pools (k = 1)
+    /// and adds reading random earlier tensors, packed without reuse.
+    fn random_spec(rng: &mut ChaCha8Rng, layers: usize) -> ModelSpec {
+        let q = Quant {
+            scale: 0.1,
+            zero_point: 0,
+        };
+        let rec = |elem, offset| TensorRecord {
+            shape: Shape::new(1, 1, 4),
+            elem,
+            quant: q,
+            offset,
+        };
+        let head = |op, inputs, output, window| LayerHeader {
+            op,
+            act: Activation::None,
+            inputs,
+            output,
+            window,
+            clamp_i8: [-128, 127],
+            clamp_f32: [-65504.0, 65504.0],
+        };
+        let k1 = Padding::Valid.resolve((1, 1), (1, 1), (1, 1), (1, 1));
+        let mut tensors = std::vec![rec(ElemType::U8, 0)];
+        let mut specs = std::vec![LayerSpec {
+            header: head(Op::Pixels, [0, 0], 1, Window::default()),
+            weights: WeightsBuf::None,
+            bias: BiasBuf::None,
+            params: ParamsBuf::I32((0..4).flat_map(|_| [0, 1 << 30, 38]).collect()),
+        }];
+        tensors.push(rec(ElemType::I8, 0));
+        for i in 1..layers {
+            let pick = |rng: &mut ChaCha8Rng| {
+                if rng.gen_bool(0.7) {
+                    i as u16
+                } else {
+                    rng.gen_range(1..=i) as u16
+                }
+            };
+            let a = pick(rng);
+            let (header, params) = if rng.gen_bool(0.3) {
+                let b = pick(rng);
+                (
+                    head(Op::Add, [a, b], i as u16 + 1, Window::default()),
+                    ParamsBuf::I32(std::vec![1 << 30, 1 << 30, 31]),
+                )
+            } else {
+                (head(Op::MaxPool, [a, 0], i as u16 + 1, k1), ParamsBuf::None)
+            };
+            specs.push(LayerSpec {
+                header,
+                weights: WeightsBuf::None,
+                bias: BiasBuf::None,
+                params,
+            });
+            tensors.push(rec(ElemType::I8, 8 * i as u32));
+        }
+        ModelSpec {
+            name: "random".into(),
+            labels: std::vec!["a".into()],
+            tensors,
+            layers: specs,
+            output: layers as u16,
+            workspace_len: 8 * layers as u32,
+        }
+    }
+
+    /// The rule as FORMAT.md states it, checked pair by pair.
+    fn oracle(m: &Model<'_>) -> Result<(), Error> {
+        let lc = m.layer_count();
+        let last = |t: usize| -> usize {
+            if t == m.output_id() {
+                return lc - 1;
+            }
+            (t..lc)
+                .filter(|&k| m.inputs_of(k).0[..m.inputs_of(k).1].contains(&(t as u16)))
+                .max()
+                .unwrap_or(t - 1)
+        };
+        let span = |t: usize| {
+            let r = m.tensor(t).unwrap();
+            (r.offset as usize, r.offset as usize + r.byte_len())
+        };
+        for i in 0..lc {
+            let (os, oe) = span(i + 1);
+            for t in 1..=i {
+                let (ts, te) = span(t);
+                if last(t) >= i && os < te && ts < oe {
+                    return Err(Error::Overlap {
+                        layer: i,
+                        output: i + 1,
+                        live: t,
+                    });
+                }
+            }
+        }
+        Ok(())
+    }
+
+    #[test]
+    fn lifetime_check_matches_the_rule_for_every_block_size() {
+        let mut rng = ChaCha8Rng::seed_from_u64(10);
+        let mut clashes = 0;
+        for round in 0..300 {
+            let layers = rng.gen_range(2..40);
+            let spec = random_spec(&mut rng, layers);
+            let mut bytes = spec.emit().unwrap();
+            // Move some tensors onto random 8-aligned offsets (clashes likely).
+            let tensors = field::info::LEN + field::header::LEN;
+            for t in 1..=layers {
+                if rng.gen_bool(0.4) {
+                    let at = tensors + t * field::tensor::LEN + field::tensor::OFFSET.start;
+                    let off = 8 * rng.gen_range(0..layers as u32);
+                    bytes[at..at + 4].copy_from_slice(&off.to_le_bytes());
+                }
+            }
+            let buf = AlignedBytes::from_slice(&bytes);
+            let body = &buf[field::header::LEN..];
+            let info = ModelInfo::parse(&InfoView::new_checked(body).unwrap()).unwrap();
+            let m = Model { bytes: &buf, info };
+            let want = oracle(&m);
+            clashes += want.is_err() as usize;
+            for block in [1, 2, 3, 7, LIFETIME_BLOCK, layers + 1] {
+                let mut last = std::vec![0u16; block];
+                assert_eq!(
+                    m.check_lifetimes_in(&mut last),
+                    want,
+                    "round {round}, block {block}"
+                );
+            }
+            assert_eq!(m.check_lifetimes(), want, "round {round}");
+        }
+        // Both outcomes were exercised.
+        assert!(clashes > 30 && clashes < 270, "{clashes} clashes");
+    }
 }

@@ -112,6 +112,12 @@ impl ModelSpec {
     /// op and tensor types require, or when the result does not pass
     /// `Model::parse` (the writer never returns bytes the reader rejects).
     pub fn emit(&self) -> Result<Vec<u8>, Error> {
+        if self.layers.len() > format::MAX_LAYERS {
+            return Err(Error::BadField {
+                what: "layer count (at most 32768)",
+                value: u32::try_from(self.layers.len()).unwrap_or(u32::MAX),
+            });
+        }
         let tensor_count = count_u16("tensor count", self.tensors.len())?;
         let layer_count = count_u16("layer count", self.layers.len())?;
         let label_count = count_u16("label count", self.labels.len())?;
@@ -254,9 +260,7 @@ impl ModelSpec {
     /// The spec of a parsed model; `from_model(&Model::parse(b)?)?.emit()`
     /// gives back `b` (up to the file length) byte for byte.
     pub fn from_model(model: &Model<'_>) -> ModelSpec {
-        let labels = (0..model.label_count())
-            .map(|i| model.label(i).unwrap_or("").to_string())
-            .collect();
+        let labels = model.labels().map(|l| l.to_string()).collect();
         let tensors = (0..model.tensor_count())
             .filter_map(|i| model.tensor(i))
             .collect();

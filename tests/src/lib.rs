@@ -82,6 +82,7 @@ pub fn error_kind(e: &Error) -> &'static str {
         Error::OutOfBounds { .. } => "out of bounds",
         Error::BadField { .. } => "header/info field",
         Error::TensorField { .. } => "tensor field",
+        Error::TensorScale { .. } => "tensor scale",
         Error::LayerField { .. } => "layer field",
         Error::Layout { .. } => "layout",
         Error::Layer { .. } => "layer check",
