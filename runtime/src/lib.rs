@@ -20,6 +20,7 @@ pub mod format;
 pub mod geometry;
 pub mod kernels;
 pub mod model;
+pub mod opset;
 pub mod repr;
 pub mod requant;
 #[cfg(feature = "write")]
@@ -27,4 +28,5 @@ pub mod write;
 
 pub use error::Error;
 pub use model::{Model, Observer, SectionSizes};
+pub use opset::{OpSet, ALL_OPS};
 pub use repr::*;

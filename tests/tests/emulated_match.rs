@@ -1,16 +1,20 @@
 //! The demo models run on emulated Cortex-M cores (QEMU, bench/firmware)
 //! give the host's output bytes bit for bit, for int8 and fp16 models and
-//! for thumbv7em (M4, M7) and thumbv6m (M0+) builds. Skips with a printed
-//! reason only when qemu-system-arm or a Rust thumb target is missing.
+//! for thumbv7em (M4, M7) and thumbv6m (M0+) builds, each firmware linking
+//! the model's own op set. Skips with a printed reason only when
+//! qemu-system-arm or a Rust thumb target is missing, and fails instead
+//! under `MIDGE_REQUIRE_EMULATOR=1`.
 
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
 use midge_bench::emulated::{emulated_latency, unavailable};
+use midge_convert::firmware;
 use midge_convert::graph::Precision;
 use midge_convert::images;
 use midge_convert::quantize::{image_spec, quantize_description, QuantizeOptions};
 use midge_convert::target::Target;
+use midge_runtime::OpSet;
 
 fn models() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("../models")
@@ -40,6 +44,7 @@ fn check(target: &str, desc: &str, precision: Option<Precision>) {
 fn check_inputs(target: &str, desc: &str, precision: Option<Precision>, n: usize) {
     let t = Target::resolve(target).unwrap();
     if let Some(why) = unavailable(&t) {
+        firmware::may_skip(&why).unwrap();
         println!("skipped: emulated run on {target} not possible here: {why}");
         return;
     }
@@ -97,6 +102,7 @@ fn caps_plain_fp16_on_m7() {
 fn corrupted_model_is_reported_by_the_harness() {
     let t = Target::resolve("m4-80").unwrap();
     if let Some(why) = unavailable(&t) {
+        firmware::may_skip(&why).unwrap();
         println!("skipped: emulated run on m4-80 not possible here: {why}");
         return;
     }
@@ -106,9 +112,9 @@ fn corrupted_model_is_reported_by_the_harness() {
     let err = emulated_latency(&bytes, &inputs, &t, Duration::from_secs(120));
     // The host refuses it first (same runtime, same check).
     assert!(err.is_err());
-    let build = midge_convert::firmware::build(&t.rust_target).unwrap();
-    let job = midge_convert::firmware::job_block(&bytes, &[&inputs[0]], 4096).unwrap();
-    let e = midge_convert::firmware::run(
+    let build = firmware::build(&t.rust_target, OpSet::ALL).unwrap();
+    let job = firmware::job_block(&bytes, &[&inputs[0]], 4096).unwrap();
+    let e = firmware::run(
         &t.emulator.machine,
         &build.harness,
         &job,
