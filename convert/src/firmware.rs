@@ -152,7 +152,8 @@ pub fn ops_key(ops: OpSet) -> String {
 const ELVES: [&str; 3] = ["harness", "footprint", "baseline"];
 
 /// A fingerprint of every file the firmware build reads from this
-/// repository (runtime and firmware sources): path, length, modification time.
+/// repository (runtime and firmware sources, manifests, lock file, linker
+/// script): path, length, modification time.
 fn sources_fingerprint() -> String {
     use std::hash::{Hash, Hasher};
     let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("..");
@@ -165,9 +166,12 @@ fn sources_fingerprint() -> String {
         };
         for e in rd.flatten() {
             let p = e.path();
+            let built = ["rs", "toml", "lock", "x"]
+                .iter()
+                .any(|x| p.extension().is_some_and(|e| e == *x));
             if p.is_dir() {
                 stack.push(p);
-            } else {
+            } else if built {
                 files.push(p);
             }
         }
