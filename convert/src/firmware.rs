@@ -1,7 +1,6 @@
-//! The Cortex-M side as the host sees it: building bench/firmware for a
-//! target triple and op set (cached per pair), the job block QEMU's loader
-//! places in RAM, running the harness under `qemu-system-arm -icount
-//! shift=0` and parsing what it prints.
+//! The Cortex-M side as the host sees it: building bench/firmware per target and op set
+//! (cached), the job block QEMU's loader places in RAM, running the harness under
+//! `qemu-system-arm -icount shift=0` and parsing what it prints.
 
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};

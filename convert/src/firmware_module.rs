@@ -1,7 +1,6 @@
-//! The Rust module emitter: a small source file for firmware crates that
-//! embeds a model file (8-byte aligned, via the runtime's `embed_model!`)
-//! and states its op set (so the firmware links only those kernels),
-//! workspace length, input/output shapes and labels.
+//! The Rust module emitter: a small source file for firmware crates that embeds a model
+//! file (8-byte aligned, via `embed_model!`) and states its op set (so the firmware links
+//! only those kernels), workspace length, input/output shapes and labels.
 
 use std::path::{Component, Path, PathBuf};
 

@@ -1,7 +1,6 @@
-//! The per-layer executor: `check_layer` validates once, at parse time,
-//! everything a kernel relies on; `run_layer` views the tensor bytes and
-//! dispatches to the kernels, each arm behind a compile-time op-set guard
-//! (`opset::linked`) so a build links only its ops. Also the helper `top1`.
+//! The per-layer executor: `check_layer` validates once, at parse time, everything a
+//! kernel relies on; `run_layer` views the tensor bytes and dispatches to the kernels,
+//! each arm behind a compile-time op-set guard (`opset::linked`). Also `top1`.
 
 use crate::error::Error;
 use crate::kernels::{self, fault, fp16, int8};

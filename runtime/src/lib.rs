@@ -1,6 +1,6 @@
-//! midge-runtime: runs int8 and fp16 convolutional classifiers from the midge
-//! flat model layout, in place from flash, with one caller-provided workspace.
-//! `no_std`, no allocation, no panics reachable from model bytes or inputs.
+//! midge-runtime: runs int8 and fp16 CNN classifiers from the midge flat layout in place
+//! from flash, in one caller-provided workspace; `no_std`, no allocation, no panics from
+//! model bytes or inputs. A `Model`'s compile-time op set (`opset`) decides what links.
 #![no_std]
 #![forbid(unsafe_code)]
 

@@ -1,8 +1,6 @@
-//! A parsed model: `Model::parse` validates a whole file once (layout, CRC,
-//! records, graph order, workspace lifetimes, then each layer via `exec`),
-//! and `run` walks the layers over one caller-provided workspace; the
-//! op set `OPS` a `Model` carries decides which kernels a build links.
-//! Also the one place for MAC/parameter counts and section sizes.
+//! A parsed model: `Model::parse` validates a whole file once (layout, CRC, records, graph
+//! order, lifetimes, each layer via `exec`); `run` walks the layers with the kernels of the
+//! model's op set. Also the one place for MAC/parameter counts and section sizes.
 
 use crate::error::Error;
 use crate::exec;
