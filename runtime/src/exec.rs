@@ -216,7 +216,8 @@ pub fn check_layer(
 
 /// `check_layer` for a build that links the op set `OPS` only: a layer
 /// whose (op, output type) is not in it is refused with `Error::NotLinked`,
-/// and the checks of ops outside it are not compiled in.
+/// and the checks of ops outside it are not compiled in (each arm starts
+/// with a constant early return; the match stays exhaustive).
 pub fn check_layer_ops<const OPS: u32>(
     index: usize,
     layer: &LayerRef<'_>,
@@ -288,7 +289,10 @@ pub fn check_layer_ops<const OPS: u32>(
         }
     };
     match op {
-        Op::Pixels if const { has_op::<OPS>(Op::Pixels) } => {
+        Op::Pixels => {
+            if const { !has_op::<OPS>(Op::Pixels) } {
+                return Err(not_linked);
+            }
             if a.elem != ElemType::U8 {
                 return Err(bad(index, "pixels reads u8 camera bytes"));
             }
@@ -327,7 +331,10 @@ pub fn check_layer_ops<const OPS: u32>(
                 }
             }
         }
-        Op::Conv2d if const { has_op::<OPS>(Op::Conv2d) } => {
+        Op::Conv2d => {
+            if const { !has_op::<OPS>(Op::Conv2d) } {
+                return Err(not_linked);
+            }
             let elem = same_elem("conv2d input and output must both be int8 or both fp16")?;
             window_shape()?;
             let per_out = (win.kh as usize)
@@ -339,7 +346,10 @@ pub fn check_layer_ops<const OPS: u32>(
                 abs_sum(w.iter().skip(o * per).take(per).copied())
             })?;
         }
-        Op::Depthwise if const { has_op::<OPS>(Op::Depthwise) } => {
+        Op::Depthwise => {
+            if const { !has_op::<OPS>(Op::Depthwise) } {
+                return Err(not_linked);
+            }
             let elem = same_elem("depthwise input and output must both be int8 or both fp16")?;
             if ic != oc {
                 return Err(bad(
@@ -355,7 +365,10 @@ pub fn check_layer_ops<const OPS: u32>(
                 abs_sum(w.iter().skip(o).step_by(oc.max(1)).copied())
             })?;
         }
-        Op::Dense if const { has_op::<OPS>(Op::Dense) } => {
+        Op::Dense => {
+            if const { !has_op::<OPS>(Op::Dense) } {
+                return Err(not_linked);
+            }
             let elem = same_elem("dense input and output must both be int8 or both fp16")?;
             if out.shape.h != 1 || out.shape.w != 1 {
                 return Err(bad(index, "dense output must be 1x1xN"));
@@ -365,13 +378,14 @@ pub fn check_layer_ops<const OPS: u32>(
                 abs_sum(w.iter().skip(o * n_in).take(n_in).copied())
             })?;
         }
-        Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool
+        Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool => {
             if const {
-                has_op::<OPS>(Op::MaxPool)
+                !(has_op::<OPS>(Op::MaxPool)
                     || has_op::<OPS>(Op::AvgPool)
-                    || has_op::<OPS>(Op::GlobalAvgPool)
-            } =>
-        {
+                    || has_op::<OPS>(Op::GlobalAvgPool))
+            } {
+                return Err(not_linked);
+            }
             let elem = same_elem("pooling input and output must both be int8 or both fp16")?;
             if ic != oc {
                 return Err(bad(index, "pooling keeps the channel count"));
@@ -412,7 +426,10 @@ pub fn check_layer_ops<const OPS: u32>(
                 ));
             }
         }
-        Op::Add if const { has_op::<OPS>(Op::Add) } => {
+        Op::Add => {
+            if const { !has_op::<OPS>(Op::Add) } {
+                return Err(not_linked);
+            }
             let b = b.ok_or(bad(index, "add needs two inputs"))?;
             if a.shape != b.shape || a.shape != out.shape {
                 return Err(bad(index, "add inputs and output must have the same shape"));
@@ -443,7 +460,10 @@ pub fn check_layer_ops<const OPS: u32>(
                 return Err(bad(index, "fp16 add takes no parameters"));
             }
         }
-        Op::Quantize if const { has_op::<OPS>(Op::Quantize) } => {
+        Op::Quantize => {
+            if const { !has_op::<OPS>(Op::Quantize) } {
+                return Err(not_linked);
+            }
             if a.elem != ElemType::F16 || out.elem != ElemType::I8 {
                 return Err(bad(index, "quantize reads fp16 and writes int8"));
             }
@@ -458,7 +478,10 @@ pub fn check_layer_ops<const OPS: u32>(
             }
             no_blobs("quantize takes no weights, bias or parameters")?;
         }
-        Op::Dequantize if const { has_op::<OPS>(Op::Dequantize) } => {
+        Op::Dequantize => {
+            if const { !has_op::<OPS>(Op::Dequantize) } {
+                return Err(not_linked);
+            }
             if a.elem != ElemType::I8 || out.elem != ElemType::F16 {
                 return Err(bad(index, "dequantize reads int8 and writes fp16"));
             }
@@ -473,7 +496,6 @@ pub fn check_layer_ops<const OPS: u32>(
             }
             no_blobs("dequantize takes no weights, bias or parameters")?;
         }
-        _ => return Err(not_linked),
     }
     Ok(())
 }
