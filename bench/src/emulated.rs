@@ -68,7 +68,7 @@ pub fn emulated_latency(
 ) -> Result<EmulatedReport> {
     let aligned = AlignedBytes::from_slice(model_bytes);
     let model = Model::parse(&aligned).map_err(|e| Error::new("model", e.to_string()))?;
-    let build = firmware::build(&target.rust_target)?;
+    let build = firmware::build(&target.rust_target, model.op_set())?;
     let refs: Vec<&[u8]> = inputs.iter().map(|v| v.as_slice()).collect();
     let job = firmware::job_block(&aligned, &refs, model.workspace_len())?;
     let run: EmulatedRun = firmware::run(&target.emulator.machine, &build.harness, &job, timeout)?;

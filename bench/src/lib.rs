@@ -13,6 +13,7 @@ use std::time::Duration;
 use midge_convert::budget::{self, BudgetOptions};
 use midge_convert::compare::{self, CompareOptions};
 use midge_convert::description::Description;
+use midge_convert::firmware;
 use midge_convert::footprint::model_footprint;
 use midge_convert::synth::SplitMix;
 use midge_convert::target::Target;
@@ -105,13 +106,17 @@ pub fn bench_report(path: &Path, opts: &ReportOptions) -> Result<BenchReport> {
         if !opts.emulate {
             continue;
         }
-        if let Some(why) = emulated::unavailable(t) {
-            not_emulated.push((t.name.clone(), why));
-            continue;
-        }
-        match emulated::emulated_latency(&bytes, &inputs, t, opts.timeout) {
+        let run = match emulated::unavailable(t) {
+            Some(why) => Err(why),
+            None => emulated::emulated_latency(&bytes, &inputs, t, opts.timeout)
+                .map_err(|e| e.to_string()),
+        };
+        match run {
             Ok(r) => emulated.push(r),
-            Err(e) => not_emulated.push((t.name.clone(), e.to_string())),
+            Err(why) => {
+                firmware::may_skip(&format!("emulated run on {}: {why}", t.name))?;
+                not_emulated.push((t.name.clone(), why));
+            }
         }
     }
     let sqnr = if opts.compare && is_description(path) {

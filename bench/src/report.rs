@@ -252,6 +252,13 @@ impl BenchReport {
                 );
             }
             body += "</div>";
+            if let Some(b) = self.budgets.iter().find(|b| !b.op_set.is_empty()) {
+                let _ = write!(
+                    body,
+                    "<p class=sub>runtime code measured on firmware linking the model's op set: {}</p>",
+                    esc(&b.op_set.join(", "))
+                );
+            }
         }
         let labels: Vec<String> = fp
             .layers

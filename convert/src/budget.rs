@@ -75,6 +75,9 @@ pub struct Budget {
     pub instructions: Option<u64>,
     /// Estimated latency: instructions × the profile's CPI at its clock.
     pub estimated_ms: Option<f64>,
+    /// The (op, precision) pairs the model uses (`op/precision`): the op set
+    /// the measured firmware links, so the runtime items are this model's code.
+    pub op_set: Vec<String>,
 }
 
 /// Sums `flash` and `ram` and compares them with the target's limits: a
@@ -125,6 +128,7 @@ pub fn verdict(
         peak_layer,
         instructions: None,
         estimated_ms: None,
+        op_set: Vec::new(),
     })
 }
 
@@ -161,6 +165,7 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
     let aligned = AlignedBytes::from_slice(model_bytes);
     let model = Model::parse(&aligned).map_err(|e| Error::new("model", e.to_string()))?;
     let fp = footprint::model_footprint(&model);
+    let ops = model.op_set();
     let s = &fp.sections;
     let mut flash = vec![
         Item::measured("model weights", s.weights as u64, "model file"),
@@ -182,13 +187,19 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
     ];
     let triple = target.rust_target.as_str();
     let runtime = if opts.measure_runtime {
-        footprint::runtime_cost(triple).map_err(|e| e.to_string())
+        footprint::runtime_cost(triple, ops).map_err(|e| e.to_string())
     } else {
         Err("skipped (runtime measurement off)".to_string())
     };
+    if let (true, Err(why)) = (opts.measure_runtime, &runtime) {
+        firmware::may_skip(&format!("runtime code on {triple}: {why}"))?;
+    }
     match &runtime {
         Ok(rc) => {
-            let note = format!("firmware ELF for {triple}, minus baseline");
+            let note = format!(
+                "firmware ELF for {triple} linking the model's {} op/precision pairs, minus baseline",
+                rc.op_set.len()
+            );
             flash.push(Item::measured("runtime code (.text)", rc.sizes.text, &note));
             flash.push(Item::measured(
                 "runtime read-only data (.rodata)",
@@ -216,6 +227,9 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
     } else {
         Err("skipped (emulation off)".to_string())
     };
+    if let (true, Err(why)) = (opts.emulate, &emulated) {
+        firmware::may_skip(&format!("emulated run on {}: {why}", target.name))?;
+    }
     match &emulated {
         Ok(run) => ram.push(Item::measured(
             "stack high-water (runtime)",
@@ -233,6 +247,7 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
             live_bytes: r.live_bytes as u64,
         });
     let mut budget = verdict(target, &fp.name, flash, ram, peak)?;
+    budget.op_set = footprint::op_set_names(ops);
     if let Ok(run) = &emulated {
         let instr: u64 = run.layer_instructions(0).iter().sum();
         budget.instructions = Some(instr);
@@ -253,7 +268,7 @@ fn emulate_once(
     timeout: Duration,
 ) -> Result<EmulatedRun> {
     firmware::qemu_version()?;
-    let build = firmware::build(&target.rust_target)?;
+    let build = firmware::build(&target.rust_target, model.op_set())?;
     let len = model.input().byte_len();
     if len > firmware::JOB_CAPACITY {
         return Err(Error::new(
@@ -310,6 +325,12 @@ impl Budget {
             crate::error::escape(&self.model),
             crate::error::escape(&self.target)
         );
+        if !self.op_set.is_empty() {
+            s += &format!(
+                "runtime built with the model's op set: {}\n",
+                self.op_set.join(", ")
+            );
+        }
         for (title, items, total, limit, margin) in [
             (
                 "flash",

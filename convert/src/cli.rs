@@ -247,10 +247,16 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
     output::check_destinations(&outs, &[&a.description])?;
     let conv = quantize::quantize_description(&a.description, &opts)?;
     let q = &conv.quantized;
-    let module = a
-        .rust_module
-        .as_ref()
-        .map(|m| (m.clone(), firmware_module::module_source(&q.spec, &out, m)));
+    let module = match &a.rust_module {
+        Some(m) => {
+            let aligned = AlignedBytes::from_slice(&q.bytes);
+            let model = Model::parse(&aligned)
+                .map_err(|e| Error::new(out.display().to_string(), e.to_string()))?;
+            let text = firmware_module::module_source(&q.spec, model.op_set(), &out, m);
+            Some((m.clone(), text))
+        }
+        None => None,
+    };
     let mut files: Vec<(&Path, &[u8])> = vec![(&out, &q.bytes)];
     if let Some((path, text)) = &module {
         files.push((path, text.as_bytes()));

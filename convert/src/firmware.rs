@@ -1,12 +1,14 @@
-//! The Cortex-M side as the host sees it: building bench/firmware for a
-//! target triple, the job block QEMU's loader places in RAM, running the
-//! harness under `qemu-system-arm -icount shift=0` and parsing what it prints.
+//! The Cortex-M side as the host sees it: building bench/firmware per target and op set
+//! (cached), the job block QEMU's loader places in RAM, running the harness under
+//! `qemu-system-arm -icount shift=0` and parsing what it prints.
 
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 use std::sync::{Mutex, OnceLock};
 use std::time::{Duration, Instant};
+
+use midge_runtime::OpSet;
 
 use crate::{Error, Result};
 
@@ -23,6 +25,30 @@ pub const CALIBRATION_NOPS: u64 = 40_000;
 pub const CALIBRATION_EXPECTED_TICKS: u64 = 1_000;
 
 const INSTALL_QEMU: &str = "apt-get update && apt-get install -y qemu-system-arm";
+
+/// Set to `1` (`.ci/run` does), it makes a missing QEMU or Rust thumb
+/// target, or a firmware that does not build, an error everywhere an
+/// emulated test or measurement would otherwise be skipped or "not measured".
+pub const REQUIRE_EMULATOR: &str = "MIDGE_REQUIRE_EMULATOR";
+
+/// Whether `MIDGE_REQUIRE_EMULATOR=1` is set.
+pub fn emulator_required() -> bool {
+    std::env::var(REQUIRE_EMULATOR).is_ok_and(|v| v.trim() == "1")
+}
+
+/// Whether an emulated test or measurement that cannot run here (`why`)
+/// may be skipped: `Ok` unless `MIDGE_REQUIRE_EMULATOR=1`, then an error
+/// saying what is missing.
+pub fn may_skip(why: &str) -> Result<()> {
+    if emulator_required() {
+        Err(Error::new(
+            REQUIRE_EMULATOR,
+            format!("is 1, so this is an error, not a skip: {why}"),
+        ))
+    } else {
+        Ok(())
+    }
+}
 
 /// The bench/firmware Cargo project.
 pub fn firmware_dir() -> PathBuf {
@@ -85,6 +111,8 @@ pub fn rust_target_installed(triple: &str) -> Result<()> {
 #[derive(Clone, Debug)]
 pub struct FirmwareBuild {
     pub triple: String,
+    /// The op set the binaries link (`MIDGE_OPS` at build time).
+    pub ops: OpSet,
     /// Runs jobs and reports over semihosting.
     pub harness: PathBuf,
     /// Minimal application that parses and runs a model.
@@ -93,14 +121,18 @@ pub struct FirmwareBuild {
     pub baseline: PathBuf,
 }
 
-/// Builds (once per process and triple) the firmware in release mode into
-/// `target/firmware` of this workspace.
-pub fn build(triple: &str) -> Result<FirmwareBuild> {
-    static BUILDS: OnceLock<Mutex<HashMap<String, Result<FirmwareBuild>>>> = OnceLock::new();
+/// The firmware for `triple` linking the op set `ops` (a model's
+/// `Model::op_set`, or `OpSet::ALL`), built in release mode. Builds are
+/// cached per (triple, op set): once per process, and on disk under
+/// `target/firmware/ops/<triple>/<bits>/` while the runtime and firmware
+/// sources are unchanged.
+pub fn build(triple: &str, ops: OpSet) -> Result<FirmwareBuild> {
+    type Builds = HashMap<(String, u32), Result<FirmwareBuild>>;
+    static BUILDS: OnceLock<Mutex<Builds>> = OnceLock::new();
     let map = BUILDS.get_or_init(|| Mutex::new(HashMap::new()));
     let mut map = map.lock().unwrap_or_else(|p| p.into_inner());
-    map.entry(triple.to_string())
-        .or_insert_with(|| build_uncached(triple))
+    map.entry((triple.to_string(), ops.bits()))
+        .or_insert_with(|| build_cached(triple, ops))
         .clone()
 }
 
@@ -135,15 +167,95 @@ fn build_unavailable_from(dir: &Path, triple: &str) -> Option<Error> {
     rust_target_installed(triple).err()
 }
 
-fn build_uncached(triple: &str) -> Result<FirmwareBuild> {
+fn target_dir() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("..")
+        .join("target")
+        .join("firmware")
+}
+
+/// The op set as `MIDGE_OPS` and the cache folder spell it.
+pub fn ops_key(ops: OpSet) -> String {
+    format!("{:#07x}", ops.bits())
+}
+
+const ELVES: [&str; 3] = ["harness", "footprint", "baseline"];
+
+/// A fingerprint of every file the firmware build reads from this
+/// repository (runtime and firmware sources, manifests, lock file, linker
+/// script): path, length, modification time.
+fn sources_fingerprint() -> String {
+    use std::hash::{Hash, Hasher};
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("..");
+    let mut files = Vec::new();
+    let mut stack = vec![root.join("runtime").join("src"), firmware_dir()];
+    files.push(root.join("runtime").join("Cargo.toml"));
+    while let Some(dir) = stack.pop() {
+        let Ok(rd) = std::fs::read_dir(&dir) else {
+            continue;
+        };
+        for e in rd.flatten() {
+            let p = e.path();
+            let built = ["rs", "toml", "lock", "x"]
+                .iter()
+                .any(|x| p.extension().is_some_and(|e| e == *x));
+            if p.is_dir() {
+                stack.push(p);
+            } else if built {
+                files.push(p);
+            }
+        }
+    }
+    files.sort();
+    let mut h = std::collections::hash_map::DefaultHasher::new();
+    for f in &files {
+        f.hash(&mut h);
+        if let Ok(m) = std::fs::metadata(f) {
+            m.len().hash(&mut h);
+            m.modified().ok().hash(&mut h);
+        }
+    }
+    format!("{:016x}", h.finish())
+}
+
+fn build_cached(triple: &str, ops: OpSet) -> Result<FirmwareBuild> {
     if let Some(e) = build_unavailable(triple) {
         return Err(e);
     }
+    let cache = target_dir().join("ops").join(triple).join(ops_key(ops));
+    let build = FirmwareBuild {
+        triple: triple.to_string(),
+        ops,
+        harness: cache.join(ELVES[0]),
+        footprint: cache.join(ELVES[1]),
+        baseline: cache.join(ELVES[2]),
+    };
+    let place = cache.display().to_string();
+    let io = |e: std::io::Error| Error::new(&place, format!("firmware cache: {e}"));
+    std::fs::create_dir_all(&cache).map_err(io)?;
+    // One build at a time across processes: the binaries are built at one
+    // place in the shared target folder and copied from there.
+    let lock = std::fs::File::create(target_dir().join("ops").join(".lock")).map_err(io)?;
+    lock.lock().map_err(io)?;
+    let stamp = cache.join("sources");
+    let fingerprint = sources_fingerprint();
+    let fresh = std::fs::read_to_string(&stamp).is_ok_and(|s| s == fingerprint)
+        && ELVES.iter().all(|e| cache.join(e).is_file());
+    if !fresh {
+        let bin = cargo_build(triple, ops)?;
+        for e in ELVES {
+            std::fs::copy(bin.join(e), cache.join(e)).map_err(io)?;
+        }
+        std::fs::write(&stamp, sources_fingerprint()).map_err(io)?;
+    }
+    Ok(build)
+}
+
+/// `cargo build --release` of bench/firmware for `triple` with `MIDGE_OPS`
+/// set to `ops`; returns the folder holding the binaries.
+fn cargo_build(triple: &str, ops: OpSet) -> Result<PathBuf> {
     let dir = firmware_dir();
-    let target_dir = Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("..")
-        .join("target")
-        .join("firmware");
+    let target_dir = target_dir();
     let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
     let out = Command::new(cargo)
         .current_dir(&dir)
@@ -156,6 +268,7 @@ fn build_uncached(triple: &str) -> Result<FirmwareBuild> {
             triple,
         ])
         .env("CARGO_TARGET_DIR", &target_dir)
+        .env("MIDGE_OPS", ops_key(ops))
         .env_remove("RUSTFLAGS")
         .env_remove("CARGO_ENCODED_RUSTFLAGS")
         .env_remove("CARGO_BUILD_TARGET")
@@ -173,13 +286,7 @@ fn build_uncached(triple: &str) -> Result<FirmwareBuild> {
             format!("firmware build for {triple} failed: {first}"),
         ));
     }
-    let bin = target_dir.join(triple).join("release");
-    Ok(FirmwareBuild {
-        triple: triple.to_string(),
-        harness: bin.join("harness"),
-        footprint: bin.join("footprint"),
-        baseline: bin.join("baseline"),
-    })
+    Ok(target_dir.join(triple).join("release"))
 }
 
 fn align8(v: usize) -> usize {

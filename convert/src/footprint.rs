@@ -2,7 +2,7 @@
 //! runtime's own code measured from firmware ELFs, RAM by workspace, input,
 //! stack and static data, and the per-layer table with the memory timeline.
 
-use midge_runtime::{Bias, ElemType, Model, Params, Weights};
+use midge_runtime::{Bias, ElemType, Model, OpSet, Params, Weights};
 use serde::Serialize;
 
 use crate::compare::op_name;
@@ -93,19 +93,23 @@ pub fn elf_sizes(bytes: &[u8], place: &str) -> Result<ElfSizes> {
     Ok(s)
 }
 
-/// The runtime's own code and data on one target: the firmware `footprint`
-/// binary minus `baseline` (same skeleton without the runtime).
+/// The runtime's own code and data on one target for one op set: the
+/// firmware `footprint` binary built with that op set minus `baseline`
+/// (same skeleton without the runtime).
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct RuntimeCost {
     pub triple: String,
+    /// The (op, precision) pairs the measured firmware links, as `op_set_names` spells them.
+    pub op_set: Vec<String>,
     pub sizes: ElfSizes,
     pub with_runtime: ElfSizes,
     pub baseline: ElfSizes,
 }
 
-/// Builds the firmware for `triple` and measures the runtime's cost.
-pub fn runtime_cost(triple: &str) -> Result<RuntimeCost> {
-    let build = firmware::build(triple)?;
+/// Builds the firmware for `triple` linking `ops` and measures the
+/// runtime's cost.
+pub fn runtime_cost(triple: &str, ops: OpSet) -> Result<RuntimeCost> {
+    let build = firmware::build(triple, ops)?;
     let read = |p: &std::path::Path| -> Result<ElfSizes> {
         let place = p.display().to_string();
         let b = crate::files::read(p, &crate::limits::ELF_FILE)?;
@@ -115,10 +119,18 @@ pub fn runtime_cost(triple: &str) -> Result<RuntimeCost> {
     let baseline = read(&build.baseline)?;
     Ok(RuntimeCost {
         triple: triple.to_string(),
+        op_set: op_set_names(ops),
         sizes: with_runtime.minus(&baseline),
         with_runtime,
         baseline,
     })
+}
+
+/// The pairs of an op set as `op/precision` (e.g. `conv2d/int8`), in op-code order.
+pub fn op_set_names(ops: OpSet) -> Vec<String> {
+    ops.iter()
+        .map(|(op, e)| format!("{}/{}", op_name(op), elem_name(e)))
+        .collect()
 }
 
 /// Model-file bytes by kind (a serializable copy of the runtime's `SectionSizes`).

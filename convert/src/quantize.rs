@@ -965,7 +965,9 @@ mod tests {
     #[test]
     fn layer_count_beyond_the_format_limit_is_refused() {
         assert!(check_layer_count("m", MAX_LAYERS).is_ok());
-        let e = check_layer_count("m", MAX_LAYERS + 1).unwrap_err().to_string();
+        let e = check_layer_count("m", MAX_LAYERS + 1)
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("32769 runtime layers"), "{e}");
         assert!(e.contains("at most 32768"), "{e}");
     }

@@ -163,3 +163,57 @@ fn bad_input_exits_2_with_one_line_and_no_output() {
     assert!(names.is_empty(), "{names:?}");
     std::fs::remove_dir_all(&dir).unwrap();
 }
+
+/// `MIDGE_REQUIRE_EMULATOR=1` makes a runtime size that cannot be measured
+/// (the profile names a Rust target that is not installed) an error of
+/// `midge budget` — status 2, one stderr line naming the variable — where
+/// without it the bill lists the item as not measured.
+#[test]
+fn required_emulator_turns_not_measured_into_an_error() {
+    let missing = "thumbv7m-none-eabi";
+    if midge_convert::firmware::rust_target_installed(missing).is_ok() {
+        println!("{missing} is installed here: nothing to check");
+        return;
+    }
+    let dir = scratch("cli-require");
+    let desc = write_model(&dir, "", 4);
+    let model = dir.join("tiny.midge");
+    assert!(midge(&["quantize", p(&desc), "-o", p(&model)])
+        .status
+        .success());
+    let board = dir.join("board.toml");
+    std::fs::write(
+        &board,
+        format!(
+            "name = \"board\"\ncore = \"cortex-m3\"\nrust_target = \"{missing}\"\n\
+             clock_hz = 1000000\ncycles_per_instruction = 1.0\nram_bytes = 1048576\n\
+             flash_bytes = 1048576\n[emulator]\nmachine = \"mps2-an385\"\n"
+        ),
+    )
+    .unwrap();
+    let args = ["budget", p(&model), "--target", p(&board), "--no-emulate"];
+    let run = |required: Option<&str>| {
+        let mut c = Command::new(env!("CARGO_BIN_EXE_midge"));
+        c.args(args).env_remove("MIDGE_REQUIRE_EMULATOR");
+        if let Some(v) = required {
+            c.env("MIDGE_REQUIRE_EMULATOR", v);
+        }
+        c.output().unwrap()
+    };
+    let lax = run(None);
+    assert!(lax.status.success(), "{}", text(&lax.stderr));
+    assert!(
+        text(&lax.stdout).contains("not measured"),
+        "{}",
+        text(&lax.stdout)
+    );
+    let strict = run(Some("1"));
+    assert_eq!(strict.status.code(), Some(2), "{}", text(&strict.stdout));
+    let err = text(&strict.stderr);
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(
+        err.contains("MIDGE_REQUIRE_EMULATOR") && err.contains(missing),
+        "{err}"
+    );
+    std::fs::remove_dir_all(&dir).unwrap();
+}

@@ -3,6 +3,8 @@
 
 use core::fmt;
 
+use crate::repr::{ElemType, Op};
+
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Error {
     /// The buffer ends before a structure does.
@@ -64,6 +66,13 @@ pub enum Error {
     WorkspaceLength { expected: usize, found: usize },
     /// `run` got a workspace not aligned to 8 bytes.
     WorkspaceMisaligned,
+    /// Layer `layer` computes `op` into `elem`, which the op set this build
+    /// links (`Model<'_, OPS>`, `opset::OpSet`) leaves out.
+    NotLinked {
+        layer: usize,
+        op: Op,
+        elem: ElemType,
+    },
 }
 
 impl fmt::Display for Error {
@@ -117,6 +126,10 @@ impl fmt::Display for Error {
                 write!(f, "workspace is {found} bytes, model needs {expected}")
             }
             Error::WorkspaceMisaligned => write!(f, "workspace is not aligned to 8 bytes"),
+            Error::NotLinked { layer, op, elem } => write!(
+                f,
+                "layer {layer}: {op:?} with {elem:?} output is not in the op set this firmware links (regenerate it with `midge quantize --rust-module`)"
+            ),
         }
     }
 }

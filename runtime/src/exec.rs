@@ -1,10 +1,11 @@
-//! The per-layer executor: `check_layer` validates once, at parse time,
-//! everything a kernel relies on; `run_layer` views the tensor bytes and
-//! dispatches to the kernels. Also the on-device result helper `top1`.
+//! The per-layer executor: `check_layer` validates once, at parse time, everything a
+//! kernel relies on; `run_layer` views the tensor bytes and dispatches to the kernels,
+//! each arm behind a compile-time op-set guard (`opset::linked`). Also `top1`.
 
 use crate::error::Error;
 use crate::format::F16_MAX;
 use crate::kernels::{self, fault, fp16, int8};
+use crate::opset::{linked, ALL_OPS};
 use crate::repr::{Bias, ElemType, LayerRef, Op, Params, Shape, TensorRecord, Weights};
 use crate::requant::requant_in_range;
 use half::f16;
@@ -25,6 +26,11 @@ pub fn at_layer(e: Error, index: usize) -> Error {
         Error::AccumulatorOverflow { channel, .. } => Error::AccumulatorOverflow {
             layer: index,
             channel,
+        },
+        Error::NotLinked { op, elem, .. } => Error::NotLinked {
+            layer: index,
+            op,
+            elem,
         },
         other => other,
     }
@@ -216,6 +222,20 @@ pub fn check_layer(
     b: Option<&TensorRecord>,
     out: &TensorRecord,
 ) -> Result<(), Error> {
+    check_layer_ops::<ALL_OPS>(index, layer, a, b, out)
+}
+
+/// `check_layer` for a build that links the op set `OPS` only: a layer
+/// whose (op, output type) is not in it is refused with `Error::NotLinked`,
+/// and the checks of ops outside it are not compiled in (each arm starts
+/// with a constant early return; the match stays exhaustive).
+pub fn check_layer_ops<const OPS: u32>(
+    index: usize,
+    layer: &LayerRef<'_>,
+    a: &TensorRecord,
+    b: Option<&TensorRecord>,
+    out: &TensorRecord,
+) -> Result<(), Error> {
     let h = &layer.header;
     let op = h.op;
     match (op.arity(), b) {
@@ -244,6 +264,14 @@ pub fn check_layer(
         }
         ElemType::U8 => return Err(bad(index, "no layer outputs u8")),
         _ => {}
+    }
+    let not_linked = Error::NotLinked {
+        layer: index,
+        op,
+        elem: out.elem,
+    };
+    if !linked::<OPS>(op, out.elem) {
+        return Err(not_linked);
     }
     let same_elem = |what: &'static str| -> Result<ElemType, Error> {
         if a.elem != out.elem || a.elem == ElemType::U8 {
@@ -276,6 +304,9 @@ pub fn check_layer(
     };
     match op {
         Op::Pixels => {
+            if const { !has_op::<OPS>(Op::Pixels) } {
+                return Err(not_linked);
+            }
             if a.elem != ElemType::U8 {
                 return Err(bad(index, "pixels reads u8 camera bytes"));
             }
@@ -315,6 +346,9 @@ pub fn check_layer(
             }
         }
         Op::Conv2d => {
+            if const { !has_op::<OPS>(Op::Conv2d) } {
+                return Err(not_linked);
+            }
             let elem = same_elem("conv2d input and output must both be int8 or both fp16")?;
             window_shape()?;
             let per_out = (win.kh as usize)
@@ -327,6 +361,9 @@ pub fn check_layer(
             })?;
         }
         Op::Depthwise => {
+            if const { !has_op::<OPS>(Op::Depthwise) } {
+                return Err(not_linked);
+            }
             let elem = same_elem("depthwise input and output must both be int8 or both fp16")?;
             if ic != oc {
                 return Err(bad(
@@ -343,6 +380,9 @@ pub fn check_layer(
             })?;
         }
         Op::Dense => {
+            if const { !has_op::<OPS>(Op::Dense) } {
+                return Err(not_linked);
+            }
             let elem = same_elem("dense input and output must both be int8 or both fp16")?;
             if out.shape.h != 1 || out.shape.w != 1 {
                 return Err(bad(index, "dense output must be 1x1xN"));
@@ -353,6 +393,13 @@ pub fn check_layer(
             })?;
         }
         Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool => {
+            if const {
+                !(has_op::<OPS>(Op::MaxPool)
+                    || has_op::<OPS>(Op::AvgPool)
+                    || has_op::<OPS>(Op::GlobalAvgPool))
+            } {
+                return Err(not_linked);
+            }
             let elem = same_elem("pooling input and output must both be int8 or both fp16")?;
             if ic != oc {
                 return Err(bad(index, "pooling keeps the channel count"));
@@ -394,6 +441,9 @@ pub fn check_layer(
             }
         }
         Op::Add => {
+            if const { !has_op::<OPS>(Op::Add) } {
+                return Err(not_linked);
+            }
             let b = b.ok_or(bad(index, "add needs two inputs"))?;
             if a.shape != b.shape || a.shape != out.shape {
                 return Err(bad(index, "add inputs and output must have the same shape"));
@@ -425,6 +475,9 @@ pub fn check_layer(
             }
         }
         Op::Quantize => {
+            if const { !has_op::<OPS>(Op::Quantize) } {
+                return Err(not_linked);
+            }
             if a.elem != ElemType::F16 || out.elem != ElemType::I8 {
                 return Err(bad(index, "quantize reads fp16 and writes int8"));
             }
@@ -440,6 +493,9 @@ pub fn check_layer(
             no_blobs("quantize takes no weights, bias or parameters")?;
         }
         Op::Dequantize => {
+            if const { !has_op::<OPS>(Op::Dequantize) } {
+                return Err(not_linked);
+            }
             if a.elem != ElemType::I8 || out.elem != ElemType::F16 {
                 return Err(bad(index, "dequantize reads int8 and writes fp16"));
             }
@@ -458,11 +514,8 @@ pub fn check_layer(
     Ok(())
 }
 
-/// Which loop nests `run` uses.
-#[derive(Clone, Copy, PartialEq, Eq)]
-enum Path {
-    Reference,
-    Fast,
+const fn has_op<const OPS: u32>(op: Op) -> bool {
+    crate::opset::OpSet::from_bits(OPS).has_op(op)
 }
 
 /// Runs one checked layer: `a` (and `b` for add) are the input tensors'
@@ -476,7 +529,18 @@ pub fn run_layer(
     b: Option<(&TensorRecord, &[u8])>,
     out: (&TensorRecord, &mut [u8]),
 ) -> Result<(), Error> {
-    run(layer, a, b, out, Path::Fast)
+    run::<ALL_OPS, true>(layer, a, b, out)
+}
+
+/// `run_layer` in a build that links the op set `OPS` only; a layer outside
+/// it (which `check_layer_ops::<OPS>` refuses) gets `Error::NotLinked`.
+pub fn run_layer_ops<const OPS: u32>(
+    layer: &LayerRef<'_>,
+    a: (&TensorRecord, &[u8]),
+    b: Option<(&TensorRecord, &[u8])>,
+    out: (&TensorRecord, &mut [u8]),
+) -> Result<(), Error> {
+    run::<OPS, true>(layer, a, b, out)
 }
 
 /// As `run_layer`, but through the straightforward reference loop nests
@@ -487,7 +551,7 @@ pub fn run_layer_reference(
     b: Option<(&TensorRecord, &[u8])>,
     out: (&TensorRecord, &mut [u8]),
 ) -> Result<(), Error> {
-    run(layer, a, b, out, Path::Reference)
+    run::<ALL_OPS, false>(layer, a, b, out)
 }
 
 fn as_i8(bytes: &[u8]) -> Result<&[i8], Error> {
@@ -531,13 +595,28 @@ fn check_len(t: &TensorRecord, bytes: usize) -> Result<(), Error> {
     Ok(())
 }
 
-fn run(
+/// The error of a dispatch arm a build with a smaller op set left out.
+const fn not_linked(op: Op, elem: ElemType) -> Error {
+    Error::NotLinked {
+        layer: usize::MAX,
+        op,
+        elem,
+    }
+}
+
+/// The dispatch: one arm per (op, precision), each guarded by a constant
+/// (`linked::<OPS>`), so the arms of pairs outside `OPS` and every kernel
+/// only they call are dead code. `FAST`: fast loop nests, else reference.
+/// Out of line, so the kernels' loops are compiled apart from the layer
+/// walk's registers (measured: fewer emulated instructions on Cortex-M0+).
+#[inline(never)]
+fn run<const OPS: u32, const FAST: bool>(
     layer: &LayerRef<'_>,
     (ta, xa): (&TensorRecord, &[u8]),
     b: Option<(&TensorRecord, &[u8])>,
     (to, y): (&TensorRecord, &mut [u8]),
-    path: Path,
 ) -> Result<(), Error> {
+    use ElemType::{F16, I8, U8};
     check_len(ta, xa.len())?;
     check_len(to, y.len())?;
     if let Some((tb, xb)) = b {
@@ -545,20 +624,25 @@ fn run(
     }
     let h = &layer.header;
     let (xs, ys): (Shape, Shape) = (ta.shape, to.shape);
-    let fast = path == Path::Fast;
     match (h.op, ta.elem, to.elem) {
-        (Op::Pixels, ElemType::U8, ElemType::I8) => {
+        (Op::Pixels, U8, I8) if const { linked::<OPS>(Op::Pixels, I8) } => {
             let p =
                 params_i32(&layer.params).ok_or(fault("pixels to int8 needs i32 parameters"))?;
             int8::pixels(xa, p, to.quant.zero_point, h.clamp_i8, as_i8_mut(y)?)
         }
-        (Op::Pixels, ElemType::U8, ElemType::F16) => {
+        (Op::Pixels, U8, F16) if const { linked::<OPS>(Op::Pixels, F16) } => {
             let Params::F32(p) = layer.params else {
                 return Err(fault("pixels to fp16 needs f32 parameters"));
             };
             fp16::pixels(xa, p, h.clamp_f32, as_f16_mut(y)?)
         }
-        (Op::Conv2d | Op::Depthwise | Op::Dense, ElemType::I8, ElemType::I8) => {
+        (Op::Conv2d | Op::Depthwise | Op::Dense, I8, I8)
+            if const {
+                linked::<OPS>(Op::Conv2d, I8)
+                    || linked::<OPS>(Op::Depthwise, I8)
+                    || linked::<OPS>(Op::Dense, I8)
+            } =>
+        {
             let Weights::I8(w) = layer.weights else {
                 return Err(fault("int8 layer needs int8 weights"));
             };
@@ -570,7 +654,7 @@ fn run(
                     .ok_or(fault("int8 layer needs requant parameters"))?,
                 clamp: h.clamp_i8,
             };
-            weighted(
+            weighted::<OPS, FAST, false, _>(
                 &ar,
                 h.op,
                 as_i8(xa)?,
@@ -579,10 +663,15 @@ fn run(
                 &h.window,
                 as_i8_mut(y)?,
                 ys,
-                fast,
             )
         }
-        (Op::Conv2d | Op::Depthwise | Op::Dense, ElemType::F16, ElemType::F16) => {
+        (Op::Conv2d | Op::Depthwise | Op::Dense, F16, F16)
+            if const {
+                linked::<OPS>(Op::Conv2d, F16)
+                    || linked::<OPS>(Op::Depthwise, F16)
+                    || linked::<OPS>(Op::Dense, F16)
+            } =>
+        {
             let Weights::F16(w) = layer.weights else {
                 return Err(fault("fp16 layer needs fp16 weights"));
             };
@@ -590,7 +679,7 @@ fn run(
                 bias: f32_bias(&layer.bias)?,
                 clamp: h.clamp_f32,
             };
-            weighted(
+            weighted::<OPS, FAST, true, _>(
                 &ar,
                 h.op,
                 as_f16(xa)?,
@@ -599,32 +688,34 @@ fn run(
                 &h.window,
                 as_f16_mut(y)?,
                 ys,
-                fast,
             )
         }
-        (Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool, ElemType::I8, ElemType::I8) => {
-            let win = pool_window(h.op, xs, &h.window);
-            let (x, y) = (as_i8(xa)?, as_i8_mut(y)?);
-            if h.op == Op::MaxPool {
-                kernels::pool(&int8::MaxI8 { clamp: h.clamp_i8 }, x, xs, &win, y, ys)
-            } else {
-                let p = int8::AvgI8 {
-                    zp: ta.quant.zero_point,
-                    clamp: h.clamp_i8,
-                };
-                kernels::pool(&p, x, xs, &win, y, ys)
-            }
+        (Op::MaxPool, I8, I8) if const { linked::<OPS>(Op::MaxPool, I8) } => {
+            let p = int8::MaxI8 { clamp: h.clamp_i8 };
+            pool::<FAST, _>(&p, as_i8(xa)?, xs, &h.window, as_i8_mut(y)?, ys)
         }
-        (Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool, ElemType::F16, ElemType::F16) => {
+        (Op::AvgPool | Op::GlobalAvgPool, I8, I8)
+            if const { linked::<OPS>(Op::AvgPool, I8) || linked::<OPS>(Op::GlobalAvgPool, I8) } =>
+        {
+            let p = int8::AvgI8 {
+                zp: ta.quant.zero_point,
+                clamp: h.clamp_i8,
+            };
             let win = pool_window(h.op, xs, &h.window);
-            let (x, y) = (as_f16(xa)?, as_f16_mut(y)?);
-            if h.op == Op::MaxPool {
-                kernels::pool(&fp16::MaxF16 { clamp: h.clamp_f32 }, x, xs, &win, y, ys)
-            } else {
-                kernels::pool(&fp16::AvgF16 { clamp: h.clamp_f32 }, x, xs, &win, y, ys)
-            }
+            pool::<FAST, _>(&p, as_i8(xa)?, xs, &win, as_i8_mut(y)?, ys)
         }
-        (Op::Add, ElemType::I8, ElemType::I8) => {
+        (Op::MaxPool, F16, F16) if const { linked::<OPS>(Op::MaxPool, F16) } => {
+            let p = fp16::MaxF16 { clamp: h.clamp_f32 };
+            pool::<FAST, _>(&p, as_f16(xa)?, xs, &h.window, as_f16_mut(y)?, ys)
+        }
+        (Op::AvgPool | Op::GlobalAvgPool, F16, F16)
+            if const { linked::<OPS>(Op::AvgPool, F16) || linked::<OPS>(Op::GlobalAvgPool, F16) } =>
+        {
+            let p = fp16::AvgF16 { clamp: h.clamp_f32 };
+            let win = pool_window(h.op, xs, &h.window);
+            pool::<FAST, _>(&p, as_f16(xa)?, xs, &win, as_f16_mut(y)?, ys)
+        }
+        (Op::Add, I8, I8) if const { linked::<OPS>(Op::Add, I8) } => {
             let (tb, xb) = b.ok_or(fault("add needs two inputs"))?;
             let p = params_i32(&layer.params).ok_or(fault("int8 add needs parameters"))?;
             let [ma, mb, rshift] = *p else {
@@ -641,24 +732,27 @@ fn run(
             };
             int8::add(&add, as_i8(xa)?, as_i8(xb)?, as_i8_mut(y)?)
         }
-        (Op::Add, ElemType::F16, ElemType::F16) => {
+        (Op::Add, F16, F16) if const { linked::<OPS>(Op::Add, F16) } => {
             let (_, xb) = b.ok_or(fault("add needs two inputs"))?;
             fp16::add(as_f16(xa)?, as_f16(xb)?, h.clamp_f32, as_f16_mut(y)?)
         }
-        (Op::Quantize, ElemType::F16, ElemType::I8) => fp16::quantize(
+        (Op::Quantize, F16, I8) if const { linked::<OPS>(Op::Quantize, I8) } => fp16::quantize(
             as_f16(xa)?,
             to.quant.scale,
             to.quant.zero_point,
             h.clamp_i8,
             as_i8_mut(y)?,
         ),
-        (Op::Dequantize, ElemType::I8, ElemType::F16) => fp16::dequantize(
-            as_i8(xa)?,
-            ta.quant.scale,
-            ta.quant.zero_point,
-            h.clamp_f32,
-            as_f16_mut(y)?,
-        ),
+        (Op::Dequantize, I8, F16) if const { linked::<OPS>(Op::Dequantize, F16) } => {
+            fp16::dequantize(
+                as_i8(xa)?,
+                ta.quant.scale,
+                ta.quant.zero_point,
+                h.clamp_f32,
+                as_f16_mut(y)?,
+            )
+        }
+        (op, _, elem) if !linked::<OPS>(op, elem) => Err(not_linked(op, elem)),
         _ => Err(fault("op and element types do not go together")),
     }
 }
@@ -677,8 +771,25 @@ fn pool_window(op: Op, xs: Shape, win: &crate::repr::Window) -> crate::repr::Win
     }
 }
 
+fn pool<const FAST: bool, P: kernels::Pool>(
+    p: &P,
+    x: &[P::X],
+    xs: Shape,
+    win: &crate::repr::Window,
+    y: &mut [P::X],
+    ys: Shape,
+) -> Result<(), Error> {
+    if FAST {
+        kernels::pool(p, x, xs, win, y, ys)
+    } else {
+        kernels::pool_ref(p, x, xs, win, y, ys)
+    }
+}
+
+/// conv2d, depthwise or dense in the precision `A` computes (`FP16` says
+/// which, for the op-set guards).
 #[allow(clippy::too_many_arguments)]
-fn weighted<A: kernels::Arith>(
+fn weighted<const OPS: u32, const FAST: bool, const FP16: bool, A: kernels::Arith>(
     ar: &A,
     op: Op,
     x: &[A::X],
@@ -687,15 +798,39 @@ fn weighted<A: kernels::Arith>(
     win: &crate::repr::Window,
     y: &mut [A::X],
     ys: Shape,
-    fast: bool,
 ) -> Result<(), Error> {
-    match (op, fast) {
-        (Op::Conv2d, true) => kernels::conv2d_fast(ar, x, xs, w, win, y, ys),
-        (Op::Conv2d, false) => kernels::conv2d_ref(ar, x, xs, w, win, y, ys),
-        (Op::Depthwise, true) => kernels::depthwise_fast(ar, x, xs, w, win, y, ys),
-        (Op::Depthwise, false) => kernels::depthwise_ref(ar, x, xs, w, win, y, ys),
-        (_, true) => kernels::dense(ar, x, w, y),
-        (_, false) => kernels::dense_ref(ar, x, w, y),
+    let elem = elem_of(FP16);
+    match op {
+        Op::Conv2d if const { linked::<OPS>(Op::Conv2d, elem_of(FP16)) } => {
+            if FAST {
+                kernels::conv2d_fast(ar, x, xs, w, win, y, ys)
+            } else {
+                kernels::conv2d_ref(ar, x, xs, w, win, y, ys)
+            }
+        }
+        Op::Depthwise if const { linked::<OPS>(Op::Depthwise, elem_of(FP16)) } => {
+            if FAST {
+                kernels::depthwise_fast(ar, x, xs, w, win, y, ys)
+            } else {
+                kernels::depthwise_ref(ar, x, xs, w, win, y, ys)
+            }
+        }
+        Op::Dense if const { linked::<OPS>(Op::Dense, elem_of(FP16)) } => {
+            if FAST {
+                kernels::dense(ar, x, w, y)
+            } else {
+                kernels::dense_ref(ar, x, w, y)
+            }
+        }
+        op => Err(not_linked(op, elem)),
+    }
+}
+
+const fn elem_of(fp16: bool) -> ElemType {
+    if fp16 {
+        ElemType::F16
+    } else {
+        ElemType::I8
     }
 }
 

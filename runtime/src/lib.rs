@@ -1,6 +1,6 @@
-//! midge-runtime: runs int8 and fp16 convolutional classifiers from the midge
-//! flat model layout, in place from flash, with one caller-provided workspace.
-//! `no_std`, no allocation, no panics reachable from model bytes or inputs.
+//! midge-runtime: runs int8 and fp16 CNN classifiers from the midge flat layout in place
+//! from flash, in one caller-provided workspace; `no_std`, no allocation, no panics from
+//! model bytes or inputs. A `Model`'s compile-time op set (`opset`) decides what links.
 #![no_std]
 #![forbid(unsafe_code)]
 
@@ -20,6 +20,7 @@ pub mod format;
 pub mod geometry;
 pub mod kernels;
 pub mod model;
+pub mod opset;
 pub mod repr;
 pub mod requant;
 #[cfg(feature = "write")]
@@ -27,4 +28,5 @@ pub mod write;
 
 pub use error::Error;
 pub use model::{Model, Observer, SectionSizes};
+pub use opset::{OpSet, ALL_OPS};
 pub use repr::*;

@@ -1,7 +1,6 @@
-//! A parsed model: `Model::parse` validates a whole file once (layout, CRC,
-//! records, graph order, workspace lifetimes, then each layer via `exec`),
-//! and `run` walks the layers over one caller-provided workspace.
-//! Also the one place for MAC/parameter counts and section sizes.
+//! A parsed model: `Model::parse` validates a whole file once (layout, CRC, records, graph
+//! order, lifetimes, each layer via `exec`); `run` walks the layers with the kernels of the
+//! model's op set. Also the one place for MAC/parameter counts and section sizes.
 
 use crate::error::Error;
 use crate::exec;
@@ -10,6 +9,7 @@ use crate::format::{
     InfoView, LayerRecord, LayerView, ModelInfo, Span, TensorView, ALIGN, MAX_LAYERS,
     SECTIONS_START,
 };
+use crate::opset::{OpSet, ALL_OPS};
 use crate::repr::{Bias, LayerRef, Op, Params, TensorRecord, Weights};
 
 /// Per-layer hooks called by `Model::run_observed` (tracing, timing, dumps).
@@ -50,8 +50,13 @@ pub struct SectionSizes {
 
 /// A validated model borrowed from its bytes. Cheap to copy: it stores the
 /// validated file slice and its model-info block; records are re-read on demand.
+///
+/// `OPS` (an `OpSet` bitmask) is what `run` can execute and so what a
+/// build links: `Model::parse` gives every op (`ALL_OPS`);
+/// `Model::<OPS>::parse_with_ops` with a model's own set (`midge quantize
+/// --rust-module` writes it) links only that model's kernels.
 #[derive(Clone, Copy, Debug)]
-pub struct Model<'a> {
+pub struct Model<'a, const OPS: u32 = ALL_OPS> {
     bytes: &'a [u8],
     info: ModelInfo,
 }
@@ -93,8 +98,17 @@ fn all_zero(bytes: &[u8], from: usize, to: usize, what: &'static str) -> Result<
 impl<'a> Model<'a> {
     /// Validates `bytes` (which must start 8-byte aligned) as a model file of
     /// this format version. Bytes past the header's file length are ignored.
-    /// After `parse` succeeds, `run` fails only for wrong buffer lengths or alignment.
+    /// After `parse` succeeds, `run` fails only for wrong buffer lengths or
+    /// alignment. Links every op; see `parse_with_ops` for firmware.
     pub fn parse(bytes: &'a [u8]) -> Result<Model<'a>, Error> {
+        Model::parse_with_ops(bytes)
+    }
+}
+
+impl<'a, const OPS: u32> Model<'a, OPS> {
+    /// `parse` for a build that links only the op set `OPS`: a layer whose
+    /// (op, output type) is outside it is refused with `Error::NotLinked`.
+    pub fn parse_with_ops(bytes: &'a [u8]) -> Result<Model<'a, OPS>, Error> {
         if !is_aligned(bytes, ALIGN) {
             return Err(Error::Misaligned {
                 offset: 0,
@@ -130,7 +144,7 @@ impl<'a> Model<'a> {
         model.check_lifetimes()?;
         for i in 0..model.layer_count() {
             let (layer, a, b, out) = model.load_layer(i)?;
-            exec::check_layer(i, &layer, &a, b.as_ref(), &out)?;
+            exec::check_layer_ops::<OPS>(i, &layer, &a, b.as_ref(), &out)?;
         }
         Ok(model)
     }
@@ -717,6 +731,16 @@ impl<'a> Model<'a> {
         }
     }
 
+    /// The (op, output type) pairs of this model's layers: the op set a
+    /// firmware for it needs (`parse_with_ops`).
+    pub fn op_set(&self) -> OpSet {
+        (0..self.layer_count())
+            .filter_map(|i| self.load_layer(i).ok())
+            .fold(OpSet::EMPTY, |s, (l, _, _, out)| {
+                s.with(l.header.op, out.elem)
+            })
+    }
+
     /// Learned parameters of layer `i`: weight elements plus bias elements.
     /// Requantization and pixel/add parameters are derived, not learned, and
     /// are not counted (their bytes show in `sections().params`).
@@ -837,7 +861,7 @@ impl<'a> Model<'a> {
                 Some(bt) => Some((bt, fetch(layer.header.inputs[1], bt)?)),
                 None => None,
             };
-            exec::run_layer(&layer, (&a, a_bytes), b_pair, (&out, &mut *out_bytes))
+            exec::run_layer_ops::<OPS>(&layer, (&a, a_bytes), b_pair, (&out, &mut *out_bytes))
                 .map_err(|e| exec::at_layer(e, i))?;
             observer.after_layer(i, &out, out_bytes);
         }

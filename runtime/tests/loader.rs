@@ -8,7 +8,7 @@ use midge_runtime::embed::AlignedBytes;
 use midge_runtime::format::field;
 use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
 use midge_runtime::{
-    Activation, ElemType, Error, LayerHeader, Model, Observer, Op, Padding, Quant, Shape,
+    Activation, ElemType, Error, LayerHeader, Model, Observer, Op, OpSet, Padding, Quant, Shape,
     TensorRecord, Window,
 };
 use rand::{Rng, SeedableRng};
@@ -568,4 +568,76 @@ fn fp16_model_round_trips_and_runs() {
             "got {g}, want {w}"
         );
     }
+}
+
+/// The pairs of `mixed_spec`, written out from its layer list above.
+const MIXED_OPS: u32 = {
+    use ElemType::{F16, I8};
+    OpSet::EMPTY
+        .with(Op::Pixels, I8)
+        .with(Op::Conv2d, I8)
+        .with(Op::Depthwise, I8)
+        .with(Op::Add, I8)
+        .with(Op::MaxPool, I8)
+        .with(Op::GlobalAvgPool, I8)
+        .with(Op::Dequantize, F16)
+        .with(Op::Dense, F16)
+        .with(Op::Quantize, I8)
+        .bits()
+};
+
+/// `op_set` is the set of (op, output type) of the layers; a model parsed
+/// with its own op set runs exactly as with every op; with one pair fewer,
+/// `parse_with_ops` names the first layer that needs it (never a panic),
+/// and the dispatch refuses a layer outside its set the same way.
+#[test]
+fn op_set_selects_what_a_build_links() {
+    let spec = mixed_spec();
+    let bytes = spec.emit().unwrap();
+    let buf = AlignedBytes::from_slice(&bytes);
+    let all = Model::parse(&buf).unwrap();
+    let from_spec = spec.layers.iter().fold(OpSet::EMPTY, |s, l| {
+        s.with(l.header.op, spec.tensors[l.header.output as usize].elem)
+    });
+    assert_eq!(all.op_set(), from_spec);
+    assert_eq!(all.op_set(), OpSet::from_bits(MIXED_OPS));
+
+    let own = Model::<MIXED_OPS>::parse_with_ops(&buf).unwrap();
+    let input: Vec<u8> = (0..32).map(|i| (i * 8) as u8).collect();
+    let mut ws = AlignedBytes::zeroed(all.workspace_len());
+    let want = all.run(&input, &mut ws).unwrap().to_vec();
+    let mut ws2 = AlignedBytes::zeroed(all.workspace_len());
+    assert_eq!(own.run(&input, &mut ws2).unwrap(), &want[..]);
+
+    const NO_DEPTHWISE: u32 = MIXED_OPS & !OpSet::EMPTY.with(Op::Depthwise, ElemType::I8).bits();
+    let e = Model::<NO_DEPTHWISE>::parse_with_ops(&buf).unwrap_err();
+    assert_eq!(
+        e,
+        Error::NotLinked {
+            layer: 2,
+            op: Op::Depthwise,
+            elem: ElemType::I8
+        }
+    );
+    assert!(e.to_string().starts_with("layer 2: Depthwise"), "{e}");
+    // The fp16 dense is refused when only the int8 dense is linked.
+    const INT8_DENSE: u32 = (MIXED_OPS & !OpSet::EMPTY.with(Op::Dense, ElemType::F16).bits())
+        | OpSet::EMPTY.with(Op::Dense, ElemType::I8).bits();
+    assert!(matches!(
+        Model::<INT8_DENSE>::parse_with_ops(&buf),
+        Err(Error::NotLinked {
+            layer: 7,
+            op: Op::Dense,
+            elem: ElemType::F16
+        })
+    ));
+    // Below parse: the dispatch of an empty op set refuses layer 0.
+    let l0 = all.layer(0).unwrap();
+    let (t0, t1) = (all.tensor(0).unwrap(), all.tensor(1).unwrap());
+    let mut y = vec![0u8; t1.byte_len()];
+    let r = midge_runtime::exec::run_layer_ops::<0>(&l0, (&t0, &input), None, (&t1, &mut y));
+    assert!(
+        matches!(r, Err(Error::NotLinked { op: Op::Pixels, .. })),
+        "{r:?}"
+    );
 }

@@ -92,5 +92,6 @@ pub fn error_kind(e: &Error) -> &'static str {
         Error::InputLength { .. } => "input length",
         Error::WorkspaceLength { .. } => "workspace length",
         Error::WorkspaceMisaligned => "workspace misaligned",
+        Error::NotLinked { .. } => "op not linked",
     }
 }

@@ -1,16 +1,21 @@
 //! The demo models run on emulated Cortex-M cores (QEMU, bench/firmware)
 //! give the host's output bytes bit for bit, for int8 and fp16 models and
-//! for thumbv7em (M4, M7) and thumbv6m (M0+) builds. Skips with a printed
-//! reason only when qemu-system-arm or a Rust thumb target is missing.
+//! for thumbv7em (M4, M7) and thumbv6m (M0+) builds, each firmware linking
+//! the model's own op set. Skips with a printed reason only when
+//! qemu-system-arm or a Rust thumb target is missing, and fails instead
+//! under `MIDGE_REQUIRE_EMULATOR=1`.
 
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
 use midge_bench::emulated::{emulated_latency, unavailable};
+use midge_convert::firmware;
 use midge_convert::graph::Precision;
 use midge_convert::images;
 use midge_convert::quantize::{image_spec, quantize_description, QuantizeOptions};
 use midge_convert::target::Target;
+use midge_runtime::embed::AlignedBytes;
+use midge_runtime::{Model, OpSet};
 
 fn models() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("../models")
@@ -40,6 +45,7 @@ fn check(target: &str, desc: &str, precision: Option<Precision>) {
 fn check_inputs(target: &str, desc: &str, precision: Option<Precision>, n: usize) {
     let t = Target::resolve(target).unwrap();
     if let Some(why) = unavailable(&t) {
+        firmware::may_skip(&why).unwrap();
         println!("skipped: emulated run on {target} not possible here: {why}");
         return;
     }
@@ -97,6 +103,7 @@ fn caps_plain_fp16_on_m7() {
 fn corrupted_model_is_reported_by_the_harness() {
     let t = Target::resolve("m4-80").unwrap();
     if let Some(why) = unavailable(&t) {
+        firmware::may_skip(&why).unwrap();
         println!("skipped: emulated run on m4-80 not possible here: {why}");
         return;
     }
@@ -106,9 +113,9 @@ fn corrupted_model_is_reported_by_the_harness() {
     let err = emulated_latency(&bytes, &inputs, &t, Duration::from_secs(120));
     // The host refuses it first (same runtime, same check).
     assert!(err.is_err());
-    let build = midge_convert::firmware::build(&t.rust_target).unwrap();
-    let job = midge_convert::firmware::job_block(&bytes, &[&inputs[0]], 4096).unwrap();
-    let e = midge_convert::firmware::run(
+    let build = firmware::build(&t.rust_target, OpSet::ALL).unwrap();
+    let job = firmware::job_block(&bytes, &[&inputs[0]], 4096).unwrap();
+    let e = firmware::run(
         &t.emulator.machine,
         &build.harness,
         &job,
@@ -117,4 +124,45 @@ fn corrupted_model_is_reported_by_the_harness() {
     .unwrap_err()
     .to_string();
     assert!(e.contains("harness: model:"), "{e}");
+}
+
+/// A harness built for one model's op set (caps-plain: int8 conv2d, pools,
+/// dense) refuses, on the device, a model needing an op outside it (the
+/// separable model's depthwise and add): parse names the first such layer
+/// and its op, and the harness reports it as an error line, not a crash.
+#[test]
+fn model_outside_the_firmware_op_set_is_refused_on_the_device() {
+    let t = Target::resolve("m4-80").unwrap();
+    if let Some(why) = unavailable(&t) {
+        firmware::may_skip(&why).unwrap();
+        println!("skipped: emulated run on m4-80 not possible here: {why}");
+        return;
+    }
+    let (plain, _) = demo("caps/plain.toml", None, 1);
+    let (separable, inputs) = demo("caps/separable.toml", None, 1);
+    let ops = Model::parse(&AlignedBytes::from_slice(&plain))
+        .unwrap()
+        .op_set();
+    let aligned = AlignedBytes::from_slice(&separable);
+    let sep = Model::parse(&aligned).unwrap();
+    let (first, op, elem) = (0..sep.layer_count())
+        .find_map(|i| {
+            let l = sep.layer(i).unwrap();
+            let elem = sep.tensor(l.header.output as usize).unwrap().elem;
+            (!ops.has(l.header.op, elem)).then_some((i, l.header.op, elem))
+        })
+        .expect("separable uses an op caps-plain does not");
+    let build = firmware::build(&t.rust_target, ops).unwrap();
+    let job = firmware::job_block(&separable, &[&inputs[0]], sep.workspace_len()).unwrap();
+    let e = firmware::run(
+        &t.emulator.machine,
+        &build.harness,
+        &job,
+        Duration::from_secs(120),
+    )
+    .unwrap_err()
+    .to_string();
+    let want =
+        format!("harness: model: layer {first}: {op:?} with {elem:?} output is not in the op set");
+    assert!(e.contains(&want), "{e}\nwant {want}");
 }

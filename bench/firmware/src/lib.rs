@@ -1,7 +1,9 @@
 //! Shared pieces of the harness binaries: the job block that QEMU's loader
 //! places in RAM (layout owned by `midge_bench::emulated`, mirrored here),
-//! and the SysTick instruction clock.
+//! the SysTick instruction clock, and the op set `OPS` the binaries link.
 #![no_std]
+
+include!(concat!(env!("OUT_DIR"), "/ops.rs"));
 
 use core::sync::atomic::{AtomicU32, Ordering};
 use cortex_m::peripheral::{syst::SystClkSource, SYST};

@@ -85,7 +85,7 @@ fn main() -> ! {
         Ok(j) => j,
         Err(e) => fail(&mut out, format_args!("{e}")),
     };
-    let model = match Model::parse(job.model(block)) {
+    let model = match Model::<OPS>::parse_with_ops(job.model(block)) {
         Ok(m) => m,
         Err(e) => fail(&mut out, format_args!("model: {e}")),
     };
