@@ -10,7 +10,7 @@ use midge_bench::report::{sweep_html, sweep_text};
 use midge_bench::{bench_report, sweep, ReportOptions, Result};
 use midge_convert::budget::{BudgetOptions, DEFAULT_SEED};
 use midge_convert::description::Description;
-use midge_convert::output::write_atomic;
+use midge_convert::output::{check_destinations, write_outputs};
 use midge_convert::target::Target;
 
 #[derive(Parser, Debug)]
@@ -112,9 +112,13 @@ fn run(cli: Cli) -> Result<u8> {
                 seed: common.seed,
                 timeout: Duration::from_secs(common.timeout),
             };
+            // The HTML destination is checked before the (long) measurement.
+            if let Some(h) = &common.html {
+                check_destinations(&[h], &[&model])?;
+            }
             let r = bench_report(&model, &opts)?;
             if let Some(h) = &common.html {
-                write_atomic(h, r.render_html().as_bytes())?;
+                write_outputs(&[(h, r.render_html().as_bytes())], &[&model])?;
             }
             if common.json {
                 println!("{}", serde_json::to_string_pretty(&r).unwrap_or_default());
@@ -129,6 +133,9 @@ fn run(cli: Cli) -> Result<u8> {
             resolution,
             common,
         } => {
+            if let Some(h) = &common.html {
+                check_destinations(&[h], &[&description])?;
+            }
             let desc = Description::load(&description)?;
             let opts = BudgetOptions {
                 measure_runtime: !common.no_runtime_size,
@@ -142,7 +149,10 @@ fn run(cli: Cli) -> Result<u8> {
                 .collect::<Result<Vec<_>>>()?;
             let rows = sweep::sweep(&desc, &width, &sizes, &t, &opts, common.seed)?;
             if let Some(h) = &common.html {
-                write_atomic(h, sweep_html(&desc.name, &rows).as_bytes())?;
+                write_outputs(
+                    &[(h, sweep_html(&desc.name, &rows).as_bytes())],
+                    &[&description],
+                )?;
             }
             if common.json {
                 println!(

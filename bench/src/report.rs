@@ -6,6 +6,7 @@ use std::fmt::Write as _;
 
 use midge_convert::budget::Budget;
 use midge_convert::compare::LayerRow as SqnrRow;
+use midge_convert::error::escape;
 use midge_convert::footprint::ModelFootprint;
 use serde::Serialize;
 
@@ -104,7 +105,7 @@ impl BenchReport {
         let fp = &self.footprint;
         let mut s = format!(
             "model {}: {} layers, {} parameters, {} MACs, file {} B, workspace {} B (lower bound {} B)\n\n",
-            fp.name,
+            escape(&fp.name),
             fp.layers.len(),
             fp.params,
             fp.macs,
@@ -205,7 +206,7 @@ impl BenchReport {
                 .iter()
                 .map(|r| {
                     vec![
-                        r.name.clone(),
+                        escape(&r.name).into_owned(),
                         r.op.clone(),
                         r.precision.clone(),
                         r.sqnr_db.map_or("exact".into(), |d| format!("{d:.1} dB")),
