@@ -556,6 +556,10 @@ fn run(
                     .ok_or(fault("int8 layer needs requant parameters"))?,
                 clamp: h.clamp_i8,
             };
+            if fast && h.op == Op::Conv2d {
+                let (x, y) = (as_i8(xa)?, as_i8_mut(y)?);
+                return kernels::tile::conv2d_selected(&ar, x, xs, w, &h.window, y, ys);
+            }
             weighted(
                 &ar,
                 h.op,
@@ -592,22 +596,22 @@ fn run(
             let win = pool_window(h.op, xs, &h.window);
             let (x, y) = (as_i8(xa)?, as_i8_mut(y)?);
             if h.op == Op::MaxPool {
-                kernels::pool(&int8::MaxI8 { clamp: h.clamp_i8 }, x, xs, &win, y, ys)
+                pool(&int8::MaxI8 { clamp: h.clamp_i8 }, x, xs, &win, y, ys, fast)
             } else {
                 let p = int8::AvgI8 {
                     zp: ta.quant.zero_point,
                     clamp: h.clamp_i8,
                 };
-                kernels::pool(&p, x, xs, &win, y, ys)
+                pool(&p, x, xs, &win, y, ys, fast)
             }
         }
         (Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool, ElemType::F16, ElemType::F16) => {
             let win = pool_window(h.op, xs, &h.window);
             let (x, y) = (as_f16(xa)?, as_f16_mut(y)?);
             if h.op == Op::MaxPool {
-                kernels::pool(&fp16::MaxF16 { clamp: h.clamp_f32 }, x, xs, &win, y, ys)
+                pool(&fp16::MaxF16 { clamp: h.clamp_f32 }, x, xs, &win, y, ys, fast)
             } else {
-                kernels::pool(&fp16::AvgF16 { clamp: h.clamp_f32 }, x, xs, &win, y, ys)
+                pool(&fp16::AvgF16 { clamp: h.clamp_f32 }, x, xs, &win, y, ys, fast)
             }
         }
         (Op::Add, ElemType::I8, ElemType::I8) => {
@@ -660,6 +664,23 @@ fn pool_window(op: Op, xs: Shape, win: &crate::repr::Window) -> crate::repr::Win
         kernels::global_window(xs.h, xs.w)
     } else {
         *win
+    }
+}
+
+/// Pooling through the fast loop nest or the reference one.
+fn pool<P: kernels::Pool>(
+    p: &P,
+    x: &[P::X],
+    xs: Shape,
+    win: &crate::repr::Window,
+    y: &mut [P::X],
+    ys: Shape,
+    fast: bool,
+) -> Result<(), Error> {
+    if fast {
+        kernels::pool(p, x, xs, win, y, ys)
+    } else {
+        kernels::pool_ref(p, x, xs, win, y, ys)
     }
 }
 

@@ -1,0 +1,98 @@
+//! The Cortex-M DSP tile kernel (2 output channels × 2 pixels): the whole
+//! inner loop is one `asm!` block of dual 16-bit multiply-accumulates and
+//! byte-pair sign-extends. The only module of the crate allowed `unsafe`;
+//! built where `build.rs` sets `midge_dsp`.
+#![allow(unsafe_code)]
+
+use super::fault;
+use super::tile::MicroKernel;
+use crate::error::Error;
+use core::arch::asm;
+
+/// The DSP tile kernel; equals `tile::Portable` on every input (the dual
+/// multiply-accumulate's sum wraps modulo 2^32, as the portable sums do).
+pub struct Dsp;
+
+impl MicroKernel for Dsp {
+    const MR: usize = 2;
+    const NR: usize = 2;
+
+    fn run(
+        w: &[i8],
+        w_stride: usize,
+        panel: &[u32],
+        groups: usize,
+        acc: &mut [i32],
+    ) -> Result<(), Error> {
+        if groups == 0 {
+            return Ok(());
+        }
+        // The facts the asm block relies on, checked here in safe code:
+        // row 0 has 4·groups bytes from `w`, row 1 as many from
+        // `w + w_stride`, the panel 4·groups words, and 4 accumulators.
+        let k = groups.checked_mul(4).ok_or(fault("tile too long"))?;
+        let row1_end = w_stride.checked_add(k).ok_or(fault("tile too long"))?;
+        if w.len() < k || w.len() < row1_end {
+            return Err(fault("tile weights too short"));
+        }
+        if panel.len() < k {
+            return Err(fault("tile panel too short"));
+        }
+        let [a00, a01, a10, a11] = acc else {
+            return Err(fault("tile accumulators"));
+        };
+        let w0 = w.as_ptr();
+        let w1 = w.as_ptr().wrapping_add(w_stride);
+        let px = panel.as_ptr();
+        // SAFETY: the loop runs `groups` ≥ 1 times; each pass reads 4 bytes
+        // at `w0` and at `w1` (post-incremented by 4) and the 4 panel words
+        // at `px` (post-incremented by 16, then read at −16..−4). So it reads
+        // w[0..4·groups], w[w_stride..w_stride + 4·groups] and
+        // panel[0..4·groups], all in bounds by the checks above. The panel
+        // is a `u32` slice (word-aligned); weight words may be unaligned,
+        // which plain `ldr` allows on ARMv7E-M / ARMv8-M Mainline (no
+        // double-word or multiple loads are used). Registers only, no
+        // stack, no writes to memory; the flags are clobbered (`subs`).
+        unsafe {
+            asm!(
+                "2:",
+                "ldr {t0}, [{w0}], #4",
+                "ldr {t1}, [{w1}], #4",
+                "ldr {t2}, [{px}], #16",
+                "sxtb16 {t3}, {t0}",
+                "smlad {a00}, {t2}, {t3}, {a00}",
+                "ldr {t2}, [{px}, #-8]",
+                "smlad {a01}, {t2}, {t3}, {a01}",
+                "sxtb16 {t3}, {t1}",
+                "smlad {a11}, {t2}, {t3}, {a11}",
+                "ldr {t2}, [{px}, #-16]",
+                "smlad {a10}, {t2}, {t3}, {a10}",
+                "sxtb16 {t3}, {t1}, ror #8",
+                "ldr {t2}, [{px}, #-12]",
+                "smlad {a10}, {t2}, {t3}, {a10}",
+                "ldr {t2}, [{px}, #-4]",
+                "smlad {a11}, {t2}, {t3}, {a11}",
+                "sxtb16 {t3}, {t0}, ror #8",
+                "smlad {a01}, {t2}, {t3}, {a01}",
+                "ldr {t2}, [{px}, #-12]",
+                "smlad {a00}, {t2}, {t3}, {a00}",
+                "subs {n}, {n}, #1",
+                "bne 2b",
+                w0 = inout(reg) w0 => _,
+                w1 = inout(reg) w1 => _,
+                px = inout(reg) px => _,
+                n = inout(reg) groups => _,
+                a00 = inout(reg) *a00,
+                a01 = inout(reg) *a01,
+                a10 = inout(reg) *a10,
+                a11 = inout(reg) *a11,
+                t0 = out(reg) _,
+                t1 = out(reg) _,
+                t2 = out(reg) _,
+                t3 = out(reg) _,
+                options(nostack, readonly),
+            );
+        }
+        Ok(())
+    }
+}
