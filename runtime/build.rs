@@ -9,8 +9,8 @@ fn main() {
     let target = env::var("TARGET").unwrap_or_default();
     let features = env::var("CARGO_CFG_TARGET_FEATURE").unwrap_or_default();
     let has_dsp_feature = features.split(',').any(|f| f == "dsp");
-    let dsp = target.starts_with("thumbv7em")
-        || (target.starts_with("thumbv8m.main") && has_dsp_feature);
+    let dsp =
+        target.starts_with("thumbv7em") || (target.starts_with("thumbv8m.main") && has_dsp_feature);
     if dsp {
         println!("cargo:rustc-cfg=midge_dsp");
     }

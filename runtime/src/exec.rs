@@ -609,9 +609,25 @@ fn run(
             let win = pool_window(h.op, xs, &h.window);
             let (x, y) = (as_f16(xa)?, as_f16_mut(y)?);
             if h.op == Op::MaxPool {
-                pool(&fp16::MaxF16 { clamp: h.clamp_f32 }, x, xs, &win, y, ys, fast)
+                pool(
+                    &fp16::MaxF16 { clamp: h.clamp_f32 },
+                    x,
+                    xs,
+                    &win,
+                    y,
+                    ys,
+                    fast,
+                )
             } else {
-                pool(&fp16::AvgF16 { clamp: h.clamp_f32 }, x, xs, &win, y, ys, fast)
+                pool(
+                    &fp16::AvgF16 { clamp: h.clamp_f32 },
+                    x,
+                    xs,
+                    &win,
+                    y,
+                    ys,
+                    fast,
+                )
             }
         }
         (Op::Add, ElemType::I8, ElemType::I8) => {

@@ -152,7 +152,13 @@ fn tile_conv2d_equals_reference() {
         let b2: Vec<i32>;
         if i % 7 == 4 {
             b2 = (0..oc)
-                .map(|_| if rng.gen() { i32::MAX - 1000 } else { i32::MIN + 1000 })
+                .map(|_| {
+                    if rng.gen() {
+                        i32::MAX - 1000
+                    } else {
+                        i32::MIN + 1000
+                    }
+                })
                 .collect();
             a.bias = &b2;
         }

@@ -5,7 +5,7 @@
 #![allow(unsafe_code)]
 
 use super::fault;
-use super::tile::MicroKernel;
+use super::tile::{pack_portable, MicroKernel};
 use crate::error::Error;
 use core::arch::asm;
 
@@ -16,6 +16,49 @@ pub struct Dsp;
 impl MicroKernel for Dsp {
     const MR: usize = 2;
     const NR: usize = 2;
+
+    fn pack(src: &[i8], dst: &mut [u32], stride: usize) {
+        let groups = src.len() / 4;
+        // The facts the asm block relies on, checked here in safe code:
+        // `groups` whole groups of `src`, and `dst` reaching word
+        // (groups − 1)·4 + 1. Otherwise (or for another stride) the
+        // portable packing does the work.
+        let fits = groups
+            .checked_sub(1)
+            .and_then(|g| g.checked_mul(4))
+            .and_then(|g| g.checked_add(2))
+            .is_some_and(|need| dst.len() >= need);
+        if stride != 4 || !fits {
+            return pack_portable(src, dst, stride);
+        }
+        let s = src.as_ptr();
+        let d = dst.as_mut_ptr();
+        // SAFETY: the loop runs `groups` ≥ 1 times; each pass reads 4 bytes
+        // at `s` (post-incremented by 4: src[0..4·groups], in bounds) and
+        // writes the two words at `d` (post-incremented by 16 bytes, i.e. 4
+        // words: dst[4g], dst[4g + 1] for g < groups, in bounds by `fits`).
+        // `d` is word-aligned (a `u32` slice), as the double-word store
+        // needs; the byte load may be unaligned, which plain `ldr` allows.
+        // `dst` is borrowed mutably, so nothing else reads or writes it.
+        unsafe {
+            asm!(
+                "2:",
+                "ldr {v}, [{s}], #4",
+                "sxtb16 {e}, {v}",
+                "sxtb16 {o}, {v}, ror #8",
+                "strd {e}, {o}, [{d}], #16",
+                "subs {n}, {n}, #1",
+                "bne 2b",
+                s = inout(reg) s => _,
+                d = inout(reg) d => _,
+                n = inout(reg) groups => _,
+                v = out(reg) _,
+                e = out(reg) _,
+                o = out(reg) _,
+                options(nostack),
+            );
+        }
+    }
 
     fn run(
         w: &[i8],

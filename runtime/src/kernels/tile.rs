@@ -12,8 +12,8 @@
 //! padded with zeros; padded taps of the window hold the input zero point.
 
 use super::{
-    axis_range, check_lens, conv2d_fast, conv_weight_len, fault, gather, int8::Int8Arith, Arith,
-    is_pointwise, part, Px,
+    axis_range, check_lens, conv2d_fast, conv_weight_len, fault, int8::Int8Arith, is_pointwise,
+    part, pos, Arith, Px,
 };
 use crate::error::Error;
 use crate::repr::{Shape, Window};
@@ -28,6 +28,13 @@ pub trait MicroKernel {
     const MR: usize;
     /// Output pixels per tile (at most `MAX_NR`).
     const NR: usize;
+    /// Packs `src` (a multiple of 4 values) as consecutive groups of one
+    /// pixel: group `g` into `dst[g·stride]` and `dst[g·stride + 1]`
+    /// (`stride` ≥ 2). Values that do not fit are dropped, never a panic.
+    #[inline]
+    fn pack(src: &[i8], dst: &mut [u32], stride: usize) {
+        pack_portable(src, dst, stride)
+    }
     /// Fails (never panics) when a slice is shorter than the tile needs.
     fn run(
         w: &[i8],
@@ -61,19 +68,91 @@ pub fn panel_value(panel: &[u32], nr: usize, j: usize, k: usize) -> Option<i32> 
     Some((word >> (16 * ((k >> 1) & 1))) as u16 as i16 as i32)
 }
 
-/// Packs the window values `src` of pixel `j` into `panel` (`nr` pixels),
-/// the last group padded with zeros.
-pub fn pack(src: &[i8], panel: &mut [u32], j: usize, nr: usize) {
-    let at = |v: &[i8], i: usize| v.get(i).copied().unwrap_or(0);
-    for (g, words) in src
-        .chunks(4)
-        .zip(panel.chunks_exact_mut(2 * nr).map(|c| c.get_mut(2 * j..)))
-    {
-        if let Some([e, o, ..]) = words {
-            *e = pair(at(g, 0), at(g, 2));
-            *o = pair(at(g, 1), at(g, 3));
+/// `MicroKernel::pack` in plain safe Rust.
+#[inline]
+pub(crate) fn pack_portable(src: &[i8], dst: &mut [u32], stride: usize) {
+    for (g, d) in src.chunks_exact(4).zip(dst.chunks_mut(stride.max(2))) {
+        if let [e, o, ..] = d {
+            *e = pair(g[0], g[2]);
+            *o = pair(g[1], g[3]);
         }
     }
+}
+
+/// Sets window value `k` of pixel `j` in a panel of `nr` pixels.
+#[inline]
+fn set_value(panel: &mut [u32], nr: usize, j: usize, k: usize, v: i8) {
+    if let Some(word) = panel.get_mut(((k / 4) * nr + j) * 2 + (k & 1)) {
+        let sh = 16 * ((k >> 1) & 1);
+        *word = (*word & !(0xffff << sh)) | ((v as i16 as u16 as u32) << sh);
+    }
+}
+
+/// Writes the values `src` as window values `k0..k0 + src.len()` of pixel
+/// `j`: single values up to a group boundary, whole groups through
+/// `K::pack`, single values after the last whole group.
+#[inline]
+fn put_run<K: MicroKernel>(src: &[i8], k0: usize, panel: &mut [u32], j: usize) {
+    let nr = K::NR;
+    let lead = ((4 - k0 % 4) % 4).min(src.len());
+    let (head, rest) = src.split_at(lead);
+    for (i, &v) in head.iter().enumerate() {
+        set_value(panel, nr, j, k0 + i, v);
+    }
+    let k1 = k0 + lead;
+    let whole = rest.len() / 4 * 4;
+    let (body, tail) = rest.split_at(whole);
+    if let Some(dst) = panel.get_mut((k1 / 4 * nr + j) * 2..) {
+        K::pack(body, dst, 2 * nr);
+    }
+    for (i, &v) in tail.iter().enumerate() {
+        set_value(panel, nr, j, k1 + whole + i, v);
+    }
+}
+
+/// The im2col gather: the window of output pixel `at` (flat `[kh][kw][in_c]`
+/// index `k < k_len`) as pixel `j` of the panel, padded taps holding `pad`.
+fn gather_panel<K: MicroKernel>(
+    x: &[i8],
+    pad: i8,
+    win: &Window,
+    at: &Px,
+    k_len: usize,
+    panel: &mut [u32],
+    j: usize,
+) -> Result<(), Error> {
+    let (ic, nr) = (at.c, K::NR);
+    if !at.full(win) {
+        let fill = pair(pad, pad);
+        for g in panel.chunks_exact_mut(2 * nr) {
+            if let Some(w) = g.get_mut(2 * j..2 * j + 2) {
+                w.fill(fill);
+            }
+        }
+    }
+    let row_len = win.kw as usize * ic;
+    let (kx0, kx1) = at.rx;
+    if kx0 >= kx1 || k_len != win.kh as usize * row_len {
+        return Ok(());
+    }
+    for ky in at.ry.0..at.ry.1 {
+        let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
+        if win.dil_w == 1 {
+            // The in-bounds taps of a row are one contiguous input run.
+            let ix = pos(at.ox, kx0, win.stride_w, 1, win.pad_left);
+            let n = (kx1 - kx0) * ic;
+            let src = part(x, (iy * at.iw + ix) * ic, n).ok_or(fault("conv2d input too short"))?;
+            put_run::<K>(src, ky * row_len + kx0 * ic, panel, j);
+        } else {
+            for kx in kx0..kx1 {
+                let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
+                let src =
+                    part(x, (iy * at.iw + ix) * ic, ic).ok_or(fault("conv2d input too short"))?;
+                put_run::<K>(src, ky * row_len + kx * ic, panel, j);
+            }
+        }
+    }
+    Ok(())
 }
 
 /// The portable tile kernel: 2 output channels × 2 pixels, plain safe Rust
@@ -93,9 +172,12 @@ impl MicroKernel for Portable {
         let k = groups.checked_mul(4).ok_or(fault("tile too long"))?;
         let half = |word: u32, h: u32| (word >> (16 * h)) as u16 as i16 as i32;
         for i in 0..Self::MR {
-            let row = part(w, i.wrapping_mul(w_stride), k).ok_or(fault("tile weights too short"))?;
+            let row =
+                part(w, i.wrapping_mul(w_stride), k).ok_or(fault("tile weights too short"))?;
             for j in 0..Self::NR {
-                let s = acc.get_mut(i * Self::NR + j).ok_or(fault("tile accumulators"))?;
+                let s = acc
+                    .get_mut(i * Self::NR + j)
+                    .ok_or(fault("tile accumulators"))?;
                 let mut v = *s;
                 for (g, wv) in row.chunks_exact(4).enumerate() {
                     let at = (g * Self::NR + j) * 2;
@@ -168,121 +250,128 @@ pub fn conv2d<K: MicroKernel>(
     let (ih, iw) = (xs.h as usize, xs.w as usize);
     let ow = ys.w as usize;
     let npx = ys.h as usize * ow;
-    let groups = k_len / 4;
-    let mut patch = [a.zp_in; PANEL_K];
     let mut panel_buf = [0u32; PANEL_K / 2 * MAX_NR];
     let panel_len = k_len.div_ceil(4) * 2 * nr;
-    let panel = panel_buf.get_mut(..panel_len).ok_or(fault("conv2d panel"))?;
+    let panel = panel_buf
+        .get_mut(..panel_len)
+        .ok_or(fault("conv2d panel"))?;
     let mut rq = [Rq::default(); OCB];
+    let mut bias = [0i32; OCB];
+    let mut accs: Accs = [[0; OCB]; MAX_NR];
     for o0 in (0..oc).step_by(OCB) {
         let nb = OCB.min(oc - o0);
-        for (i, r) in rq.iter_mut().take(nb).enumerate() {
+        for (i, (r, b)) in rq.iter_mut().zip(&mut bias).take(nb).enumerate() {
             *r = a.rq(o0 + i);
+            *b = a.start(o0 + i);
         }
         for p0 in (0..npx).step_by(nr) {
             let np = nr.min(npx - p0);
             for j in 0..nr {
                 // A missing last pixel repeats the one before (not written).
                 let p = p0 + j.min(np - 1);
-                let src: &[i8] = if pointwise {
-                    part(x, p * ic, ic).ok_or(fault("conv2d input too short"))?
+                if pointwise {
+                    let src = part(x, p * ic, ic).ok_or(fault("conv2d input too short"))?;
+                    put_run::<K>(src, 0, panel, j);
                 } else {
                     let (oy, ox) = (p / ow, p % ow);
                     let at = Px {
                         oy,
                         ox,
-                        ry: axis_range(oy, win.kh as usize, win.stride_h, win.dil_h, win.pad_top, ih),
-                        rx: axis_range(ox, win.kw as usize, win.stride_w, win.dil_w, win.pad_left, iw),
+                        ry: axis_range(
+                            oy,
+                            win.kh as usize,
+                            win.stride_h,
+                            win.dil_h,
+                            win.pad_top,
+                            ih,
+                        ),
+                        rx: axis_range(
+                            ox,
+                            win.kw as usize,
+                            win.stride_w,
+                            win.dil_w,
+                            win.pad_left,
+                            iw,
+                        ),
                         iw,
                         c: ic,
                     };
-                    let dst = patch.get_mut(..k_len).ok_or(fault("conv2d patch"))?;
-                    gather(x, a.zp_in, win, &at, 0, dst)?;
-                    dst
-                };
-                pack(src, panel, j, nr);
-            }
-            let tile = Tile {
-                w,
-                k_len,
-                groups,
-                panel,
-                p0,
-                np,
-                oc,
-            };
-            let mut o = 0;
-            while o < nb {
-                let nm = mr.min(nb - o);
-                if nm == mr {
-                    tile.run::<K>(a, o0 + o, mr, k_len, &rq[o..], y)?;
-                } else {
-                    // Fewer channels than a tile: one row at a time (rows
-                    // 0 apart, only row 0 written).
-                    for i in o..o + nm {
-                        tile.run::<K>(a, o0 + i, 1, 0, &rq[i..], y)?;
-                    }
+                    gather_panel::<K>(x, a.zp_in, win, &at, k_len, panel, j)?;
                 }
-                o += nm;
+            }
+            let wb = w
+                .get(o0 * k_len..)
+                .ok_or(fault("conv2d weights too short"))?;
+            channels::<K>(wb, k_len, panel, bias.get(..nb).unwrap_or(&[]), &mut accs)?;
+            for (j, acc) in accs.iter().take(np).enumerate() {
+                let at = (p0 + j) * oc + o0;
+                let y_px = part_mut(y, at, nb).ok_or(fault("conv2d output too short"))?;
+                for ((y, &s), r) in y_px.iter_mut().zip(acc.iter()).zip(&rq) {
+                    *y = a.finish_with(s, r);
+                }
             }
         }
     }
     Ok(())
 }
 
-/// One packed panel of `np` real pixels from output pixel `p0` on.
-struct Tile<'p, 'w> {
-    w: &'w [i8],
-    k_len: usize,
-    groups: usize,
-    panel: &'p [u32],
-    p0: usize,
-    np: usize,
-    oc: usize,
+/// `n` elements of `s` from `at`, or `None`.
+#[inline]
+fn part_mut<T>(s: &mut [T], at: usize, n: usize) -> Option<&mut [T]> {
+    s.get_mut(at..)?.get_mut(..n)
 }
 
-impl Tile<'_, '_> {
-    /// Output channels `og..og + rows` (weight rows `stride` apart) of the
-    /// panel's pixels into `y`; `rq[i]` are the constants of channel `og + i`.
-    #[inline(always)]
-    fn run<K: MicroKernel>(
-        &self,
-        a: &Int8Arith<'_>,
-        og: usize,
-        rows: usize,
-        stride: usize,
-        rq: &[Rq],
-        y: &mut [i8],
-    ) -> Result<(), Error> {
-        let (mr, nr) = (K::MR, K::NR);
+/// Accumulators of one block of output channels (one row per pixel).
+type Accs = [[i32; OCB]; MAX_NR];
+
+/// `accs[j][o] = bias[o] + Σ_k w[o·k_len + k] · x_j[k]` for the
+/// `bias.len()` channels of a block and the `NR` pixels of `panel`: `MR`
+/// channels at a time through `K::run` over the whole groups, the last
+/// `k_len mod 4` values here. A last tile with fewer channels than `MR`
+/// runs one channel at a time (weight rows 0 apart, only row 0 kept).
+// Not inlined: the loop gets a function (and registers) of its own.
+#[inline(never)]
+fn channels<K: MicroKernel>(
+    w: &[i8],
+    k_len: usize,
+    panel: &[u32],
+    bias: &[i32],
+    accs: &mut Accs,
+) -> Result<(), Error> {
+    let (mr, nr) = (K::MR, K::NR);
+    let nb = bias.len();
+    let groups = k_len / 4;
+    let mut o = 0;
+    while o < nb {
+        let (rows, stride) = if o + mr <= nb { (mr, k_len) } else { (1, 0) };
         let mut buf = [0i32; MAX_MR * MAX_NR];
         let acc = buf.get_mut(..mr * nr).ok_or(fault("tile accumulators"))?;
         for (i, row) in acc.chunks_exact_mut(nr).enumerate() {
-            row.fill(a.start(og + if stride == 0 { 0 } else { i }));
+            row.fill(bias.get(o + i.min(rows - 1)).copied().unwrap_or(0));
         }
-        let w = self
-            .w
-            .get(og.wrapping_mul(self.k_len)..)
+        let wt = w
+            .get(o * k_len..)
             .ok_or(fault("conv2d weights too short"))?;
-        K::run(w, stride, self.panel, self.groups, acc)?;
-        let k0 = self.groups * 4;
-        for k in k0..self.k_len {
+        K::run(wt, stride, panel, groups, acc)?;
+        for k in groups * 4..k_len {
             for (i, row) in acc.chunks_exact_mut(nr).enumerate() {
-                let wv = *w
-                    .get(i.wrapping_mul(stride).wrapping_add(k))
+                let wv = *wt
+                    .get(i * stride + k)
                     .ok_or(fault("conv2d weights too short"))? as i32;
                 for (j, s) in row.iter_mut().enumerate() {
-                    let xv = panel_value(self.panel, nr, j, k).ok_or(fault("tile panel"))?;
+                    let xv = panel_value(panel, nr, j, k).ok_or(fault("tile panel"))?;
                     *s = s.wrapping_add(xv * wv);
                 }
             }
         }
-        for (i, (row, r)) in acc.chunks_exact(nr).zip(rq).take(rows).enumerate() {
-            for (j, &s) in row.iter().take(self.np).enumerate() {
-                let at = (self.p0 + j) * self.oc + og + i;
-                *y.get_mut(at).ok_or(fault("conv2d output too short"))? = a.finish_with(s, r);
+        for (i, row) in acc.chunks_exact(nr).take(rows).enumerate() {
+            for (j, &s) in row.iter().enumerate() {
+                if let Some(d) = accs.get_mut(j).and_then(|a| a.get_mut(o + i)) {
+                    *d = s;
+                }
             }
         }
-        Ok(())
+        o += rows;
     }
+    Ok(())
 }
