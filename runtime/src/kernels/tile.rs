@@ -212,7 +212,7 @@ pub fn conv2d_selected(
 ) -> Result<(), Error> {
     #[cfg(midge_dsp)]
     {
-        conv2d::<super::dsp::Dsp>(a, x, xs, w, win, y, ys)
+        conv2d::<Selected>(a, x, xs, w, win, y, ys)
     }
     #[cfg(not(midge_dsp))]
     {
@@ -375,3 +375,17 @@ fn channels<K: MicroKernel>(
     }
     Ok(())
 }
+
+/// Whether this build has the DSP tile kernel (`build.rs` set `midge_dsp`).
+pub const DSP: bool = cfg!(midge_dsp);
+
+/// The tile kernel of this target: the DSP kernel where available, the
+/// portable one elsewhere (the kernel equality tests run it against
+/// `Portable`).
+#[cfg(midge_dsp)]
+pub type Selected = super::dsp::Dsp;
+/// The tile kernel of this target: the DSP kernel where available, the
+/// portable one elsewhere (the kernel equality tests run it against
+/// `Portable`).
+#[cfg(not(midge_dsp))]
+pub type Selected = Portable;
