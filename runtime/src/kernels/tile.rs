@@ -54,6 +54,8 @@ pub const MAX_NR: usize = 2;
 pub const PANEL_K: usize = 576;
 /// Output channels whose requantization constants are worked out at once.
 const OCB: usize = 64;
+/// Bytes of the row-padded weight copy (see `conv2d`).
+const WBUF: usize = 2048;
 
 /// Sign-extended 16-bit halves `(lo, hi)` in one word.
 #[inline]
@@ -110,14 +112,18 @@ fn put_run<K: MicroKernel>(src: &[i8], k0: usize, panel: &mut [u32], j: usize) {
     }
 }
 
-/// The im2col gather: the window of output pixel `at` (flat `[kh][kw][in_c]`
-/// index `k < k_len`) as pixel `j` of the panel, padded taps holding `pad`.
+/// The im2col gather: the window of output pixel `at` as pixel `j` of the
+/// panel, padded taps holding `pad`. Tap row `ky` starts at window value
+/// `ky·pitch` (`pitch` ≥ kw·in_c; with `pitch` > kw·in_c the values after
+/// each row meet zero weights, see `conv2d`). A run that ends its row then
+/// reads on to the next group boundary when the input allows, so it packs
+/// in whole groups.
 fn gather_panel<K: MicroKernel>(
     x: &[i8],
     pad: i8,
     win: &Window,
     at: &Px,
-    k_len: usize,
+    pitch: usize,
     panel: &mut [u32],
     j: usize,
 ) -> Result<(), Error> {
@@ -130,25 +136,33 @@ fn gather_panel<K: MicroKernel>(
             }
         }
     }
-    let row_len = win.kw as usize * ic;
+    let kw = win.kw as usize;
+    let row_len = kw * ic;
     let (kx0, kx1) = at.rx;
-    if kx0 >= kx1 || k_len != win.kh as usize * row_len {
+    if kx0 >= kx1 || pitch < row_len {
         return Ok(());
     }
+    let spill = pitch > row_len && kx1 == kw;
     for ky in at.ry.0..at.ry.1 {
         let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
         if win.dil_w == 1 {
             // The in-bounds taps of a row are one contiguous input run.
             let ix = pos(at.ox, kx0, win.stride_w, 1, win.pad_left);
+            let k0 = ky * pitch + kx0 * ic;
             let n = (kx1 - kx0) * ic;
-            let src = part(x, (iy * at.iw + ix) * ic, n).ok_or(fault("conv2d input too short"))?;
-            put_run::<K>(src, ky * row_len + kx0 * ic, panel, j);
+            let at_x = (iy * at.iw + ix) * ic;
+            let longer = (k0 + n).next_multiple_of(4) - k0;
+            let src = match spill.then(|| part(x, at_x, longer)).flatten() {
+                Some(src) => src,
+                None => part(x, at_x, n).ok_or(fault("conv2d input too short"))?,
+            };
+            put_run::<K>(src, k0, panel, j);
         } else {
             for kx in kx0..kx1 {
                 let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
                 let src =
                     part(x, (iy * at.iw + ix) * ic, ic).ok_or(fault("conv2d input too short"))?;
-                put_run::<K>(src, ky * row_len + kx * ic, panel, j);
+                put_run::<K>(src, ky * pitch + kx * ic, panel, j);
             }
         }
     }
@@ -250,8 +264,26 @@ pub fn conv2d<K: MicroKernel>(
     let (ih, iw) = (xs.h as usize, xs.w as usize);
     let ow = ys.w as usize;
     let npx = ys.h as usize * ow;
+    // Rows of the window not a multiple of 4 long (first layers with 1–3
+    // input channels, odd channel counts): each tap row is padded to the
+    // next multiple of 4 in a copy of the block's weights (zeros after each
+    // row), so the kernel covers the whole window and runs pack in whole
+    // groups. Without room for the copy, the last values of the window are
+    // summed one by one instead.
+    let row_len = win.kw as usize * ic;
+    let pitch = row_len.next_multiple_of(4);
+    let padded = !pointwise
+        && pitch != row_len
+        && win.kh as usize * pitch <= PANEL_K
+        && OCB.min(oc) * win.kh as usize * pitch <= WBUF;
+    let (pitch, k_pan) = if padded {
+        (pitch, win.kh as usize * pitch)
+    } else {
+        (row_len, k_len)
+    };
+    let mut wbuf = [0i8; WBUF];
     let mut panel_buf = [0u32; PANEL_K / 2 * MAX_NR];
-    let panel_len = k_len.div_ceil(4) * 2 * nr;
+    let panel_len = k_pan.div_ceil(4) * 2 * nr;
     let panel = panel_buf
         .get_mut(..panel_len)
         .ok_or(fault("conv2d panel"))?;
@@ -264,6 +296,20 @@ pub fn conv2d<K: MicroKernel>(
             *r = a.rq(o0 + i);
             *b = a.start(o0 + i);
         }
+        let wb = part(w, o0 * k_len, nb * k_len).ok_or(fault("conv2d weights too short"))?;
+        let wb = if padded {
+            let dst = wbuf
+                .get_mut(..nb * k_pan)
+                .ok_or(fault("conv2d weight copy"))?;
+            for (d, s) in dst.chunks_exact_mut(pitch).zip(wb.chunks_exact(row_len)) {
+                let (v, z) = d.split_at_mut(row_len.min(d.len()));
+                v.copy_from_slice(s.get(..v.len()).unwrap_or(&[]));
+                z.fill(0);
+            }
+            &*dst
+        } else {
+            wb
+        };
         for p0 in (0..npx).step_by(nr) {
             let np = nr.min(npx - p0);
             for j in 0..nr {
@@ -274,45 +320,36 @@ pub fn conv2d<K: MicroKernel>(
                     put_run::<K>(src, 0, panel, j);
                 } else {
                     let (oy, ox) = (p / ow, p % ow);
+                    let (kh, kw) = (win.kh as usize, win.kw as usize);
                     let at = Px {
                         oy,
                         ox,
-                        ry: axis_range(
-                            oy,
-                            win.kh as usize,
-                            win.stride_h,
-                            win.dil_h,
-                            win.pad_top,
-                            ih,
-                        ),
-                        rx: axis_range(
-                            ox,
-                            win.kw as usize,
-                            win.stride_w,
-                            win.dil_w,
-                            win.pad_left,
-                            iw,
-                        ),
+                        ry: axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih),
+                        rx: axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw),
                         iw,
                         c: ic,
                     };
-                    gather_panel::<K>(x, a.zp_in, win, &at, k_len, panel, j)?;
+                    gather_panel::<K>(x, a.zp_in, win, &at, pitch, panel, j)?;
                 }
             }
-            let wb = w
-                .get(o0 * k_len..)
-                .ok_or(fault("conv2d weights too short"))?;
-            channels::<K>(wb, k_len, panel, bias.get(..nb).unwrap_or(&[]), &mut accs)?;
+            channels::<K>(wb, k_pan, panel, bias.get(..nb).unwrap_or(&[]), &mut accs)?;
             for (j, acc) in accs.iter().take(np).enumerate() {
                 let at = (p0 + j) * oc + o0;
                 let y_px = part_mut(y, at, nb).ok_or(fault("conv2d output too short"))?;
-                for ((y, &s), r) in y_px.iter_mut().zip(acc.iter()).zip(&rq) {
-                    *y = a.finish_with(s, r);
-                }
+                finish_row(a, acc, &rq, y_px);
             }
         }
     }
     Ok(())
+}
+
+/// `y[o] = finish(acc[o])` with the precomputed constants `rq[o]`.
+// Not inlined: the loop gets a function (and registers) of its own.
+#[inline(never)]
+fn finish_row(a: &Int8Arith<'_>, acc: &[i32], rq: &[Rq], y: &mut [i8]) {
+    for ((y, &s), r) in y.iter_mut().zip(acc).zip(rq) {
+        *y = a.finish_with(s, r);
+    }
 }
 
 /// `n` elements of `s` from `at`, or `None`.
@@ -327,8 +364,8 @@ type Accs = [[i32; OCB]; MAX_NR];
 /// `accs[j][o] = bias[o] + Σ_k w[o·k_len + k] · x_j[k]` for the
 /// `bias.len()` channels of a block and the `NR` pixels of `panel`: `MR`
 /// channels at a time through `K::run` over the whole groups, the last
-/// `k_len mod 4` values here. A last tile with fewer channels than `MR`
-/// runs one channel at a time (weight rows 0 apart, only row 0 kept).
+/// `k_len mod 4` values here. The last channels, fewer than `MR`, run one
+/// at a time (weight rows 0 apart, only row 0 kept).
 // Not inlined: the loop gets a function (and registers) of its own.
 #[inline(never)]
 fn channels<K: MicroKernel>(
@@ -338,21 +375,52 @@ fn channels<K: MicroKernel>(
     bias: &[i32],
     accs: &mut Accs,
 ) -> Result<(), Error> {
-    let (mr, nr) = (K::MR, K::NR);
+    let mr = K::MR;
     let nb = bias.len();
-    let groups = k_len / 4;
-    let mut o = 0;
-    while o < nb {
-        let (rows, stride) = if o + mr <= nb { (mr, k_len) } else { (1, 0) };
-        let mut buf = [0i32; MAX_MR * MAX_NR];
-        let acc = buf.get_mut(..mr * nr).ok_or(fault("tile accumulators"))?;
-        for (i, row) in acc.chunks_exact_mut(nr).enumerate() {
-            row.fill(bias.get(o + i.min(rows - 1)).copied().unwrap_or(0));
-        }
+    let full = nb / mr * mr;
+    let w = w
+        .get(..nb * k_len)
+        .ok_or(fault("conv2d weights too short"))?;
+    for (t, (wt, b)) in w
+        .chunks_exact(mr * k_len)
+        .zip(bias.chunks_exact(mr))
+        .enumerate()
+    {
+        one_tile::<K>(wt, k_len, k_len, panel, b, t * mr, mr, accs)?;
+    }
+    for o in full..nb {
         let wt = w
             .get(o * k_len..)
             .ok_or(fault("conv2d weights too short"))?;
-        K::run(wt, stride, panel, groups, acc)?;
+        let b = bias.get(o..o + 1).ok_or(fault("conv2d bias"))?;
+        one_tile::<K>(wt, k_len, 0, panel, b, o, 1, accs)?;
+    }
+    Ok(())
+}
+
+/// One tile: output channels `o..o + rows` (weight rows `stride` apart in
+/// `wt`, starting values `bias`) of the panel's pixels into `accs`.
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn one_tile<K: MicroKernel>(
+    wt: &[i8],
+    k_len: usize,
+    stride: usize,
+    panel: &[u32],
+    bias: &[i32],
+    o: usize,
+    rows: usize,
+    accs: &mut Accs,
+) -> Result<(), Error> {
+    let (mr, nr) = (K::MR, K::NR);
+    let groups = k_len / 4;
+    let mut buf = [0i32; MAX_MR * MAX_NR];
+    let acc = buf.get_mut(..mr * nr).ok_or(fault("tile accumulators"))?;
+    for (i, row) in acc.chunks_exact_mut(nr).enumerate() {
+        row.fill(bias.get(i).or(bias.first()).copied().unwrap_or(0));
+    }
+    K::run(wt, stride, panel, groups, acc)?;
+    if k_len % 4 != 0 {
         for k in groups * 4..k_len {
             for (i, row) in acc.chunks_exact_mut(nr).enumerate() {
                 let wv = *wt
@@ -364,14 +432,12 @@ fn channels<K: MicroKernel>(
                 }
             }
         }
-        for (i, row) in acc.chunks_exact(nr).take(rows).enumerate() {
-            for (j, &s) in row.iter().enumerate() {
-                if let Some(d) = accs.get_mut(j).and_then(|a| a.get_mut(o + i)) {
-                    *d = s;
-                }
-            }
+    }
+    for (j, dst) in accs.iter_mut().take(nr).enumerate() {
+        let dst = part_mut(dst, o, rows).ok_or(fault("tile accumulators"))?;
+        for (i, d) in dst.iter_mut().enumerate() {
+            *d = *acc.get(i * nr + j).ok_or(fault("tile accumulators"))?;
         }
-        o += rows;
     }
     Ok(())
 }
