@@ -73,6 +73,15 @@ impl Arith for Int8Arith<'_> {
     fn finish(&self, acc: i32, o: usize) -> i8 {
         self.finish_with(acc, &self.rq(o))
     }
+    type Prep = Rq;
+    #[inline]
+    fn prep(&self, o: usize) -> Rq {
+        self.rq(o)
+    }
+    #[inline]
+    fn finish_prep(&self, acc: i32, p: &Rq) -> i8 {
+        self.finish_with(acc, p)
+    }
 }
 
 impl Int8Arith<'_> {

@@ -56,6 +56,13 @@ pub trait Arith {
     }
     /// Output activation of channel `o` from its finished accumulator.
     fn finish(&self, acc: Self::Acc, o: usize) -> Self::X;
+    /// Per-output-channel constants of `finish` (int8: the requantization
+    /// constants), worked out once per block of channels.
+    type Prep: Copy;
+    /// The constants of output channel `o`.
+    fn prep(&self, o: usize) -> Self::Prep;
+    /// `finish(acc, o)` given `prep(o)`.
+    fn finish_prep(&self, acc: Self::Acc, p: &Self::Prep) -> Self::X;
     /// Whether the fast paths use their multi-accumulator loops (several
     /// output channels per pass, three taps per pass). Cheap arithmetic
     /// (int8) gains from them; where each product costs a call anyway
@@ -518,8 +525,9 @@ pub(crate) fn depthwise_lens<A: Arith>(
 /// accumulators live in a stack array of this many entries.
 const CHUNK: usize = 32;
 
-/// Fast depthwise: per output pixel the in-bounds tap ranges are found once
-/// (`axis_range`); then, for up to `CHUNK` channels at a time, each tap is
+/// Fast depthwise: for up to `CHUNK` channels at a time (their `finish`
+/// constants worked out once), per output pixel the in-bounds tap ranges
+/// are found once (`axis_range`); then each tap is
 /// one pass over contiguous input, weights and accumulators. Every channel
 /// sums its taps in the reference order (padded taps read `pad()`), so the
 /// result is the reference's bit for bit.
@@ -533,18 +541,29 @@ pub fn depthwise_fast<A: Arith>(
     ys: Shape,
 ) -> Result<(), Error> {
     depthwise_lens::<A>(x, xs, w, win, y, ys)?;
-    pixels_fast(xs, win, y, ys, |at, y_px| {
-        for (k, y_chunk) in y_px.chunks_mut(CHUNK).enumerate() {
-            depthwise_chunk(a, x, w, win, at, k * CHUNK, y_chunk)?;
+    let c = xs.c as usize;
+    for c0 in (0..c).step_by(CHUNK) {
+        let n = CHUNK.min(c - c0);
+        let mut buf = [a.prep(0); CHUNK];
+        for (i, p) in buf.iter_mut().take(n).enumerate() {
+            *p = a.prep(c0 + i);
         }
-        Ok(())
-    })
+        let preps = buf.get(..n).ok_or(fault("depthwise chunk"))?;
+        pixels_fast(xs, win, y, ys, |at, y_px| {
+            let y_chunk = y_px
+                .get_mut(c0..c0 + n)
+                .ok_or(fault("depthwise output too short"))?;
+            depthwise_chunk(a, x, w, win, at, c0, y_chunk, preps)
+        })?;
+    }
+    Ok(())
 }
 
-/// Depthwise of channels `c0..c0+y.len()` (at most `CHUNK`) of one output
-/// pixel into `y`. The taps of a kernel row go three at a time through
+/// Depthwise of channels `c0..c0+y.len()` (at most `CHUNK`; `preps` their
+/// `Arith::prep` constants) of one output pixel into `y`. The taps of a kernel row go three at a time through
 /// `mac3` (one load and store of each accumulator per three taps); padded
 /// taps read a slice of `pad()` values.
+#[allow(clippy::too_many_arguments)]
 #[inline(never)]
 fn depthwise_chunk<A: Arith>(
     a: &A,
@@ -554,6 +573,7 @@ fn depthwise_chunk<A: Arith>(
     at: &Px,
     c0: usize,
     y: &mut [A::X],
+    preps: &[A::Prep],
 ) -> Result<(), Error> {
     let n = y.len();
     let mut buf = [a.start(0); CHUNK];
@@ -592,7 +612,9 @@ fn depthwise_chunk<A: Arith>(
             kx += 1;
         }
     }
-    finish_all(a, acc, c0, y);
+    for ((y, &acc), p) in y.iter_mut().zip(acc.iter()).zip(preps) {
+        *y = a.finish_prep(acc, p);
+    }
     Ok(())
 }
 

@@ -118,6 +118,7 @@ fn put_run<K: MicroKernel>(src: &[i8], k0: usize, panel: &mut [u32], j: usize) {
 /// each row meet zero weights, see `conv2d`). A run that ends its row then
 /// reads on to the next group boundary when the input allows, so it packs
 /// in whole groups.
+#[inline(never)]
 fn gather_panel<K: MicroKernel>(
     x: &[i8],
     pad: i8,
