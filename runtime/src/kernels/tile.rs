@@ -421,7 +421,7 @@ fn one_tile<K: MicroKernel>(
         row.fill(bias.get(i).or(bias.first()).copied().unwrap_or(0));
     }
     K::run(wt, stride, panel, groups, acc)?;
-    if k_len % 4 != 0 {
+    if !k_len.is_multiple_of(4) {
         for k in groups * 4..k_len {
             for (i, row) in acc.chunks_exact_mut(nr).enumerate() {
                 let wv = *wt

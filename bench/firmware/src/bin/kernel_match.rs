@@ -73,12 +73,12 @@ fn main() -> ! {
     let mut cases = 0u32;
     let mut mismatches = 0u32;
     while cases < CASES {
-        let pointwise = rng.next() % 5 == 0;
+        let pointwise = rng.next().is_multiple_of(5);
         let r = |rng: &mut Rng, lo, hi| rng.range(lo, hi) as u16;
         let win = if pointwise {
             Window::new((1, 1), (1, 1), (1, 1), [0; 4])
         } else {
-            let dil = if rng.next() % 6 == 0 { 2 } else { 1 };
+            let dil = if rng.next().is_multiple_of(6) { 2 } else { 1 };
             Window::new(
                 (r(&mut rng, 1, 3), r(&mut rng, 1, 3)),
                 (r(&mut rng, 1, 2), r(&mut rng, 1, 2)),
@@ -98,14 +98,14 @@ fn main() -> ! {
         if xs.elems() > MAX_X || n_w > MAX_W || ys.elems() > MAX_Y {
             continue;
         }
-        let extreme = rng.next() % 3 == 0;
+        let extreme = rng.next().is_multiple_of(3);
         for v in x.iter_mut().take(xs.elems()) {
             *v = rng.value(extreme);
         }
         for v in w.iter_mut().take(n_w) {
             *v = rng.value(extreme);
         }
-        let wrap = rng.next() % 7 == 0;
+        let wrap = rng.next().is_multiple_of(7);
         for b in bias.iter_mut() {
             *b = if wrap {
                 if rng.next() & 1 == 0 {
@@ -123,7 +123,11 @@ fn main() -> ! {
         }
         let lo = rng.range(-128, 0);
         let a = Int8Arith {
-            zp_in: if extreme { rng.value(true) } else { rng.next() as i8 },
+            zp_in: if extreme {
+                rng.value(true)
+            } else {
+                rng.next() as i8
+            },
             zp_out: if extreme {
                 rng.value(true) as i32
             } else {
@@ -138,7 +142,7 @@ fn main() -> ! {
         let sel = tile::conv2d::<tile::Selected>(&a, x, xs, w, &win, &mut y_sel[..n_y], ys);
         let port = tile::conv2d::<tile::Portable>(&a, x, xs, w, &win, &mut y_port[..n_y], ys);
         let mut same = sel.is_ok() && port.is_ok() && y_sel[..n_y] == y_port[..n_y];
-        if cases % 4 == 0 {
+        if cases.is_multiple_of(4) {
             let oracle = conv2d_ref(&a, x, xs, w, &win, &mut y_ref[..n_y], ys);
             same &= oracle.is_ok() && y_ref[..n_y] == y_port[..n_y];
         }
