@@ -169,6 +169,50 @@ fn tile_conv2d_equals_reference() {
     }
 }
 
+/// The depthwise driver with the portable 4-channel tap kernel against
+/// depthwise_ref: channel counts 1..=70 (not multiples of 4, more than one
+/// block), windows up to 9×9 (more taps than the tap table holds), padding,
+/// strides, dilation, extreme values and zero points, wrapping sums.
+#[test]
+fn tile_depthwise_equals_reference() {
+    let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0410);
+    for i in 0..300 {
+        let (win, xs, oh, ow) =
+            random_shape(&mut rng, if i % 4 == 0 { 70 } else { 13 }, i % 5 == 0);
+        let ys = Shape::new(oh, ow, xs.c);
+        let n_w = win.kh as usize * win.kw as usize * xs.c as usize;
+        let extreme = i % 3 == 2;
+        let val = |rng: &mut ChaCha8Rng| -> i8 {
+            match (extreme, rng.gen::<bool>()) {
+                (true, true) => 127,
+                (true, false) => -128,
+                _ => rng.gen(),
+            }
+        };
+        let x: Vec<i8> = (0..xs.elems()).map(|_| val(&mut rng)).collect();
+        let w: Vec<i8> = (0..n_w).map(|_| val(&mut rng)).collect();
+        let (mut b, mut q) = (Vec::new(), Vec::new());
+        let mut a = int8_arith(&mut rng, &mut b, &mut q, xs.c as usize);
+        let b2: Vec<i32>;
+        if i % 7 == 4 {
+            b2 = (0..xs.c)
+                .map(|_| {
+                    if rng.gen() {
+                        i32::MAX - 100
+                    } else {
+                        i32::MIN + 100
+                    }
+                })
+                .collect();
+            a.bias = &b2;
+        }
+        let (mut tiled, mut slow) = (vec![0i8; ys.elems()], vec![1i8; ys.elems()]);
+        tile::depthwise::<tile::Portable>(&a, &x, xs, &w, &win, &mut tiled, ys).unwrap();
+        kernels::depthwise_ref(&a, &x, xs, &w, &win, &mut slow, ys).unwrap();
+        assert_eq!(tiled, slow, "int8 {win:?} {xs:?} {ys:?}");
+    }
+}
+
 /// depthwise_fast against depthwise_ref: channel counts 1..=40 (more than
 /// one 32-channel pass), windows up to 9×9 (rows longer than the three-tap
 /// step), int8 and fp16.

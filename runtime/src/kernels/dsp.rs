@@ -1,11 +1,12 @@
-//! The Cortex-M DSP tile kernel (2 output channels × 2 pixels): the whole
-//! inner loop is one `asm!` block of dual 16-bit multiply-accumulates and
+//! The Cortex-M DSP kernels: the conv2d tile (2 output channels × 2
+//! pixels), its panel packing and the 4-channel depthwise tap loop, each
+//! inner loop one `asm!` block of (dual) 16-bit multiply-accumulates and
 //! byte-pair sign-extends. The only module of the crate allowed `unsafe`;
 //! built where `build.rs` sets `midge_dsp`.
 #![allow(unsafe_code)]
 
 use super::fault;
-use super::tile::{pack_portable, MicroKernel};
+use super::tile::{pack_portable, MicroKernel, TapTable};
 use crate::error::Error;
 use core::arch::asm;
 
@@ -58,6 +59,73 @@ impl MicroKernel for Dsp {
                 options(nostack),
             );
         }
+    }
+
+    fn taps4(
+        x: &[i8],
+        w: &[i8],
+        tab: &TapTable,
+        c: usize,
+        acc: &mut [i32; 4],
+    ) -> Result<(), Error> {
+        let taps = tab.entries();
+        if taps.is_empty() {
+            return Ok(());
+        }
+        // The facts the asm block relies on, checked here in safe code:
+        // every tap's 4 input bytes x[xo + c..xo + c + 4] and 4 weight bytes
+        // w[wo + c..wo + c + 4] lie in the slices (the table keeps the
+        // largest offsets of its entries).
+        let x_end = tab.max_x().checked_add(c).and_then(|v| v.checked_add(4));
+        let w_end = tab.max_w().checked_add(c).and_then(|v| v.checked_add(4));
+        if !matches!(x_end, Some(e) if e <= x.len()) || !matches!(w_end, Some(e) if e <= w.len()) {
+            return Err(fault("depthwise taps reach outside the slices"));
+        }
+        let px = x.as_ptr().wrapping_add(c);
+        let pw = w.as_ptr().wrapping_add(c);
+        let tab_ptr = taps.as_ptr();
+        let tab_end = tab_ptr.wrapping_add(taps.len());
+        let [a0, a1, a2, a3] = acc;
+        // SAFETY: the loop runs once per table entry (≥ 1; `tab` walks the
+        // `[u32; 2]` entries, word-aligned as the double-word load needs,
+        // and stops at `tab_end`, one past the last). Each pass reads the 4
+        // bytes at px + xo = x[xo + c..] and at pw + wo = w[wo + c..], in
+        // bounds for every entry by the checks above (xo ≤ max_x, wo ≤
+        // max_w); these byte loads may be unaligned, which plain `ldr`
+        // allows on ARMv7E-M / ARMv8-M Mainline. Registers only, no stack,
+        // no writes to memory; the flags are clobbered (`cmp`).
+        unsafe {
+            asm!(
+                "2:",
+                "ldrd {xo}, {wo}, [{tab}], #8",
+                "ldr {xo}, [{px}, {xo}]",
+                "ldr {wo}, [{pw}, {wo}]",
+                "sxtb16 {t1}, {xo}",
+                "sxtb16 {t2}, {wo}",
+                "smlabb {a0}, {t1}, {t2}, {a0}",
+                "smlatt {a2}, {t1}, {t2}, {a2}",
+                "sxtb16 {t1}, {xo}, ror #8",
+                "sxtb16 {t2}, {wo}, ror #8",
+                "smlabb {a1}, {t1}, {t2}, {a1}",
+                "smlatt {a3}, {t1}, {t2}, {a3}",
+                "cmp {tab}, {end}",
+                "bne 2b",
+                tab = inout(reg) tab_ptr => _,
+                end = in(reg) tab_end,
+                px = in(reg) px,
+                pw = in(reg) pw,
+                a0 = inout(reg) *a0,
+                a1 = inout(reg) *a1,
+                a2 = inout(reg) *a2,
+                a3 = inout(reg) *a3,
+                xo = out(reg) _,
+                wo = out(reg) _,
+                t1 = out(reg) _,
+                t2 = out(reg) _,
+                options(nostack, readonly),
+            );
+        }
+        Ok(())
     }
 
     fn run(

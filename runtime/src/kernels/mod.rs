@@ -523,7 +523,7 @@ pub(crate) fn depthwise_lens<A: Arith>(
 
 /// Channels per pass of the fast depthwise and pooling loops: their
 /// accumulators live in a stack array of this many entries.
-const CHUNK: usize = 32;
+pub(crate) const CHUNK: usize = 32;
 
 /// Fast depthwise: for up to `CHUNK` channels at a time (their `finish`
 /// constants worked out once), per output pixel the in-bounds tap ranges
@@ -565,7 +565,7 @@ pub fn depthwise_fast<A: Arith>(
 /// taps read a slice of `pad()` values.
 #[allow(clippy::too_many_arguments)]
 #[inline(never)]
-fn depthwise_chunk<A: Arith>(
+pub(crate) fn depthwise_chunk<A: Arith>(
     a: &A,
     x: &[A::X],
     w: &[A::W],

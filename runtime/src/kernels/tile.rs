@@ -1,7 +1,8 @@
-//! The int8 conv2d micro-kernel seam: the `MicroKernel` trait (an MR×NR tile
-//! of output channels × output pixels over K), the one im2col gather into a
-//! packed panel, the one generic driver, and the portable kernel (safe Rust,
-//! the oracle of the DSP kernel and the fallback everywhere else).
+//! The int8 micro-kernel seam: the `MicroKernel` trait (an MR×NR tile of
+//! output channels × output pixels over K, and a 4-channel depthwise tap
+//! kernel), the one im2col gather into a packed panel, the generic conv2d
+//! and depthwise drivers, and the portable kernel (safe Rust, the oracle of
+//! the DSP kernel and the fallback everywhere else).
 //!
 //! Panel layout (what the dual 16-bit multiply-accumulate wants): the K
 //! window values of each pixel in groups of four, `x0 x1 x2 x3` stored as
@@ -12,8 +13,8 @@
 //! padded with zeros; padded taps of the window hold the input zero point.
 
 use super::{
-    axis_range, check_lens, conv2d_fast, conv_weight_len, fault, int8::Int8Arith, is_pointwise,
-    part, pos, Arith, Px,
+    axis_range, check_lens, conv2d_fast, conv_weight_len, depthwise_chunk, depthwise_fast,
+    depthwise_lens, fault, int8::Int8Arith, is_pointwise, part, pixels_fast, pos, Arith, Px, CHUNK,
 };
 use crate::error::Error;
 use crate::repr::{Shape, Window};
@@ -34,6 +35,19 @@ pub trait MicroKernel {
     #[inline]
     fn pack(src: &[i8], dst: &mut [u32], stride: usize) {
         pack_portable(src, dst, stride)
+    }
+    /// Depthwise of 4 channels from channel `c` over the taps of `tab`:
+    /// `acc[i] += Σ_(xo, wo) x[xo + c + i] · w[wo + c + i]`, wrapping in i32.
+    /// Fails (never panics) when a read would leave `x` or `w`.
+    #[inline]
+    fn taps4(
+        x: &[i8],
+        w: &[i8],
+        tab: &TapTable,
+        c: usize,
+        acc: &mut [i32; 4],
+    ) -> Result<(), Error> {
+        taps4_portable(x, w, tab, c, acc)
     }
     /// Fails (never panics) when a slice is shorter than the tile needs.
     fn run(
@@ -439,6 +453,181 @@ fn one_tile<K: MicroKernel>(
         for (i, d) in dst.iter_mut().enumerate() {
             *d = *acc.get(i * nr + j).ok_or(fault("tile accumulators"))?;
         }
+    }
+    Ok(())
+}
+
+/// Most taps of a depthwise window the 4-channel tap kernel takes (a 5×5
+/// window); larger windows go to `depthwise_fast`.
+pub const MAX_TAPS: usize = 25;
+
+/// The taps of one output pixel whose window lies wholly inside the input:
+/// per tap the offset of its input pixel (`(iy·iw + ix)·c`) and of its
+/// weights (`t·c`), and the largest of each (so a kernel can check every
+/// read against its slices once).
+pub struct TapTable {
+    entries: [[u32; 2]; MAX_TAPS],
+    n: usize,
+    max_x: usize,
+    max_w: usize,
+}
+
+impl TapTable {
+    /// An empty table.
+    pub fn new() -> TapTable {
+        TapTable {
+            entries: [[0; 2]; MAX_TAPS],
+            n: 0,
+            max_x: 0,
+            max_w: 0,
+        }
+    }
+
+    /// Appends a tap; `false` (and no change) when the table is full or an
+    /// offset does not fit u32.
+    pub fn push(&mut self, x_off: usize, w_off: usize) -> bool {
+        let (Ok(xo), Ok(wo)) = (u32::try_from(x_off), u32::try_from(w_off)) else {
+            return false;
+        };
+        let Some(e) = self.entries.get_mut(self.n) else {
+            return false;
+        };
+        *e = [xo, wo];
+        self.n += 1;
+        self.max_x = self.max_x.max(x_off);
+        self.max_w = self.max_w.max(w_off);
+        true
+    }
+
+    /// The taps pushed so far.
+    pub fn entries(&self) -> &[[u32; 2]] {
+        self.entries.get(..self.n).unwrap_or(&[])
+    }
+
+    /// Largest input offset pushed (0 for an empty table).
+    pub fn max_x(&self) -> usize {
+        self.max_x
+    }
+
+    /// Largest weight offset pushed (0 for an empty table).
+    pub fn max_w(&self) -> usize {
+        self.max_w
+    }
+}
+
+impl Default for TapTable {
+    fn default() -> Self {
+        TapTable::new()
+    }
+}
+
+/// `MicroKernel::taps4` in plain safe Rust.
+pub(crate) fn taps4_portable(
+    x: &[i8],
+    w: &[i8],
+    tab: &TapTable,
+    c: usize,
+    acc: &mut [i32; 4],
+) -> Result<(), Error> {
+    for &[xo, wo] in tab.entries() {
+        let xs = part(x, xo as usize + c, 4).ok_or(fault("depthwise input too short"))?;
+        let ws = part(w, wo as usize + c, 4).ok_or(fault("depthwise weights too short"))?;
+        for ((a, &xv), &wv) in acc.iter_mut().zip(xs).zip(ws) {
+            *a = a.wrapping_add(xv as i32 * wv as i32);
+        }
+    }
+    Ok(())
+}
+
+/// int8 depthwise through the selected kernel's `taps4` where
+/// `build.rs` set `midge_dsp`, `depthwise_fast` elsewhere.
+pub fn depthwise_selected(
+    a: &Int8Arith<'_>,
+    x: &[i8],
+    xs: Shape,
+    w: &[i8],
+    win: &Window,
+    y: &mut [i8],
+    ys: Shape,
+) -> Result<(), Error> {
+    #[cfg(midge_dsp)]
+    {
+        depthwise::<Selected>(a, x, xs, w, win, y, ys)
+    }
+    #[cfg(not(midge_dsp))]
+    {
+        depthwise_fast(a, x, xs, w, win, y, ys)
+    }
+}
+
+/// int8 depthwise (weights `[kh][kw][c]`) with kernel `K`'s `taps4`: for
+/// each block of up to `CHUNK` channels (requantization constants worked out
+/// once), each output pixel whose window lies inside the input gets its tap
+/// table once and then runs 4 channels at a time over all its taps; the
+/// last `c mod 4` channels and pixels at the border take
+/// `depthwise_chunk`. Wrapping i32 sums as `depthwise_ref`, so the result
+/// is its bit for bit.
+pub fn depthwise<K: MicroKernel>(
+    a: &Int8Arith<'_>,
+    x: &[i8],
+    xs: Shape,
+    w: &[i8],
+    win: &Window,
+    y: &mut [i8],
+    ys: Shape,
+) -> Result<(), Error> {
+    depthwise_lens::<Int8Arith<'_>>(x, xs, w, win, y, ys)?;
+    let c = xs.c as usize;
+    let (kh, kw) = (win.kh as usize, win.kw as usize);
+    if kh * kw > MAX_TAPS || c < 4 {
+        return depthwise_fast(a, x, xs, w, win, y, ys);
+    }
+    let mut rq = [Rq::default(); CHUNK];
+    let mut bias = [0i32; CHUNK];
+    for c0 in (0..c).step_by(CHUNK) {
+        let nb = CHUNK.min(c - c0);
+        for (i, (r, b)) in rq.iter_mut().zip(&mut bias).take(nb).enumerate() {
+            *r = a.rq(c0 + i);
+            *b = a.start(c0 + i);
+        }
+        let preps = rq.get(..nb).ok_or(fault("depthwise block"))?;
+        let n4 = nb / 4 * 4;
+        pixels_fast(xs, win, y, ys, |at, y_px| {
+            let y_blk = y_px
+                .get_mut(c0..c0 + nb)
+                .ok_or(fault("depthwise output too short"))?;
+            if !at.full(win) {
+                return depthwise_chunk(a, x, w, win, at, c0, y_blk, preps);
+            }
+            let mut tab = TapTable::new();
+            for ky in 0..kh {
+                let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
+                for kx in 0..kw {
+                    let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
+                    if !tab.push((iy * at.iw + ix) * c, (ky * kw + kx) * c) {
+                        return depthwise_chunk(a, x, w, win, at, c0, y_blk, preps);
+                    }
+                }
+            }
+            let (y4, y_rest) = y_blk.split_at_mut(n4);
+            for (g, ((yg, bg), rg)) in y4
+                .chunks_exact_mut(4)
+                .zip(bias.chunks_exact(4))
+                .zip(preps.chunks_exact(4))
+                .enumerate()
+            {
+                let mut acc = [bg[0], bg[1], bg[2], bg[3]];
+                K::taps4(x, w, &tab, c0 + 4 * g, &mut acc)?;
+                for ((y, &s), r) in yg.iter_mut().zip(&acc).zip(rg) {
+                    *y = a.finish_with(s, r);
+                }
+            }
+            if !y_rest.is_empty() {
+                let rest = preps.get(n4..).unwrap_or(&[]);
+                depthwise_chunk(a, x, w, win, at, c0 + n4, y_rest, rest)?;
+            }
+            Ok(())
+        })?;
     }
     Ok(())
 }

@@ -1,9 +1,9 @@
-//! On-target kernel equality: random int8 conv2d layers (odd channel
-//! counts, windows not a multiple of 4 long, padding, strides, dilation,
-//! pointwise, extreme values and zero points, wrapping sums) through the
-//! micro-kernel driver with this target's tile kernel and with the portable
-//! one, every 4th case also through the reference loop nest; all must agree
-//! byte for byte. Prints `kernel-match dsp=<0|1> cases=<n> mismatches=<m>`
+//! On-target kernel equality: random int8 conv2d and depthwise layers (odd
+//! channel counts, windows not a multiple of 4 long, padding, strides,
+//! dilation, pointwise, extreme values and zero points, wrapping sums)
+//! through the micro-kernel drivers with this target's kernel and with the
+//! portable one, every 4th case also through the reference loop nests; all
+//! must agree byte for byte. Prints `kernel-match dsp=<0|1> cases=<n> mismatches=<m>`
 //! over semihosting and exits with success only when m = 0.
 #![no_std]
 #![no_main]
@@ -12,7 +12,7 @@ use core::fmt::Write;
 use cortex_m_rt::entry;
 use cortex_m_semihosting::{debug, hio};
 use midge_runtime::kernels::int8::Int8Arith;
-use midge_runtime::kernels::{conv2d_ref, tile};
+use midge_runtime::kernels::{conv2d_ref, depthwise_ref, tile};
 use midge_runtime::repr::{Shape, Window};
 use panic_halt as _;
 
@@ -20,7 +20,8 @@ use panic_halt as _;
 const CASES: u32 = 1200;
 const MAX_X: usize = 7 * 7 * 21;
 const MAX_W: usize = 9 * 3 * 3 * 21;
-const MAX_Y: usize = 7 * 7 * 9;
+/// Output bound: 7 + 2 + 2 padded rows and columns with a 1×1 window.
+const MAX_Y: usize = 11 * 11 * 21;
 
 /// xorshift32: a small deterministic generator (common practice).
 struct Rng(u32);
@@ -67,8 +68,8 @@ fn main() -> ! {
     let mut rng = Rng(0x2545_f491);
     let mut x = [0i8; MAX_X];
     let mut w = [0i8; MAX_W];
-    let mut bias = [0i32; 9];
-    let mut rq = [0i32; 18];
+    let mut bias = [0i32; 21];
+    let mut rq = [0i32; 42];
     let (mut y_sel, mut y_port, mut y_ref) = ([0i8; MAX_Y], [0i8; MAX_Y], [0i8; MAX_Y]);
     let mut cases = 0u32;
     let mut mismatches = 0u32;
@@ -150,7 +151,30 @@ fn main() -> ! {
             mismatches += 1;
             let _ = writeln!(
                 out,
-                "mismatch case {cases}: {win:?} in {ih}x{iw}x{ic} out {oh}x{ow}x{oc}"
+                "mismatch case {cases}: conv2d {win:?} in {ih}x{iw}x{ic} out {oh}x{ow}x{oc}"
+            );
+        }
+        // Depthwise of the same input and window (ic channels).
+        let a = Int8Arith {
+            bias: &bias[..ic as usize],
+            requant: &rq[..2 * ic as usize],
+            ..a
+        };
+        let ys = Shape::new(oh, ow, ic);
+        let (n_y, n_w) = (ys.elems(), win.kh as usize * win.kw as usize * ic as usize);
+        let w = &w[..n_w.min(w.len())];
+        let sel = tile::depthwise::<tile::Selected>(&a, x, xs, w, &win, &mut y_sel[..n_y], ys);
+        let port = tile::depthwise::<tile::Portable>(&a, x, xs, w, &win, &mut y_port[..n_y], ys);
+        let mut same = sel.is_ok() && port.is_ok() && y_sel[..n_y] == y_port[..n_y];
+        if cases.is_multiple_of(4) {
+            let oracle = depthwise_ref(&a, x, xs, w, &win, &mut y_ref[..n_y], ys);
+            same &= oracle.is_ok() && y_ref[..n_y] == y_port[..n_y];
+        }
+        if !same {
+            mismatches += 1;
+            let _ = writeln!(
+                out,
+                "mismatch case {cases}: depthwise {win:?} in {ih}x{iw}x{ic}"
             );
         }
         cases += 1;
