@@ -461,8 +461,7 @@ fn one_tile<K: MicroKernel>(
 /// window); larger windows go to `depthwise_fast`.
 pub const MAX_TAPS: usize = 25;
 
-/// The taps of one output pixel whose window lies wholly inside the input:
-/// per tap the offset of its input pixel (`(iy·iw + ix)·c`) and of its
+/// The in-bounds taps of one output pixel: per tap the offset of its input pixel (`(iy·iw + ix)·c`) and of its
 /// weights (`t·c`), and the largest of each (so a kernel can check every
 /// read against its slices once).
 pub struct TapTable {
@@ -562,10 +561,9 @@ pub fn depthwise_selected(
 
 /// int8 depthwise (weights `[kh][kw][c]`) with kernel `K`'s `taps4`: for
 /// each block of up to `CHUNK` channels (requantization constants worked out
-/// once), each output pixel whose window lies inside the input gets its tap
-/// table once and then runs 4 channels at a time over all its taps; the
-/// last `c mod 4` channels and pixels at the border take
-/// `depthwise_chunk`. Wrapping i32 sums as `depthwise_ref`, so the result
+/// once), each output pixel gets its tap table (in-bounds taps) once and
+/// then runs 4 channels at a time over those taps, adding zp·w for the
+/// padded ones; the last `c mod 4` channels take `depthwise_chunk`. Wrapping i32 sums as `depthwise_ref`, so the result
 /// is its bit for bit.
 pub fn depthwise<K: MicroKernel>(
     a: &Int8Arith<'_>,
@@ -596,19 +594,34 @@ pub fn depthwise<K: MicroKernel>(
             let y_blk = y_px
                 .get_mut(c0..c0 + nb)
                 .ok_or(fault("depthwise output too short"))?;
-            if !at.full(win) {
-                return depthwise_chunk(a, x, w, win, at, c0, y_blk, preps);
-            }
+            // In-bounds taps into the table; padded taps read the input
+            // zero point, so they add zp·w, summed here (wrapping sums in
+            // any order give the same result).
             let mut tab = TapTable::new();
+            let mut padded = [0u32; MAX_TAPS];
+            let mut n_pad = 0;
             for ky in 0..kh {
                 let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
+                let row_in = (at.ry.0..at.ry.1).contains(&ky);
                 for kx in 0..kw {
-                    let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
-                    if !tab.push((iy * at.iw + ix) * c, (ky * kw + kx) * c) {
+                    let t = (ky * kw + kx) * c;
+                    let ok = if row_in && (at.rx.0..at.rx.1).contains(&kx) {
+                        let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
+                        tab.push((iy * at.iw + ix) * c, t)
+                    } else if let (Some(p), Ok(t)) = (padded.get_mut(n_pad), u32::try_from(t)) {
+                        *p = t;
+                        n_pad += 1;
+                        true
+                    } else {
+                        false
+                    };
+                    if !ok {
                         return depthwise_chunk(a, x, w, win, at, c0, y_blk, preps);
                     }
                 }
             }
+            let padded = padded.get(..n_pad).unwrap_or(&[]);
+            let zp = a.zp_in as i32;
             let (y4, y_rest) = y_blk.split_at_mut(n4);
             for (g, ((yg, bg), rg)) in y4
                 .chunks_exact_mut(4)
@@ -617,7 +630,15 @@ pub fn depthwise<K: MicroKernel>(
                 .enumerate()
             {
                 let mut acc = [bg[0], bg[1], bg[2], bg[3]];
-                K::taps4(x, w, &tab, c0 + 4 * g, &mut acc)?;
+                let cg = c0 + 4 * g;
+                K::taps4(x, w, &tab, cg, &mut acc)?;
+                for &t in padded {
+                    let ws =
+                        part(w, t as usize + cg, 4).ok_or(fault("depthwise weights too short"))?;
+                    for (s, &wv) in acc.iter_mut().zip(ws) {
+                        *s = s.wrapping_add(zp * wv as i32);
+                    }
+                }
                 for ((y, &s), r) in yg.iter_mut().zip(&acc).zip(rg) {
                     *y = a.finish_with(s, r);
                 }
