@@ -381,6 +381,14 @@ pub fn conv2d_fast<A: Arith>(
     let pad = a.pad();
     let mut buf = [pad; PATCH];
     let mut accs = [a.start(0); ACCS];
+    // With one block of output channels, its `finish` constants once.
+    let mut preps = [a.prep(0); ACCS];
+    let one_block = oc <= ACCS;
+    if one_block {
+        for (o, p) in preps.iter_mut().take(oc).enumerate() {
+            *p = a.prep(o);
+        }
+    }
     pixels_fast(xs, win, y, ys, |at, y_px| {
         for (b, y_blk) in y_px.chunks_mut(ACCS).enumerate() {
             let o0 = b * ACCS;
@@ -395,7 +403,13 @@ pub fn conv2d_fast<A: Arith>(
                 dot_rows::<A>(acc, patch, w_blk, k_len)?;
                 k0 += n;
             }
-            finish_all(a, acc, o0, y_blk);
+            if one_block {
+                for ((y, &s), p) in y_blk.iter_mut().zip(acc.iter()).zip(&preps) {
+                    *y = a.finish_prep(s, p);
+                }
+            } else {
+                finish_all(a, acc, o0, y_blk);
+            }
         }
         Ok(())
     })
