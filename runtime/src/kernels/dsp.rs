@@ -10,6 +10,35 @@ use super::tile::{pack_portable, MicroKernel, TapTable};
 use crate::error::Error;
 use core::arch::asm;
 
+/// One group of the conv2d tile: 4 window values × 2 weight rows × 2
+/// pixels, 8 dual multiply-accumulates (see `Dsp::run`).
+macro_rules! tile_group {
+    () => {
+        concat!(
+            "ldr {t0}, [{w0}], #4\n",
+            "ldr {t1}, [{w1}], #4\n",
+            "ldr {t2}, [{px}], #16\n",
+            "sxtb16 {t3}, {t0}\n",
+            "smlad {a00}, {t2}, {t3}, {a00}\n",
+            "ldr {t2}, [{px}, #-8]\n",
+            "smlad {a01}, {t2}, {t3}, {a01}\n",
+            "sxtb16 {t3}, {t1}\n",
+            "smlad {a11}, {t2}, {t3}, {a11}\n",
+            "ldr {t2}, [{px}, #-16]\n",
+            "smlad {a10}, {t2}, {t3}, {a10}\n",
+            "sxtb16 {t3}, {t1}, ror #8\n",
+            "ldr {t2}, [{px}, #-12]\n",
+            "smlad {a10}, {t2}, {t3}, {a10}\n",
+            "ldr {t2}, [{px}, #-4]\n",
+            "smlad {a11}, {t2}, {t3}, {a11}\n",
+            "sxtb16 {t3}, {t0}, ror #8\n",
+            "smlad {a01}, {t2}, {t3}, {a01}\n",
+            "ldr {t2}, [{px}, #-12]\n",
+            "smlad {a00}, {t2}, {t3}, {a00}\n",
+        )
+    };
+}
+
 /// The DSP tile kernel; equals `tile::Portable` on every input (the dual
 /// multiply-accumulate's sum wraps modulo 2^32, as the portable sums do).
 pub struct Dsp;
@@ -155,40 +184,31 @@ impl MicroKernel for Dsp {
         let w0 = w.as_ptr();
         let w1 = w.as_ptr().wrapping_add(w_stride);
         let px = panel.as_ptr();
-        // SAFETY: the loop runs `groups` ≥ 1 times; each pass reads 4 bytes
-        // at `w0` and at `w1` (post-incremented by 4) and the 4 panel words
-        // at `px` (post-incremented by 16, then read at −16..−4). So it reads
+        // SAFETY: `groups` ≥ 1 groups run (two per loop pass, then the odd
+        // one); each group reads 4 bytes at `w0` and at `w1` (post-
+        // incremented by 4) and the 4 panel words at `px` (post-incremented
+        // by 16, then read at −16..−4). So it reads
         // w[0..4·groups], w[w_stride..w_stride + 4·groups] and
         // panel[0..4·groups], all in bounds by the checks above. The panel
         // is a `u32` slice (word-aligned); weight words may be unaligned,
         // which plain `ldr` allows on ARMv7E-M / ARMv8-M Mainline (no
         // double-word or multiple loads are used). Registers only, no
-        // stack, no writes to memory; the flags are clobbered (`subs`).
+        // stack, no writes to memory; the flags are clobbered (`subs`, `adds`).
         unsafe {
             asm!(
+                // Two groups per pass while two are left, then the odd one.
+                "subs {n}, {n}, #2",
+                "blt 3f",
                 "2:",
-                "ldr {t0}, [{w0}], #4",
-                "ldr {t1}, [{w1}], #4",
-                "ldr {t2}, [{px}], #16",
-                "sxtb16 {t3}, {t0}",
-                "smlad {a00}, {t2}, {t3}, {a00}",
-                "ldr {t2}, [{px}, #-8]",
-                "smlad {a01}, {t2}, {t3}, {a01}",
-                "sxtb16 {t3}, {t1}",
-                "smlad {a11}, {t2}, {t3}, {a11}",
-                "ldr {t2}, [{px}, #-16]",
-                "smlad {a10}, {t2}, {t3}, {a10}",
-                "sxtb16 {t3}, {t1}, ror #8",
-                "ldr {t2}, [{px}, #-12]",
-                "smlad {a10}, {t2}, {t3}, {a10}",
-                "ldr {t2}, [{px}, #-4]",
-                "smlad {a11}, {t2}, {t3}, {a11}",
-                "sxtb16 {t3}, {t0}, ror #8",
-                "smlad {a01}, {t2}, {t3}, {a01}",
-                "ldr {t2}, [{px}, #-12]",
-                "smlad {a00}, {t2}, {t3}, {a00}",
-                "subs {n}, {n}, #1",
-                "bne 2b",
+                tile_group!(),
+                tile_group!(),
+                "subs {n}, {n}, #2",
+                "bge 2b",
+                "3:",
+                "adds {n}, {n}, #2",
+                "beq 4f",
+                tile_group!(),
+                "4:",
                 w0 = inout(reg) w0 => _,
                 w1 = inout(reg) w1 => _,
                 px = inout(reg) px => _,
