@@ -560,10 +560,6 @@ fn run(
                 let (x, y) = (as_i8(xa)?, as_i8_mut(y)?);
                 return kernels::tile::conv2d_selected(&ar, x, xs, w, &h.window, y, ys);
             }
-            if fast && h.op == Op::Dense {
-                let (x, y) = (as_i8(xa)?, as_i8_mut(y)?);
-                return kernels::tile::dense_selected(&ar, x, w, y);
-            }
             if fast && h.op == Op::Depthwise {
                 let (x, y) = (as_i8(xa)?, as_i8_mut(y)?);
                 return kernels::tile::depthwise_selected(&ar, x, xs, w, &h.window, y, ys);

@@ -249,23 +249,6 @@ pub fn conv2d_selected(
     }
 }
 
-/// int8 dense (weights `[out][in]`): on cores with the DSP kernel, the
-/// tile driver with the input as one pixel of `in` channels (a pointwise
-/// conv2d; the second pixel of the tile repeats it); elsewhere
-/// `kernels::dense`.
-pub fn dense_selected(a: &Int8Arith<'_>, x: &[i8], w: &[i8], y: &mut [i8]) -> Result<(), Error> {
-    #[cfg(midge_dsp)]
-    {
-        let n = |v: usize| u16::try_from(v).ok();
-        if let (Some(i), Some(o)) = (n(x.len()), n(y.len())) {
-            let win = Window::new((1, 1), (1, 1), (1, 1), [0; 4]);
-            let (xs, ys) = (Shape::new(1, 1, i), Shape::new(1, 1, o));
-            return conv2d::<Selected>(a, x, xs, w, &win, y, ys);
-        }
-    }
-    super::dense(a, x, w, y)
-}
-
 /// int8 conv2d (weights `[out_c][kh][kw][in_c]`) through tile kernel `K`:
 /// for each block of up to `OCB` output channels (requantization constants
 /// worked out once per block), for each `NR` output pixels, gather and
