@@ -4,10 +4,11 @@
 //!
 //! Each loop nest has a straightforward reference form (`reference`, the
 //! oracles) and a fast form that the tests check against it byte for byte;
-//! int8 conv2d on cores with the DSP extension goes through the micro-kernel
-//! driver (`tile`, kernel in `dsp`) instead. The fast forms here: conv2d and
-//! dense are matrix-vector products over four output channels at a time
-//! (conv2d gathers each pixel's window into a stack patch first), depthwise
+//! int8 conv2d and depthwise on cores with the DSP extension go through the
+//! micro-kernel drivers (`tile`, kernels in `dsp`) instead. The fast forms
+//! here: conv2d and dense are matrix-vector products over four output
+//! channels at a time (conv2d gathers each pixel's window into a stack
+//! patch first), depthwise
 //! and pooling work on up to 32 channels per pass, and the in-bounds taps of
 //! a pixel are found once per axis (`axis_range`) instead of per tap.
 

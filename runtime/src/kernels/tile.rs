@@ -1,16 +1,19 @@
 //! The int8 micro-kernel seam: the `MicroKernel` trait (an MR×NR tile of
 //! output channels × output pixels over K, and a 4-channel depthwise tap
 //! kernel), the one im2col gather into a packed panel, the generic conv2d
-//! and depthwise drivers, and the portable kernel (safe Rust, the oracle of
-//! the DSP kernel and the fallback everywhere else).
+//! and depthwise drivers, and the portable kernel (safe Rust, wrapping i32
+//! sums: the oracle the DSP kernels are tested against on the device).
+//! Targets without DSP keep `conv2d_fast` / `depthwise_fast`.
 //!
 //! Panel layout (what the dual 16-bit multiply-accumulate wants): the K
 //! window values of each pixel in groups of four, `x0 x1 x2 x3` stored as
 //! the two words `(x0, x2)` and `(x1, x3)` of sign-extended 16-bit halves
 //! (low half first); group `g` of pixel `j` is words `(g·NR + j)·2` and
 //! `+ 1`. Natural int8 weights then line up: the byte-pair sign-extend of a
-//! weight word gives `(w0, w2)`, rotated by 8 `(w1, w3)`. The last group is
-//! padded with zeros; padded taps of the window hold the input zero point.
+//! weight word gives `(w0, w2)`, rotated by 8 `(w1, w3)`. Padded taps of the
+//! window hold the input zero point; the kernel runs over whole groups only,
+//! so values of a last partial group are either summed by the driver or
+//! meet zero weights (row-padded weight copy, see `conv2d`).
 
 use super::{
     axis_range, check_lens, conv2d_fast, conv_weight_len, depthwise_chunk, depthwise_fast,
