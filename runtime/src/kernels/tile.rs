@@ -563,7 +563,7 @@ pub fn depthwise_selected(
 }
 
 /// int8 depthwise (weights `[kh][kw][c]`) with kernel `K`'s `taps4`: for
-/// each block of up to `CHUNK` channels (requantization constants worked out
+/// each block of up to `OCB` channels (requantization constants worked out
 /// once), each output pixel gets its tap table (in-bounds taps) once and
 /// then runs 4 channels at a time over those taps, adding zp·w for the
 /// padded ones; the last `c mod 4` channels take `depthwise_chunk`. Wrapping i32 sums as `depthwise_ref`, so the result
@@ -583,10 +583,10 @@ pub fn depthwise<K: MicroKernel>(
     if kh * kw > MAX_TAPS || c < 4 {
         return depthwise_fast(a, x, xs, w, win, y, ys);
     }
-    let mut rq = [Rq::default(); CHUNK];
-    let mut bias = [0i32; CHUNK];
-    for c0 in (0..c).step_by(CHUNK) {
-        let nb = CHUNK.min(c - c0);
+    let mut rq = [Rq::default(); OCB];
+    let mut bias = [0i32; OCB];
+    for c0 in (0..c).step_by(OCB) {
+        let nb = OCB.min(c - c0);
         for (i, (r, b)) in rq.iter_mut().zip(&mut bias).take(nb).enumerate() {
             *r = a.rq(c0 + i);
             *b = a.start(c0 + i);
@@ -619,7 +619,7 @@ pub fn depthwise<K: MicroKernel>(
                         false
                     };
                     if !ok {
-                        return depthwise_chunk(a, x, w, win, at, c0, y_blk, preps);
+                        return chunked(a, x, w, win, at, c0, y_blk, preps);
                     }
                 }
             }
@@ -648,10 +648,28 @@ pub fn depthwise<K: MicroKernel>(
             }
             if !y_rest.is_empty() {
                 let rest = preps.get(n4..).unwrap_or(&[]);
-                depthwise_chunk(a, x, w, win, at, c0 + n4, y_rest, rest)?;
+                chunked(a, x, w, win, at, c0 + n4, y_rest, rest)?;
             }
             Ok(())
         })?;
+    }
+    Ok(())
+}
+
+/// `depthwise_chunk` over `y.len()` channels from `c0`, `CHUNK` at a time.
+#[allow(clippy::too_many_arguments)]
+fn chunked(
+    a: &Int8Arith<'_>,
+    x: &[i8],
+    w: &[i8],
+    win: &Window,
+    at: &Px,
+    c0: usize,
+    y: &mut [i8],
+    preps: &[Rq],
+) -> Result<(), Error> {
+    for (k, (yc, pc)) in y.chunks_mut(CHUNK).zip(preps.chunks(CHUNK)).enumerate() {
+        depthwise_chunk(a, x, w, win, at, c0 + k * CHUNK, yc, pc)?;
     }
     Ok(())
 }
