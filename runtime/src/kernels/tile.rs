@@ -71,6 +71,9 @@ pub const MAX_NR: usize = 2;
 pub const PANEL_K: usize = 576;
 /// Output channels whose requantization constants are worked out at once.
 const OCB: usize = 64;
+/// Channels per block of the depthwise driver (one tap table per pixel and
+/// block; its constants stay below the conv2d driver's stack use).
+const DW_BLOCK: usize = 256;
 /// Bytes of the row-padded weight copy (see `conv2d`).
 const WBUF: usize = 2048;
 
@@ -563,7 +566,7 @@ pub fn depthwise_selected(
 }
 
 /// int8 depthwise (weights `[kh][kw][c]`) with kernel `K`'s `taps4`: for
-/// each block of up to `OCB` channels (requantization constants worked out
+/// each block of up to `DW_BLOCK` channels (requantization constants worked out
 /// once), each output pixel gets its tap table (in-bounds taps) once and
 /// then runs 4 channels at a time over those taps, adding zp·w for the
 /// padded ones; the last `c mod 4` channels take `depthwise_chunk`. Wrapping i32 sums as `depthwise_ref`, so the result
@@ -583,10 +586,10 @@ pub fn depthwise<K: MicroKernel>(
     if kh * kw > MAX_TAPS || c < 4 {
         return depthwise_fast(a, x, xs, w, win, y, ys);
     }
-    let mut rq = [Rq::default(); OCB];
-    let mut bias = [0i32; OCB];
-    for c0 in (0..c).step_by(OCB) {
-        let nb = OCB.min(c - c0);
+    let mut rq = [Rq::default(); DW_BLOCK];
+    let mut bias = [0i32; DW_BLOCK];
+    for c0 in (0..c).step_by(DW_BLOCK) {
+        let nb = DW_BLOCK.min(c - c0);
         for (i, (r, b)) in rq.iter_mut().zip(&mut bias).take(nb).enumerate() {
             *r = a.rq(c0 + i);
             *b = a.start(c0 + i);
