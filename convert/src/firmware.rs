@@ -119,6 +119,9 @@ pub struct FirmwareBuild {
     pub footprint: PathBuf,
     /// `footprint` without the runtime.
     pub baseline: PathBuf,
+    /// Random layer cases through the target's tile kernels, the portable
+    /// ones and the reference (meaningful for `OpSet::ALL`).
+    pub kernel_match: PathBuf,
 }
 
 /// The firmware for `triple` linking the op set `ops` (a model's
@@ -179,7 +182,7 @@ pub fn ops_key(ops: OpSet) -> String {
     format!("{:#07x}", ops.bits())
 }
 
-const ELVES: [&str; 3] = ["harness", "footprint", "baseline"];
+const ELVES: [&str; 4] = ["harness", "footprint", "baseline", "kernel_match"];
 
 /// A fingerprint of every file the firmware build reads from this
 /// repository (runtime and firmware sources, manifests, lock file, linker
@@ -229,6 +232,7 @@ fn build_cached(triple: &str, ops: OpSet) -> Result<FirmwareBuild> {
         harness: cache.join(ELVES[0]),
         footprint: cache.join(ELVES[1]),
         baseline: cache.join(ELVES[2]),
+        kernel_match: cache.join(ELVES[3]),
     };
     let place = cache.display().to_string();
     let io = |e: std::io::Error| Error::new(&place, format!("firmware cache: {e}"));

@@ -654,6 +654,14 @@ fn run<const OPS: u32, const FAST: bool>(
                     .ok_or(fault("int8 layer needs requant parameters"))?,
                 clamp: h.clamp_i8,
             };
+            if FAST && h.op == Op::Conv2d && const { linked::<OPS>(Op::Conv2d, I8) } {
+                let (x, y) = (as_i8(xa)?, as_i8_mut(y)?);
+                return kernels::tile::conv2d_selected(&ar, x, xs, w, &h.window, y, ys);
+            }
+            if FAST && h.op == Op::Depthwise && const { linked::<OPS>(Op::Depthwise, I8) } {
+                let (x, y) = (as_i8(xa)?, as_i8_mut(y)?);
+                return kernels::tile::depthwise_selected(&ar, x, xs, w, &h.window, y, ys);
+            }
             weighted::<OPS, FAST, false, _>(
                 &ar,
                 h.op,

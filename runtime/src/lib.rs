@@ -2,7 +2,8 @@
 //! from flash, in one caller-provided workspace; `no_std`, no allocation, no panics from
 //! model bytes or inputs. A `Model`'s compile-time op set (`opset`) decides what links.
 #![no_std]
-#![forbid(unsafe_code)]
+// `unsafe` only in the fenced Cortex-M DSP kernel (`kernels::dsp`).
+#![deny(unsafe_code)]
 
 #[cfg(feature = "std")]
 extern crate std;

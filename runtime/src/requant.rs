@@ -25,6 +25,56 @@ pub fn requantize(acc: i32, m: i32, rshift: i32) -> i32 {
     saturate_i32(rounded)
 }
 
+/// `requantize(acc, m, rshift)` with its per-channel constants worked out
+/// once (`Rq::new`), so that applying it to each output costs a high-word
+/// multiply, an add and a shift.
+///
+/// With `s` = rshift clamped to 1..=62 and `p = acc·m = hi·2^32 + lo`
+/// (`0 ≤ lo < 2^32`), for `s ≥ 33`:
+/// `⌊(p + 2^(s−1)) / 2^s⌋ = ⌊(hi + 2^(s−33)) / 2^(s−32)⌋`, because the
+/// numerator differs from `(hi + 2^(s−33))·2^32` by `lo < 2^32`, which cannot
+/// carry past a multiple of `2^s`. `|p| ≤ 2^62` gives `|hi| ≤ 2^30`, so the
+/// sum and the result fit i32 and need no saturation; only the high word of
+/// the product is used. Smaller shifts (not chosen by `requant_from_real`
+/// for multipliers below 2^−1) keep the i64 form.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct Rq {
+    m: i32,
+    /// `2^(s−33)` for the high-word form; `s` itself for the i64 form.
+    add: i32,
+    /// `s − 32` for the high-word form; 0 selects the i64 form.
+    sh: u32,
+}
+
+impl Rq {
+    /// The constants of `(m, rshift)`; any `rshift` is clamped as in
+    /// `requantize`.
+    #[inline]
+    pub fn new(m: i32, rshift: i32) -> Rq {
+        let s = rshift.clamp(RSHIFT_MIN, RSHIFT_MAX);
+        if s >= 33 {
+            Rq {
+                m,
+                add: 1 << (s - 33),
+                sh: (s - 32) as u32,
+            }
+        } else {
+            Rq { m, add: s, sh: 0 }
+        }
+    }
+
+    /// `requantize(acc, m, rshift)` bit for bit.
+    #[inline]
+    pub fn apply(&self, acc: i32) -> i32 {
+        if self.sh != 0 {
+            let hi = ((acc as i64 * self.m as i64) >> 32) as i32;
+            (hi + self.add) >> self.sh
+        } else {
+            requantize(acc, self.m, self.add)
+        }
+    }
+}
+
 /// `v` saturated into i32.
 #[inline]
 pub fn saturate_i32(v: i64) -> i32 {

@@ -6,7 +6,7 @@
 use half::f16;
 use midge_runtime::kernels::fp16::{AvgF16, F16Arith, MaxF16};
 use midge_runtime::kernels::int8::{requantize_fast, AvgI8, Int8Arith, MaxI8};
-use midge_runtime::kernels::{self, tap, Arith, Pool};
+use midge_runtime::kernels::{self, tap, tile, Arith, Pool};
 use midge_runtime::repr::{Shape, Window};
 use midge_runtime::requant::requantize;
 use rand::{Rng, SeedableRng};
@@ -102,6 +102,114 @@ fn conv2d_fast_equals_reference() {
         kernels::conv2d_ref(&a, &xf, xs, &wf, &win, &mut slow, ys).unwrap();
         let bits = |v: &[f16]| v.iter().map(|v| v.to_bits()).collect::<Vec<_>>();
         assert_eq!(bits(&fast), bits(&slow), "fp16 {win:?} {xs:?} {ys:?}");
+    }
+}
+
+/// The micro-kernel driver with the portable tile kernel against
+/// conv2d_ref: odd channel counts, windows not a multiple of 4 long, padding,
+/// strides, pointwise layers, windows too long for the panel (handed to
+/// conv2d_fast), extreme values and zero points, and biases near the i32
+/// limits so that the wrapping sums wrap.
+#[test]
+fn tile_conv2d_equals_reference() {
+    let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0409);
+    for i in 0..400 {
+        let (mut win, mut xs, mut oh, mut ow) =
+            random_shape(&mut rng, if i % 4 == 0 { 70 } else { 7 }, false);
+        if i % 5 == 1 {
+            // Pointwise: 1×1, unit stride, no padding.
+            win = window(1, 1, 1, 1, 1, 1, [0; 4]);
+            (oh, ow) = (xs.h, xs.w);
+            xs = Shape::new(oh, ow, rng.gen_range(1..=40));
+        }
+        let oc = if i % 10 == 3 {
+            rng.gen_range(60..=70)
+        } else {
+            rng.gen_range(1..=9)
+        };
+        let ys = Shape::new(oh, ow, oc);
+        let n_w = oc as usize * win.kh as usize * win.kw as usize * xs.c as usize;
+        let extreme = i % 3 == 2;
+        let val = |rng: &mut ChaCha8Rng| -> i8 {
+            if extreme {
+                if rng.gen() {
+                    127
+                } else {
+                    -128
+                }
+            } else {
+                rng.gen()
+            }
+        };
+        let x: Vec<i8> = (0..xs.elems()).map(|_| val(&mut rng)).collect();
+        let w: Vec<i8> = (0..n_w).map(|_| val(&mut rng)).collect();
+        let (mut b, mut q) = (Vec::new(), Vec::new());
+        let mut a = int8_arith(&mut rng, &mut b, &mut q, oc as usize);
+        if extreme {
+            a.zp_in = if rng.gen() { 127 } else { -128 };
+            a.zp_out = if rng.gen() { 127 } else { -128 };
+        }
+        let b2: Vec<i32>;
+        if i % 7 == 4 {
+            b2 = (0..oc)
+                .map(|_| {
+                    if rng.gen() {
+                        i32::MAX - 1000
+                    } else {
+                        i32::MIN + 1000
+                    }
+                })
+                .collect();
+            a.bias = &b2;
+        }
+        let (mut tiled, mut slow) = (vec![0i8; ys.elems()], vec![1i8; ys.elems()]);
+        tile::conv2d::<tile::Portable>(&a, &x, xs, &w, &win, &mut tiled, ys).unwrap();
+        kernels::conv2d_ref(&a, &x, xs, &w, &win, &mut slow, ys).unwrap();
+        assert_eq!(tiled, slow, "int8 {win:?} {xs:?} {ys:?}");
+    }
+}
+
+/// The depthwise driver with the portable 4-channel tap kernel against
+/// depthwise_ref: channel counts 1..=70 (not multiples of 4, more than one
+/// block), windows up to 9×9 (more taps than the tap table holds), padding,
+/// strides, dilation, extreme values and zero points, wrapping sums.
+#[test]
+fn tile_depthwise_equals_reference() {
+    let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0410);
+    for i in 0..300 {
+        let (win, xs, oh, ow) =
+            random_shape(&mut rng, if i % 4 == 0 { 70 } else { 13 }, i % 5 == 0);
+        let ys = Shape::new(oh, ow, xs.c);
+        let n_w = win.kh as usize * win.kw as usize * xs.c as usize;
+        let extreme = i % 3 == 2;
+        let val = |rng: &mut ChaCha8Rng| -> i8 {
+            match (extreme, rng.gen::<bool>()) {
+                (true, true) => 127,
+                (true, false) => -128,
+                _ => rng.gen(),
+            }
+        };
+        let x: Vec<i8> = (0..xs.elems()).map(|_| val(&mut rng)).collect();
+        let w: Vec<i8> = (0..n_w).map(|_| val(&mut rng)).collect();
+        let (mut b, mut q) = (Vec::new(), Vec::new());
+        let mut a = int8_arith(&mut rng, &mut b, &mut q, xs.c as usize);
+        let b2: Vec<i32>;
+        if i % 7 == 4 {
+            b2 = (0..xs.c)
+                .map(|_| {
+                    if rng.gen() {
+                        i32::MAX - 100
+                    } else {
+                        i32::MIN + 100
+                    }
+                })
+                .collect();
+            a.bias = &b2;
+        }
+        let (mut tiled, mut slow) = (vec![0i8; ys.elems()], vec![1i8; ys.elems()]);
+        tile::depthwise::<tile::Portable>(&a, &x, xs, &w, &win, &mut tiled, ys).unwrap();
+        kernels::depthwise_ref(&a, &x, xs, &w, &win, &mut slow, ys).unwrap();
+        assert_eq!(tiled, slow, "int8 {win:?} {xs:?} {ys:?}");
     }
 }
 

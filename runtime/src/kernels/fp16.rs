@@ -64,6 +64,13 @@ impl Arith for F16Arith<'_> {
     fn finish(&self, acc: f32, _o: usize) -> f16 {
         store(acc, self.clamp)
     }
+    type Prep = ();
+    #[inline]
+    fn prep(&self, _o: usize) {}
+    #[inline]
+    fn finish_prep(&self, acc: f32, _p: &()) -> f16 {
+        store(acc, self.clamp)
+    }
 }
 
 /// Max pooling in fp16 (NaN taps are ignored by `f32::max`).

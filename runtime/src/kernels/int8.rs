@@ -4,7 +4,7 @@
 
 use super::{fault, Arith, Pool};
 use crate::error::Error;
-use crate::requant::{requantize, saturate_i32, RSHIFT_MAX, RSHIFT_MIN};
+use crate::requant::{requantize, saturate_i32, Rq};
 
 /// `v` clamped to the inclusive `[lo, hi]` and then to the int8 range (so a
 /// bad clamp can never wrap).
@@ -28,24 +28,11 @@ pub fn div_round_half_away(sum: i32, count: u32) -> i32 {
     saturate_i32(if s < 0 { -q } else { q })
 }
 
-/// `requantize(acc, m, rshift)` bit for bit, cheaper for the usual shifts.
-///
-/// With `s` = rshift clamped to 1..=62 and `p = acc·m = hi·2^32 + lo`
-/// (`0 ≤ lo < 2^32`), for `s ≥ 33`:
-/// `⌊(p + 2^(s−1)) / 2^s⌋ = ⌊(hi + 2^(s−33)) / 2^(s−32)⌋`, because the
-/// numerator differs from `(hi + 2^(s−33))·2^32` by `lo < 2^32`, which cannot
-/// carry past a multiple of `2^s`. `|p| ≤ 2^62` gives `|hi| ≤ 2^30`, so the
-/// sum and the result fit i32 and need no saturation; only the high word of
-/// the product is used. Smaller shifts take the i64 path.
+/// `requantize(acc, m, rshift)` bit for bit, cheaper for the usual shifts
+/// (see `requant::Rq`).
 #[inline]
 pub fn requantize_fast(acc: i32, m: i32, rshift: i32) -> i32 {
-    let s = rshift.clamp(RSHIFT_MIN, RSHIFT_MAX);
-    if s >= 33 {
-        let hi = ((acc as i64 * m as i64) >> 32) as i32;
-        (hi + (1 << (s - 33))) >> (s - 32)
-    } else {
-        requantize(acc, m, s)
-    }
+    Rq::new(m, rshift).apply(acc)
 }
 
 /// conv2d / depthwise / dense accumulator: `acc = bias[o] + Σ w·q_in` in
@@ -84,12 +71,34 @@ impl Arith for Int8Arith<'_> {
     }
     #[inline]
     fn finish(&self, acc: i32, o: usize) -> i8 {
+        self.finish_with(acc, &self.rq(o))
+    }
+    type Prep = Rq;
+    #[inline]
+    fn prep(&self, o: usize) -> Rq {
+        self.rq(o)
+    }
+    #[inline]
+    fn finish_prep(&self, acc: i32, p: &Rq) -> i8 {
+        self.finish_with(acc, p)
+    }
+}
+
+impl Int8Arith<'_> {
+    /// The requantization constants of output channel `o` (a missing
+    /// pair reads as multiplier 0, shift 1).
+    #[inline]
+    pub fn rq(&self, o: usize) -> Rq {
         let m = self.requant.get(2 * o).copied().unwrap_or(0);
         let s = self.requant.get(2 * o + 1).copied().unwrap_or(1);
-        clamp_i8(
-            self.zp_out.saturating_add(requantize_fast(acc, m, s)),
-            self.clamp,
-        )
+        Rq::new(m, s)
+    }
+
+    /// The output activation of a finished accumulator whose channel's
+    /// constants are `rq` (`Arith::finish` with them worked out already).
+    #[inline]
+    pub fn finish_with(&self, acc: i32, rq: &Rq) -> i8 {
+        clamp_i8(self.zp_out.saturating_add(rq.apply(acc)), self.clamp)
     }
 }
 

@@ -2,15 +2,24 @@
 //! over the element arithmetic (`Arith` for conv2d/depthwise/dense, `Pool`
 //! for pooling); `int8` and `fp16` supply the arithmetic and the elementwise ops.
 //!
-//! Each loop nest has a straightforward reference form (`*_ref`, the oracle)
-//! and a fast form that the tests check against it byte for byte: conv2d and
-//! dense are matrix-vector products over four output channels at a time
-//! (conv2d gathers each pixel's window into a stack patch first), depthwise
+//! Each loop nest has a straightforward reference form (`reference`, the
+//! oracles) and a fast form that the tests check against it byte for byte;
+//! int8 conv2d and depthwise on cores with the DSP extension go through the
+//! micro-kernel drivers (`tile`, kernels in `dsp`) instead. The fast forms
+//! here: conv2d and dense are matrix-vector products over four output
+//! channels at a time (conv2d gathers each pixel's window into a stack
+//! patch first), depthwise
 //! and pooling work on up to 32 channels per pass, and the in-bounds taps of
 //! a pixel are found once per axis (`axis_range`) instead of per tap.
 
+#[cfg(midge_dsp)]
+pub mod dsp;
 pub mod fp16;
 pub mod int8;
+pub mod reference;
+pub mod tile;
+
+pub use reference::{conv2d_ref, dense_ref, depthwise_ref, pool_ref};
 
 use crate::error::Error;
 use crate::repr::{Shape, Window};
@@ -48,6 +57,13 @@ pub trait Arith {
     }
     /// Output activation of channel `o` from its finished accumulator.
     fn finish(&self, acc: Self::Acc, o: usize) -> Self::X;
+    /// Per-output-channel constants of `finish` (int8: the requantization
+    /// constants), worked out once per block of channels.
+    type Prep: Copy;
+    /// The constants of output channel `o`.
+    fn prep(&self, o: usize) -> Self::Prep;
+    /// `finish(acc, o)` given `prep(o)`.
+    fn finish_prep(&self, acc: Self::Acc, p: &Self::Prep) -> Self::X;
     /// Whether the fast paths use their multi-accumulator loops (several
     /// output channels per pass, three taps per pass). Cheap arithmetic
     /// (int8) gains from them; where each product costs a call anyway
@@ -134,7 +150,7 @@ fn axis_range_edge(base: i64, k: usize, dil: u16, len: usize) -> (usize, usize) 
 /// tap the true value fits, so the result is exact; for anything else the
 /// caller's checked slicing catches it.
 #[inline]
-fn pos(o: usize, k: usize, stride: u16, dil: u16, pad_lo: u16) -> usize {
+pub(crate) fn pos(o: usize, k: usize, stride: u16, dil: u16, pad_lo: u16) -> usize {
     o.wrapping_mul(stride as usize)
         .wrapping_add(k.wrapping_mul(dil as usize))
         .wrapping_sub(pad_lo as usize)
@@ -147,7 +163,7 @@ pub const fn global_window(h: u16, w: u16) -> Window {
 }
 
 /// Checks the slice lengths every loop nest relies on.
-fn check_lens(x_len: usize, xs: Shape, y_len: usize, ys: Shape) -> Result<(), Error> {
+pub(crate) fn check_lens(x_len: usize, xs: Shape, y_len: usize, ys: Shape) -> Result<(), Error> {
     if x_len != xs.elems() {
         return Err(fault("input length does not match its shape"));
     }
@@ -158,111 +174,11 @@ fn check_lens(x_len: usize, xs: Shape, y_len: usize, ys: Shape) -> Result<(), Er
 }
 
 /// Number of conv2d weights: out_c·kh·kw·in_c (checked).
-fn conv_weight_len(win: &Window, in_c: usize, out_c: usize) -> Option<usize> {
+pub(crate) fn conv_weight_len(win: &Window, in_c: usize, out_c: usize) -> Option<usize> {
     out_c
         .checked_mul(win.kh as usize)?
         .checked_mul(win.kw as usize)?
         .checked_mul(in_c)
-}
-
-/// Reference walk over the output pixels: `f(oy, ox, y_px)` for each pixel
-/// of `c` values of an output `ow` pixels wide, in row-major order.
-fn pixels_ref<X>(
-    y: &mut [X],
-    ow: usize,
-    c: usize,
-    mut f: impl FnMut(usize, usize, &mut [X]) -> Result<(), Error>,
-) -> Result<(), Error> {
-    if c == 0 {
-        return Ok(());
-    }
-    for (p, y_px) in y.chunks_exact_mut(c).enumerate() {
-        f(p / ow, p % ow, y_px)?;
-    }
-    Ok(())
-}
-
-/// Reference walk over the taps of output pixel `(oy, ox)` (the oracle's
-/// `tap`, every tap in `[kh][kw]` order): `(t, input pixel)` with `t =
-/// ky·kw + kx` and the input pixel `iy·iw + ix` it reads, `None` for a
-/// padded tap.
-fn taps_ref(
-    xs: Shape,
-    win: &Window,
-    oy: usize,
-    ox: usize,
-) -> impl Iterator<Item = (usize, Option<usize>)> + '_ {
-    let (ih, iw) = (xs.h as usize, xs.w as usize);
-    let kw = win.kw as usize;
-    (0..win.kh as usize).flat_map(move |ky| {
-        let iy = tap(oy, ky, win.stride_h, win.dil_h, win.pad_top, ih);
-        (0..kw).map(move |kx| {
-            let ix = tap(ox, kx, win.stride_w, win.dil_w, win.pad_left, iw);
-            let px = match (iy, ix) {
-                (Some(iy), Some(ix)) => Some(iy * iw + ix),
-                _ => None,
-            };
-            (ky * kw + kx, px)
-        })
-    })
-}
-
-/// Reference conv2d of one output pixel `(oy, ox)` into `y_px` (out_c
-/// values): every tap of every output channel, padded taps read `a.pad()`.
-#[allow(clippy::too_many_arguments)]
-fn conv2d_pixel_ref<A: Arith>(
-    a: &A,
-    x: &[A::X],
-    xs: Shape,
-    w: &[A::W],
-    win: &Window,
-    oy: usize,
-    ox: usize,
-    y_px: &mut [A::X],
-) -> Result<(), Error> {
-    let ic = xs.c as usize;
-    let taps = win.kh as usize * win.kw as usize;
-    for (o, y) in y_px.iter_mut().enumerate() {
-        let mut acc = a.start(o);
-        for (t, px) in taps_ref(xs, win, oy, ox) {
-            let wo = (o * taps + t) * ic;
-            let w_tap = w
-                .get(wo..wo + ic)
-                .ok_or(fault("conv2d weights too short"))?;
-            match px {
-                Some(px) => {
-                    let xo = px * ic;
-                    let x_tap = x.get(xo..xo + ic).ok_or(fault("conv2d input too short"))?;
-                    acc = A::dot(acc, x_tap, w_tap);
-                }
-                None => {
-                    let p = a.pad();
-                    acc = w_tap.iter().fold(acc, |acc, &w| A::mac(acc, p, w));
-                }
-            }
-        }
-        *y = a.finish(acc, o);
-    }
-    Ok(())
-}
-
-/// Reference conv2d (the oracle): weights `[out_c][kh][kw][in_c]`.
-pub fn conv2d_ref<A: Arith>(
-    a: &A,
-    x: &[A::X],
-    xs: Shape,
-    w: &[A::W],
-    win: &Window,
-    y: &mut [A::X],
-    ys: Shape,
-) -> Result<(), Error> {
-    check_lens(x.len(), xs, y.len(), ys)?;
-    if conv_weight_len(win, xs.c as usize, ys.c as usize) != Some(w.len()) {
-        return Err(fault("conv2d weight length does not match the window"));
-    }
-    pixels_ref(y, ys.w as usize, ys.c as usize, |oy, ox, y_px| {
-        conv2d_pixel_ref(a, x, xs, w, win, oy, ox, y_px)
-    })
 }
 
 /// Whether conv2d with this window is the pointwise case: 1×1 kernel,
@@ -363,7 +279,7 @@ fn matvec<A: Arith>(a: &A, x: &[A::X], w: &[A::W], y: &mut [A::X]) {
 
 /// Sets `acc[j]` to the start value (bias) of output channel `o0 + j`.
 #[inline]
-fn start_all<A: Arith>(a: &A, acc: &mut [A::Acc], o0: usize) {
+pub(crate) fn start_all<A: Arith>(a: &A, acc: &mut [A::Acc], o0: usize) {
     for (j, acc) in acc.iter_mut().enumerate() {
         *acc = a.start(o0 + j);
     }
@@ -371,7 +287,7 @@ fn start_all<A: Arith>(a: &A, acc: &mut [A::Acc], o0: usize) {
 
 /// `y[j] = finish(acc[j])` as output channel `o0 + j`.
 #[inline]
-fn finish_all<A: Arith>(a: &A, acc: &[A::Acc], o0: usize, y: &mut [A::X]) {
+pub(crate) fn finish_all<A: Arith>(a: &A, acc: &[A::Acc], o0: usize, y: &mut [A::X]) {
     for (j, (y, &acc)) in y.iter_mut().zip(acc).enumerate() {
         *y = a.finish(acc, o0 + j);
     }
@@ -379,7 +295,7 @@ fn finish_all<A: Arith>(a: &A, acc: &[A::Acc], o0: usize, y: &mut [A::X]) {
 
 /// `n` elements of `s` from `at`, or `None` (no overflow, no panic).
 #[inline]
-fn part<T>(s: &[T], at: usize, n: usize) -> Option<&[T]> {
+pub(crate) fn part<T>(s: &[T], at: usize, n: usize) -> Option<&[T]> {
     s.get(at..)?.get(..n)
 }
 
@@ -466,6 +382,14 @@ pub fn conv2d_fast<A: Arith>(
     let pad = a.pad();
     let mut buf = [pad; PATCH];
     let mut accs = [a.start(0); ACCS];
+    // With one block of output channels, its `finish` constants once.
+    let mut preps = [a.prep(0); ACCS];
+    let one_block = oc <= ACCS;
+    if one_block {
+        for (o, p) in preps.iter_mut().take(oc).enumerate() {
+            *p = a.prep(o);
+        }
+    }
     pixels_fast(xs, win, y, ys, |at, y_px| {
         for (b, y_blk) in y_px.chunks_mut(ACCS).enumerate() {
             let o0 = b * ACCS;
@@ -480,7 +404,13 @@ pub fn conv2d_fast<A: Arith>(
                 dot_rows::<A>(acc, patch, w_blk, k_len)?;
                 k0 += n;
             }
-            finish_all(a, acc, o0, y_blk);
+            if one_block {
+                for ((y, &s), p) in y_blk.iter_mut().zip(acc.iter()).zip(&preps) {
+                    *y = a.finish_prep(s, p);
+                }
+            } else {
+                finish_all(a, acc, o0, y_blk);
+            }
         }
         Ok(())
     })
@@ -538,7 +468,7 @@ fn dot_rows<A: Arith>(
 
 /// Window values `k0..k0+patch.len()` (flat `[kh][kw][in_c]` index) of the
 /// output pixel `at` into `patch`; padded taps read `pad`.
-fn gather<X: Copy>(
+pub(crate) fn gather<X: Copy>(
     x: &[X],
     pad: X,
     win: &Window,
@@ -591,40 +521,7 @@ fn gather<X: Copy>(
     Ok(())
 }
 
-/// Reference depthwise of one output pixel (channel multiplier 1):
-/// weights `[kh][kw][c]`.
-#[allow(clippy::too_many_arguments)]
-fn depthwise_pixel_ref<A: Arith>(
-    a: &A,
-    x: &[A::X],
-    xs: Shape,
-    w: &[A::W],
-    win: &Window,
-    oy: usize,
-    ox: usize,
-    y_px: &mut [A::X],
-) -> Result<(), Error> {
-    let c = xs.c as usize;
-    for (ch, y) in y_px.iter_mut().enumerate() {
-        let mut acc = a.start(ch);
-        for (t, px) in taps_ref(xs, win, oy, ox) {
-            let wv = *w
-                .get(t * c + ch)
-                .ok_or(fault("depthwise weights too short"))?;
-            let xv = match px {
-                Some(px) => *x
-                    .get(px * c + ch)
-                    .ok_or(fault("depthwise input too short"))?,
-                None => a.pad(),
-            };
-            acc = A::mac(acc, xv, wv);
-        }
-        *y = a.finish(acc, ch);
-    }
-    Ok(())
-}
-
-fn depthwise_lens<A: Arith>(
+pub(crate) fn depthwise_lens<A: Arith>(
     x: &[A::X],
     xs: Shape,
     w: &[A::W],
@@ -639,28 +536,13 @@ fn depthwise_lens<A: Arith>(
     Ok(())
 }
 
-/// Reference depthwise (the oracle).
-pub fn depthwise_ref<A: Arith>(
-    a: &A,
-    x: &[A::X],
-    xs: Shape,
-    w: &[A::W],
-    win: &Window,
-    y: &mut [A::X],
-    ys: Shape,
-) -> Result<(), Error> {
-    depthwise_lens::<A>(x, xs, w, win, y, ys)?;
-    pixels_ref(y, ys.w as usize, ys.c as usize, |oy, ox, y_px| {
-        depthwise_pixel_ref(a, x, xs, w, win, oy, ox, y_px)
-    })
-}
-
 /// Channels per pass of the fast depthwise and pooling loops: their
 /// accumulators live in a stack array of this many entries.
-const CHUNK: usize = 32;
+pub(crate) const CHUNK: usize = 32;
 
-/// Fast depthwise: per output pixel the in-bounds tap ranges are found once
-/// (`axis_range`); then, for up to `CHUNK` channels at a time, each tap is
+/// Fast depthwise: for up to `CHUNK` channels at a time (their `finish`
+/// constants worked out once), per output pixel the in-bounds tap ranges
+/// are found once (`axis_range`); then each tap is
 /// one pass over contiguous input, weights and accumulators. Every channel
 /// sums its taps in the reference order (padded taps read `pad()`), so the
 /// result is the reference's bit for bit.
@@ -674,20 +556,31 @@ pub fn depthwise_fast<A: Arith>(
     ys: Shape,
 ) -> Result<(), Error> {
     depthwise_lens::<A>(x, xs, w, win, y, ys)?;
-    pixels_fast(xs, win, y, ys, |at, y_px| {
-        for (k, y_chunk) in y_px.chunks_mut(CHUNK).enumerate() {
-            depthwise_chunk(a, x, w, win, at, k * CHUNK, y_chunk)?;
+    let c = xs.c as usize;
+    for c0 in (0..c).step_by(CHUNK) {
+        let n = CHUNK.min(c - c0);
+        let mut buf = [a.prep(0); CHUNK];
+        for (i, p) in buf.iter_mut().take(n).enumerate() {
+            *p = a.prep(c0 + i);
         }
-        Ok(())
-    })
+        let preps = buf.get(..n).ok_or(fault("depthwise chunk"))?;
+        pixels_fast(xs, win, y, ys, |at, y_px| {
+            let y_chunk = y_px
+                .get_mut(c0..c0 + n)
+                .ok_or(fault("depthwise output too short"))?;
+            depthwise_chunk(a, x, w, win, at, c0, y_chunk, preps)
+        })?;
+    }
+    Ok(())
 }
 
-/// Depthwise of channels `c0..c0+y.len()` (at most `CHUNK`) of one output
-/// pixel into `y`. The taps of a kernel row go three at a time through
+/// Depthwise of channels `c0..c0+y.len()` (at most `CHUNK`; `preps` their
+/// `Arith::prep` constants) of one output pixel into `y`. The taps of a kernel row go three at a time through
 /// `mac3` (one load and store of each accumulator per three taps); padded
 /// taps read a slice of `pad()` values.
+#[allow(clippy::too_many_arguments)]
 #[inline(never)]
-fn depthwise_chunk<A: Arith>(
+pub(crate) fn depthwise_chunk<A: Arith>(
     a: &A,
     x: &[A::X],
     w: &[A::W],
@@ -695,6 +588,7 @@ fn depthwise_chunk<A: Arith>(
     at: &Px,
     c0: usize,
     y: &mut [A::X],
+    preps: &[A::Prep],
 ) -> Result<(), Error> {
     let n = y.len();
     let mut buf = [a.start(0); CHUNK];
@@ -733,7 +627,9 @@ fn depthwise_chunk<A: Arith>(
             kx += 1;
         }
     }
-    finish_all(a, acc, c0, y);
+    for ((y, &acc), p) in y.iter_mut().zip(acc.iter()).zip(preps) {
+        *y = a.finish_prep(acc, p);
+    }
     Ok(())
 }
 
@@ -763,24 +659,6 @@ pub fn dense<A: Arith>(a: &A, x: &[A::X], w: &[A::W], y: &mut [A::X]) -> Result<
     pointwise(a, x, x.len(), w, y, out)
 }
 
-/// Reference dense (the oracle for `dense`): each output one dot product.
-pub fn dense_ref<A: Arith>(a: &A, x: &[A::X], w: &[A::W], y: &mut [A::X]) -> Result<(), Error> {
-    if Some(w.len()) != y.len().checked_mul(x.len()) {
-        return Err(fault("dense weight length does not match"));
-    }
-    for (o, y) in y.iter_mut().enumerate() {
-        let mut acc = a.start(o);
-        for (i, &xv) in x.iter().enumerate() {
-            let wv = *w
-                .get(o * x.len() + i)
-                .ok_or(fault("dense weights too short"))?;
-            acc = A::mac(acc, xv, wv);
-        }
-        *y = a.finish(acc, o);
-    }
-    Ok(())
-}
-
 /// Max or average pooling over the window: the in-bounds tap ranges are
 /// found once per output pixel (`axis_range`); then, for up to `CHUNK`
 /// channels at a time, each tap is one pass over contiguous input and
@@ -806,13 +684,13 @@ pub fn pool<P: Pool>(
 
 /// One output pixel of a windowed op: its position, in-bounds tap ranges
 /// (`axis_range` of rows and columns), the input width and channel count.
-struct Px {
-    oy: usize,
-    ox: usize,
-    ry: (usize, usize),
-    rx: (usize, usize),
-    iw: usize,
-    c: usize,
+pub(crate) struct Px {
+    pub(crate) oy: usize,
+    pub(crate) ox: usize,
+    pub(crate) ry: (usize, usize),
+    pub(crate) rx: (usize, usize),
+    pub(crate) iw: usize,
+    pub(crate) c: usize,
 }
 
 impl Px {
@@ -827,7 +705,7 @@ impl Px {
 /// each), row by row: the in-bounds tap ranges of a row are found once,
 /// those of a column once per pixel, then `f` computes the pixel.
 #[inline(always)]
-fn pixels_fast<X>(
+pub(crate) fn pixels_fast<X>(
     xs: Shape,
     win: &Window,
     y: &mut [X],
@@ -895,39 +773,8 @@ fn pool_chunk<P: Pool>(
     Ok(())
 }
 
-/// Reference max or average pooling (the oracle for `pool`): every tap of
-/// every channel through `tap`. Padded taps are skipped; average divides by
-/// the number of in-bounds taps.
-pub fn pool_ref<P: Pool>(
-    p: &P,
-    x: &[P::X],
-    xs: Shape,
-    win: &Window,
-    y: &mut [P::X],
-    ys: Shape,
-) -> Result<(), Error> {
-    pool_lens(x.len(), xs, y.len(), ys)?;
-    let c = xs.c as usize;
-    pixels_ref(y, ys.w as usize, c, |oy, ox, y_px| {
-        for (ch, y) in y_px.iter_mut().enumerate() {
-            let mut acc = p.init();
-            let mut count = 0u32;
-            for (_, px) in taps_ref(xs, win, oy, ox) {
-                let Some(px) = px else {
-                    continue;
-                };
-                let xv = *x.get(px * c + ch).ok_or(fault("pooling input too short"))?;
-                acc = p.step(acc, xv);
-                count = count.saturating_add(1);
-            }
-            *y = p.finish(acc, count);
-        }
-        Ok(())
-    })
-}
-
 /// Checks the slice lengths and channel counts of pooling.
-fn pool_lens(x_len: usize, xs: Shape, y_len: usize, ys: Shape) -> Result<(), Error> {
+pub(crate) fn pool_lens(x_len: usize, xs: Shape, y_len: usize, ys: Shape) -> Result<(), Error> {
     check_lens(x_len, xs, y_len, ys)?;
     if xs.c != ys.c {
         return Err(fault("pooling changes the channel count"));
