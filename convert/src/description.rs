@@ -39,6 +39,8 @@ impl Precision {
 /// name = "capcheck-plain"
 /// labels = ["sealed", "missing", "tilted", "torn"]
 /// weights = "weights.safetensors"   # optional; relative to this file
+/// # onnx = "model.onnx"             # instead of weights and [[layer]] lists:
+///                                   # see crate::onnx::describe
 /// calibration = "calib"             # optional folder of images
 /// validation = "val"                # optional, one sub-folder per label
 /// target = "../targets/m4-80.toml"  # optional default target profile
@@ -78,6 +80,10 @@ pub struct Description {
     pub labels: Vec<String>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub weights: Option<PathBuf>,
+    /// An ONNX model instead of `weights` and a layer list (see
+    /// `crate::onnx::describe`): the layers are read from its graph.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub onnx: Option<PathBuf>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub calibration: Option<PathBuf>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -93,6 +99,10 @@ pub struct Description {
     /// The file this description came from (for messages); not a TOML key.
     #[serde(skip)]
     pub origin: PathBuf,
+    /// The weights read from the `onnx` model, in PyTorch layouts under
+    /// the layer names; not a TOML key.
+    #[serde(skip)]
+    pub onnx_weights: Option<crate::weights::TensorMap>,
 }
 
 /// The `[input]` table.
@@ -380,12 +390,17 @@ impl Description {
     /// from (for messages and to resolve relative paths).
     pub fn from_toml_str(text: &str, origin: &Path) -> Result<Description> {
         let place = origin.display().to_string();
-        let mut desc: Description =
-            toml::from_str(text).map_err(|e| toml_error(&place, text, &e))?;
+        let table: toml::Table = toml::from_str(text).map_err(|e| toml_error(&place, text, &e))?;
+        let mut desc: Description = if table.contains_key("onnx") {
+            crate::onnx::describe::from_table(table, origin)?
+        } else {
+            toml::from_str(text).map_err(|e| toml_error(&place, text, &e))?
+        };
         desc.origin = origin.to_path_buf();
         let base = origin.parent().unwrap_or(Path::new(""));
         for p in [
             &mut desc.weights,
+            &mut desc.onnx,
             &mut desc.calibration,
             &mut desc.validation,
             &mut desc.target,

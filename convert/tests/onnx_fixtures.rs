@@ -1,0 +1,215 @@
+//! ONNX import against the standard's reference implementation: each model
+//! of `tests/fixtures/onnx` (built by `make_fixtures.py` with onnx.helper)
+//! is imported, run by midge's float reference on the fixture's pixels and
+//! compared with the output the onnx package's reference evaluator gave
+//! (the source and version are recorded in each fixture's JSON). Also: the
+//! bundled caps model as ONNX gives the same float graph and the same
+//! `.midge` bytes as its TOML description.
+
+use std::fs;
+use std::path::{Path, PathBuf};
+
+use midge_convert::description::Description;
+use midge_convert::float_ref;
+use midge_convert::graph::FloatGraph;
+use midge_convert::quantize::{quantize_description, QuantizeOptions};
+
+fn fixtures() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("../tests/fixtures/onnx")
+}
+
+fn models() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("../models")
+}
+
+const FIXTURES: [&str; 5] = [
+    "conv_relu_pool_gemm",
+    "autopad_clip_attr_gemm",
+    "depthwise_bn_clip_inputs",
+    "residual_norm_flatten_chain",
+    "mul_add_norm_opset21",
+];
+
+struct Fixture {
+    source: String,
+    dims: Vec<usize>,
+    pixels_nchw: Vec<u8>,
+    output: Vec<f32>,
+    softmax: bool,
+}
+
+fn fixture(name: &str) -> Fixture {
+    let text = fs::read_to_string(fixtures().join(format!("{name}.json"))).unwrap();
+    let v: serde_json::Value = serde_json::from_str(&text).unwrap();
+    let nums = |k: &str| -> Vec<f64> {
+        v[k].as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x.as_f64().unwrap())
+            .collect()
+    };
+    Fixture {
+        source: v["source"].as_str().unwrap().to_string(),
+        dims: nums("input_dims").iter().map(|&d| d as usize).collect(),
+        pixels_nchw: nums("pixels_nchw").iter().map(|&p| p as u8).collect(),
+        output: nums("output").iter().map(|&x| x as f32).collect(),
+        softmax: v["softmax"].as_bool().unwrap(),
+    }
+}
+
+/// A description naming `<name>.onnx` with `n` placeholder labels.
+fn description(name: &str, n: usize, extra: &str) -> Description {
+    let labels: Vec<String> = (0..n).map(|i| format!("\"c{i}\"")).collect();
+    let text = format!(
+        "labels = [{}]\nonnx = \"{name}.onnx\"\n{extra}",
+        labels.join(", ")
+    );
+    Description::from_toml_str(&text, &fixtures().join(format!("{name}.toml")))
+        .unwrap_or_else(|e| panic!("{name}: {e}"))
+}
+
+fn nchw_to_hwc(p: &[u8], d: &[usize]) -> Vec<u8> {
+    let (c, h, w) = (d[1], d[2], d[3]);
+    let mut out = vec![0; p.len()];
+    for ch in 0..c {
+        for y in 0..h {
+            for x in 0..w {
+                out[(y * w + x) * c + ch] = p[(ch * h + y) * w + x];
+            }
+        }
+    }
+    out
+}
+
+fn softmax(v: &[f32]) -> Vec<f32> {
+    let m = v.iter().cloned().fold(f32::NEG_INFINITY, f32::max);
+    let e: Vec<f64> = v.iter().map(|&x| ((x - m) as f64).exp()).collect();
+    let s: f64 = e.iter().sum();
+    e.iter().map(|x| (x / s) as f32).collect()
+}
+
+#[test]
+fn fixtures_match_the_reference_evaluator() {
+    for name in FIXTURES {
+        let f = fixture(name);
+        let desc = description(name, f.output.len(), "");
+        let tensors = desc.onnx_weights.as_ref().expect("onnx weights");
+        let unfolded = FloatGraph::build(&desc, tensors).unwrap();
+        let folded = unfolded.fold().unwrap_or_else(|e| panic!("{name}: {e}"));
+        let pixels = nchw_to_hwc(&f.pixels_nchw, &f.dims);
+        for (which, g) in [("unfolded", &unfolded), ("folded", &folded)] {
+            let mut got = float_ref::logits(g, &pixels);
+            if f.softmax {
+                got = softmax(&got);
+            }
+            assert_eq!(got.len(), f.output.len(), "{name}");
+            let scale = f.output.iter().fold(1.0f32, |m, x| m.max(x.abs()));
+            for (i, (a, b)) in got.iter().zip(&f.output).enumerate() {
+                // Expected values: f.source (the onnx package's reference
+                // evaluator). Tolerance 1e-5 of the largest output
+                // magnitude (at least 1): f32 sums in another order.
+                assert!(
+                    (a - b).abs() <= 1e-5 * scale,
+                    "{name} ({which}) output {i}: midge {a}, {} {b}",
+                    f.source
+                );
+            }
+        }
+    }
+}
+
+#[test]
+fn fixtures_quantize_to_int8_and_mostly_agree() {
+    // int8 agreement bound (ours): the quantized logits stay within 10 % of
+    // the float logits' range, calibrated on the fixture's own pixels and
+    // 15 shifted copies of them.
+    for name in FIXTURES {
+        let f = fixture(name);
+        let dir =
+            std::env::temp_dir().join(format!("midge-onnx-int8-{name}-{}", std::process::id()));
+        let _ = fs::remove_dir_all(&dir);
+        fs::create_dir_all(dir.join("calib")).unwrap();
+        let (c, h, w) = (f.dims[1], f.dims[2], f.dims[3]);
+        let hwc = nchw_to_hwc(&f.pixels_nchw, &f.dims);
+        for k in 0..16u8 {
+            let px: Vec<u8> = hwc.iter().map(|&p| p.wrapping_add(k * 16)).collect();
+            let path = dir.join(format!("calib/{k}.png"));
+            match c {
+                1 => image::GrayImage::from_raw(w as u32, h as u32, px)
+                    .unwrap()
+                    .save(&path),
+                3 => image::RgbImage::from_raw(w as u32, h as u32, px)
+                    .unwrap()
+                    .save(&path),
+                _ => {
+                    // Two channels: no PNG layout; skip the int8 check.
+                    break;
+                }
+            }
+            .unwrap();
+        }
+        if c == 2 {
+            continue;
+        }
+        fs::copy(
+            fixtures().join(format!("{name}.onnx")),
+            dir.join(format!("{name}.onnx")),
+        )
+        .unwrap();
+        let labels: Vec<String> = (0..f.output.len()).map(|i| format!("\"c{i}\"")).collect();
+        let toml = format!(
+            "labels = [{}]\nonnx = \"{name}.onnx\"\ncalibration = \"calib\"\n",
+            labels.join(", ")
+        );
+        fs::write(dir.join("model.toml"), toml).unwrap();
+        let conv = quantize_description(&dir.join("model.toml"), &QuantizeOptions::default())
+            .unwrap_or_else(|e| panic!("{name}: {e}"));
+        let model = midge_runtime::Model::parse(&conv.quantized.bytes).unwrap();
+        let mut ws = vec![0u8; model.workspace_len()];
+        let out = model.run(&hwc, &mut ws).unwrap();
+        let q = midge_convert::quantize::dequantize_tensor(&model.output(), out);
+        let fl = float_ref::logits(&conv.graph, &hwc);
+        let range = fl.iter().fold(0.0f32, |m, x| m.max(x.abs())).max(1e-3);
+        for (a, b) in q.iter().zip(&fl) {
+            assert!(
+                (a - b).abs() <= 0.1 * range,
+                "{name}: int8 {a} vs float {b}"
+            );
+        }
+        fs::remove_dir_all(&dir).ok();
+    }
+}
+
+#[test]
+fn caps_onnx_matches_the_toml_route() {
+    let caps = models().join("caps");
+    let toml_desc = Description::load(&caps.join("plain.toml")).unwrap();
+    let text = format!(
+        "name = \"caps-plain\"\nlabels = [\"sealed\", \"missing\", \"tilted\", \"torn\"]\nonnx = \"{}\"\ncalibration = \"{}\"\n[input]\npixel_range = 1.0\n",
+        fixtures().join("caps_plain.onnx").display(),
+        caps.join("calib").display()
+    );
+    let dir = std::env::temp_dir().join(format!("midge-onnx-caps-{}", std::process::id()));
+    fs::create_dir_all(&dir).unwrap();
+    let onnx_path = dir.join("caps.toml");
+    fs::write(&onnx_path, text).unwrap();
+    let onnx_desc = Description::load(&onnx_path).unwrap();
+    assert_eq!(
+        onnx_desc.input, toml_desc.input,
+        "normalisation folded to mean/std"
+    );
+    let t = midge_convert::weights::TensorMap::load(&caps.join("plain.safetensors")).unwrap();
+    let a = FloatGraph::build(&toml_desc, &t).unwrap().fold().unwrap();
+    let b = FloatGraph::build(&onnx_desc, onnx_desc.onnx_weights.as_ref().unwrap())
+        .unwrap()
+        .fold()
+        .unwrap();
+    assert_eq!(a.nodes, b.nodes, "same folded float graph");
+    let qa = quantize_description(&caps.join("plain.toml"), &QuantizeOptions::default()).unwrap();
+    let qb = quantize_description(&onnx_path, &QuantizeOptions::default()).unwrap();
+    assert!(
+        qa.quantized.bytes == qb.quantized.bytes,
+        "byte-identical .midge"
+    );
+    fs::remove_dir_all(&dir).ok();
+}
