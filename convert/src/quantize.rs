@@ -701,6 +701,7 @@ impl Conversion {
     pub fn inputs<'a>(&'a self, description: &'a Path) -> Vec<&'a Path> {
         let mut v = vec![description];
         v.extend(self.desc.weights.as_deref());
+        v.extend(self.desc.onnx.as_deref());
         v.extend(self.desc.target.as_deref());
         v
     }

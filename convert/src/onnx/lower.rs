@@ -62,6 +62,8 @@ pub struct Lowered {
     pub affine: Vec<(f64, f64)>,
     /// Things done that the user should know (a trailing Softmax left to the host).
     pub notes: Vec<String>,
+    /// Values of the graph output (one label each).
+    pub output_elems: usize,
     /// ONNX node name of each layer (the layer name may differ when the node
     /// had none or a repeated one).
     pub node_names: Vec<String>,
@@ -249,8 +251,8 @@ pub fn lower(m: &OnnxModel) -> Result<Lowered> {
         lw.node(k, node)?;
     }
     let last = lw.layers.len().checked_sub(1);
-    match (lw.vals.get(&out_name), last) {
-        (Some(Val::Act { layer, .. }), Some(last)) if *layer == last => {}
+    let output_elems = match (lw.vals.get(&out_name), last) {
+        (Some(Val::Act { layer, dims }), Some(last)) if *layer == last => dims.iter().product(),
         (Some(Val::Act { layer, .. }), Some(last)) => {
             return Err(Error::new(
                 format!("{origin}: output \"{out_name}\""),
@@ -273,7 +275,7 @@ pub fn lower(m: &OnnxModel) -> Result<Lowered> {
                 "is not computed by any layer (a constant or the input itself); expected a network",
             ))
         }
-    }
+    };
     let (h, w) = if dims.len() == 4 {
         (dims[2], dims[3])
     } else {
@@ -290,6 +292,7 @@ pub fn lower(m: &OnnxModel) -> Result<Lowered> {
         input_hwc: (h as u16, w as u16, channels as u16),
         affine: a.into_iter().zip(b).collect(),
         notes: lw.notes,
+        output_elems,
         node_names: lw.node_names,
     })
 }
