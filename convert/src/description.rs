@@ -66,13 +66,14 @@ impl Precision {
 /// padding = "same"    # "valid" | "same" | p | [ph, pw] | [t, l, b, r]
 /// bias = true         # conv2d, depthwise, dense (default true)
 /// eps = 1e-5          # batchnorm
+/// count_include_pad = false  # avgpool: padding allowed, in-bounds average
 /// precision = "fp16"  # per-layer override
 /// ```
 ///
 /// Sizes (input, channels, windows, layer and label counts, name lengths,
 /// weight and activation bytes) are bounded by `crate::limits`, whose
-/// table is README's "Limits". Keys that do not apply to a layer's op are errors. Avgpool takes no
-/// padding (PyTorch's count_include_pad differs from in-bounds averaging).
+/// table is README's "Limits". Keys that do not apply to a layer's op are errors. Avgpool takes
+/// padding only with `count_include_pad = false` (PyTorch's default counts padded taps).
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct Description {
@@ -183,6 +184,11 @@ pub struct LayerDesc {
     /// BatchNorm epsilon; default 1e-5 (PyTorch's default).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub eps: Option<f32>,
+    /// Avgpool: `false` allows padding, averaged over the in-bounds taps
+    /// only (ONNX's default); `true` (PyTorch's default) with padding is
+    /// refused, as the device never counts padded taps.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub count_include_pad: Option<bool>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub precision: Option<Precision>,
 }
@@ -282,7 +288,13 @@ impl LayerKind {
                 "precision",
             ],
             LayerKind::MaxPool => &["kernel", "stride", "dilation", "padding", "precision"],
-            LayerKind::AvgPool => &["kernel", "stride", "padding", "precision"],
+            LayerKind::AvgPool => &[
+                "kernel",
+                "stride",
+                "padding",
+                "count_include_pad",
+                "precision",
+            ],
             LayerKind::GlobalAvgPool | LayerKind::Add => &["precision"],
             LayerKind::Dense => &[
                 "tensor",
@@ -655,7 +667,7 @@ impl Description {
             ))
         })?;
         // Keys that do not apply to this op.
-        let given: [(&str, bool); 10] = [
+        let given: [(&str, bool); 11] = [
             ("tensor", l.tensor.is_some()),
             ("out_channels", l.out_channels.is_some()),
             ("out_features", l.out_features.is_some()),
@@ -665,6 +677,7 @@ impl Description {
             ("padding", l.padding.is_some()),
             ("bias", l.bias.is_some()),
             ("eps", l.eps.is_some()),
+            ("count_include_pad", l.count_include_pad.is_some()),
             ("precision", l.precision.is_some()),
         ];
         for (key, set) in given {
@@ -758,9 +771,9 @@ impl Description {
                     ))
                 })?;
                 let padded = w.pad_top | w.pad_left | w.pad_bottom | w.pad_right != 0;
-                if kind == LayerKind::AvgPool && padded {
+                if kind == LayerKind::AvgPool && padded && l.count_include_pad != Some(false) {
                     return Err(err(
-                        "avgpool with padding is not supported: PyTorch counts padded taps by default (count_include_pad) while midge averages in-bounds taps only; use padding = \"valid\"".into(),
+                        "avgpool with padding is not supported: PyTorch counts padded taps by default (count_include_pad) while midge averages in-bounds taps only; use padding = \"valid\", or count_include_pad = false when the model averages in-bounds taps".into(),
                     ));
                 }
                 if kind == LayerKind::MaxPool {

@@ -1139,21 +1139,18 @@ impl Lowering<'_> {
         if avg && d != (1, 1) {
             return Err(c.fail("AveragePool with dilations; expected dilations 1"));
         }
-        if avg && padded {
-            let what = if c.int("count_include_pad", 0) != 0 {
-                "count_include_pad 1 (padded taps counted)"
-            } else {
-                "padding"
-            };
-            return Err(c.fail(format!(
-                "AveragePool with {what} is not supported: the description's avgpool averages unpadded windows; expected pads 0"
-            )));
+        if avg && padded && c.int("count_include_pad", 0) != 0 {
+            return Err(c.fail(
+                "AveragePool with padding and count_include_pad 1 (padded taps counted) is not supported: the device averages the in-bounds taps; expected count_include_pad 0 or pads 0",
+            ));
         }
         let mut l = refs(&[from]);
         l.kernel = Some(pair(kk.0, kk.1)?);
         l.stride = Some(pair(s.0, s.1)?);
         if !avg {
             l.dilation = Some(pair(d.0, d.1)?);
+        } else if padded {
+            l.count_include_pad = Some(false);
         }
         l.padding = Some(PaddingDesc(Padding::Explicit(g.pads)));
         let kind = if avg {

@@ -169,11 +169,11 @@ pub fn tensor_values(t: &proto::TensorProto, place: &str) -> Result<Const> {
     let dt = t.data_type.unwrap_or(0);
     let raw = t.raw_data.as_deref();
     let dims_text = format!("{dims:?}");
-    let wrong_len = |found: usize| {
+    let wrong_len = |found: String| {
         Error::new(
             place,
             format!(
-                "holds {found} values of {}, but its dims {dims_text} need {n}",
+                "holds {found} of {}, but its dims {dims_text} need {n} values",
                 dtype_name(dt)
             ),
         )
@@ -242,7 +242,7 @@ pub fn tensor_values(t: &proto::TensorProto, place: &str) -> Result<Const> {
                 }
                 Some(b) => {
                     if b.len() != n {
-                        return Err(wrong_len(b.len()));
+                        return Err(wrong_len(format!("{} raw bytes", b.len())));
                     }
                     b.iter()
                         .map(|&x| if signed8 { x as i8 as i64 } else { x as i64 })
@@ -263,7 +263,7 @@ pub fn tensor_values(t: &proto::TensorProto, place: &str) -> Result<Const> {
     };
     let c = Const { dims, values };
     if c.len() != n {
-        return Err(wrong_len(c.len()));
+        return Err(wrong_len(format!("{} values", c.len())));
     }
     if let Values::F(v) = &c.values {
         if let Some((i, x)) = v.iter().enumerate().find(|(_, x)| !x.is_finite()) {
@@ -280,10 +280,10 @@ pub fn tensor_values(t: &proto::TensorProto, place: &str) -> Result<Const> {
 fn le_chunks<const N: usize>(
     b: &[u8],
     n: usize,
-    wrong_len: impl Fn(usize) -> Error,
+    wrong_len: impl Fn(String) -> Error,
 ) -> Result<impl Iterator<Item = [u8; N]> + '_> {
-    if b.len() != n * N {
-        return Err(wrong_len(b.len() / N));
+    if Some(b.len()) != n.checked_mul(N) {
+        return Err(wrong_len(format!("{} raw bytes", b.len())));
     }
     Ok(b.chunks_exact(N)
         .map(|c| c.try_into().expect("chunks_exact gives N bytes")))
