@@ -270,6 +270,9 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
             escape(w)
         );
     }
+    for n in &conv.desc.onnx_notes {
+        eprintln!("note: {}: {}", escape_path(&a.description), escape(n));
+    }
     let int8 = conv
         .graph
         .nodes

@@ -104,6 +104,10 @@ pub struct Description {
     /// the layer names; not a TOML key.
     #[serde(skip)]
     pub onnx_weights: Option<crate::weights::TensorMap>,
+    /// What the ONNX import did that the user should know (a trailing
+    /// Softmax left to the host); not a TOML key.
+    #[serde(skip)]
+    pub onnx_notes: Vec<String>,
 }
 
 /// The `[input]` table.

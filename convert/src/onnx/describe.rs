@@ -233,5 +233,6 @@ pub fn from_table(mut t: Table, origin: &Path) -> Result<Description> {
         .try_into()
         .map_err(|e: toml::de::Error| Error::new(&place, e.message().trim().replace('\n', " ")))?;
     desc.onnx_weights = Some(low.tensors);
+    desc.onnx_notes = low.notes;
     Ok(desc)
 }
