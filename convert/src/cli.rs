@@ -270,7 +270,7 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
             escape(w)
         );
     }
-    for n in &conv.desc.onnx_notes {
+    for n in conv.desc.onnx_import.iter().flat_map(|i| &i.notes) {
         eprintln!("note: {}: {}", escape_path(&a.description), escape(n));
     }
     let int8 = conv

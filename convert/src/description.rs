@@ -100,14 +100,10 @@ pub struct Description {
     /// The file this description came from (for messages); not a TOML key.
     #[serde(skip)]
     pub origin: PathBuf,
-    /// The weights read from the `onnx` model, in PyTorch layouts under
-    /// the layer names; not a TOML key.
+    /// What the `onnx` model gave besides layers: weights, quantization
+    /// parameters of QDQ pairs, notes; not a TOML key.
     #[serde(skip)]
-    pub onnx_weights: Option<crate::weights::TensorMap>,
-    /// What the ONNX import did that the user should know (a trailing
-    /// Softmax left to the host); not a TOML key.
-    #[serde(skip)]
-    pub onnx_notes: Vec<String>,
+    pub onnx_import: Option<crate::onnx::Imported>,
 }
 
 /// The `[input]` table.

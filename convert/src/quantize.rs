@@ -772,7 +772,7 @@ pub fn calibrate_graph(
 /// The whole conversion the CLI's `quantize` runs: load, calibrate,
 /// quantize, plan, emit (nothing is written to disk).
 pub fn quantize_description(path: &Path, opts: &QuantizeOptions) -> Result<Conversion> {
-    let (desc, graph, warnings) = load_with_precision(path, opts.precision)?;
+    let (mut desc, graph, warnings) = load_with_precision(path, opts.precision)?;
     let dir = opts
         .calibration
         .clone()
@@ -783,7 +783,9 @@ pub fn quantize_description(path: &Path, opts: &QuantizeOptions) -> Result<Conve
                 "no calibration images: set `calibration` in the description or pass a folder",
             )
         })?;
-    let (ranges, n) = calibrate_graph(&graph, &desc, &dir, opts.method, opts.progress)?;
+    let (mut ranges, n) = calibrate_graph(&graph, &desc, &dir, opts.method, opts.progress)?;
+    // Ranges an ONNX model's QuantizeLinear/DequantizeLinear pairs give.
+    crate::onnx::qdq::apply(&mut desc, &graph, &mut ranges)?;
     let quantized = quantize_graph(&graph, &ranges)?;
     Ok(Conversion {
         desc,

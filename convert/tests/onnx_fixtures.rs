@@ -93,7 +93,7 @@ fn fixtures_match_the_reference_evaluator() {
     for name in FIXTURES {
         let f = fixture(name);
         let desc = description(name, f.output.len(), "");
-        let tensors = desc.onnx_weights.as_ref().expect("onnx weights");
+        let tensors = &desc.onnx_import.as_ref().expect("onnx import").tensors;
         let unfolded = FloatGraph::build(&desc, tensors).unwrap();
         let folded = unfolded.fold().unwrap_or_else(|e| panic!("{name}: {e}"));
         let pixels = nchw_to_hwc(&f.pixels_nchw, &f.dims);
@@ -200,7 +200,7 @@ fn caps_onnx_matches_the_toml_route() {
     );
     let t = midge_convert::weights::TensorMap::load(&caps.join("plain.safetensors")).unwrap();
     let a = FloatGraph::build(&toml_desc, &t).unwrap().fold().unwrap();
-    let b = FloatGraph::build(&onnx_desc, onnx_desc.onnx_weights.as_ref().unwrap())
+    let b = FloatGraph::build(&onnx_desc, &onnx_desc.onnx_import.as_ref().unwrap().tensors)
         .unwrap()
         .fold()
         .unwrap();
@@ -211,5 +211,96 @@ fn caps_onnx_matches_the_toml_route() {
         qa.quantized.bytes == qb.quantized.bytes,
         "byte-identical .midge"
     );
+    fs::remove_dir_all(&dir).ok();
+}
+
+#[test]
+fn qdq_scales_are_kept_and_the_int8_run_follows_the_qdq_graph() {
+    let name = "qdq_conv_gap_gemm";
+    let text = fs::read_to_string(fixtures().join(format!("{name}.json"))).unwrap();
+    let v: serde_json::Value = serde_json::from_str(&text).unwrap();
+    let f = fixture(name);
+    let floats = |k: &str| -> Vec<f32> {
+        v[k].as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x.as_f64().unwrap() as f32)
+            .collect()
+    };
+    // The float reference runs the dequantized weights; activation pairs
+    // do not change float values (they only fix the int8 parameters).
+    let desc = description(name, 3, "");
+    let g = FloatGraph::build(&desc, &desc.onnx_import.as_ref().unwrap().tensors)
+        .unwrap()
+        .fold()
+        .unwrap();
+    let hwc = nchw_to_hwc(&f.pixels_nchw, &f.dims);
+    let got = float_ref::logits(&g, &hwc);
+    let want = floats("output_without_activation_qdq");
+    for (a, b) in got.iter().zip(&want) {
+        // Source: f.source on the graph without activation pairs; 1e-5 relative.
+        assert!((a - b).abs() <= 1e-5 * b.abs().max(1.0), "float {a} vs {b}");
+    }
+    // int8: calibrated on the fixture's own pixels, except where the pairs
+    // give the parameters.
+    let dir = std::env::temp_dir().join(format!("midge-onnx-qdq-{}", std::process::id()));
+    let _ = fs::remove_dir_all(&dir);
+    fs::create_dir_all(dir.join("calib")).unwrap();
+    image::RgbImage::from_raw(6, 6, hwc.clone())
+        .unwrap()
+        .save(dir.join("calib/0.png"))
+        .unwrap();
+    fs::copy(fixtures().join(format!("{name}.onnx")), dir.join("m.onnx")).unwrap();
+    fs::write(
+        dir.join("m.toml"),
+        "labels = [\"a\", \"b\", \"c\"]\nonnx = \"m.onnx\"\ncalibration = \"calib\"\n",
+    )
+    .unwrap();
+    let conv = quantize_description(&dir.join("m.toml"), &QuantizeOptions::default()).unwrap();
+    let notes = &conv.desc.onnx_import.as_ref().unwrap().notes;
+    for (layer, scale, zp) in [("conv1", 0.05f32, -128)] {
+        let fid = conv
+            .graph
+            .nodes
+            .iter()
+            .position(|n| n.name == layer)
+            .unwrap()
+            + 1;
+        let t = conv.quantized.spec.tensors[conv.quantized.map[fid] as usize];
+        // Source: the fixture's QuantizeLinear scale and zero point (uint8
+        // zero point 0 is int8 −128 at the same scale; common practice).
+        assert_eq!((t.quant.scale, t.quant.zero_point), (scale, zp), "{layer}");
+        assert!(
+            notes
+                .iter()
+                .any(|n| n.contains(&format!("output of \"{layer}\""))
+                    && n.contains("calibration would choose")),
+            "{layer}: {notes:?}"
+        );
+    }
+    assert!(notes.iter().any(|n| n.contains("graph input")), "{notes:?}");
+    // int8 pooling keeps its input's parameters: the pair on "gap" is
+    // reported unused, and the tensor carries conv1's.
+    assert!(
+        notes
+            .iter()
+            .any(|n| n.contains("\"q_gap\" on \"gap\" is not used")),
+        "{notes:?}"
+    );
+    let model = midge_runtime::Model::parse(&conv.quantized.bytes).unwrap();
+    let mut ws = vec![0u8; model.workspace_len()];
+    let out = model.run(&hwc, &mut ws).unwrap();
+    let q = midge_convert::quantize::dequantize_tensor(&model.output(), out);
+    let out_scale = model.output().quant.scale;
+    let want = floats("output");
+    for (a, b) in q.iter().zip(&want) {
+        // Against the QDQ graph's own output (f.source). Bound (ours): two
+        // steps of the output tensor's int8 scale — its rounding plus the
+        // requantization rounding the fake-quantized graph does in float.
+        assert!(
+            (a - b).abs() <= 2.0 * out_scale,
+            "int8 {a} vs QDQ graph {b} (output scale {out_scale})"
+        );
+    }
     fs::remove_dir_all(&dir).ok();
 }

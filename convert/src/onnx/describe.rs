@@ -232,7 +232,10 @@ pub fn from_table(mut t: Table, origin: &Path) -> Result<Description> {
     let mut desc: Description = Value::Table(t)
         .try_into()
         .map_err(|e: toml::de::Error| Error::new(&place, e.message().trim().replace('\n', " ")))?;
-    desc.onnx_weights = Some(low.tensors);
-    desc.onnx_notes = low.notes;
+    desc.onnx_import = Some(super::Imported {
+        tensors: low.tensors,
+        notes: low.notes,
+        qdq: low.qdq,
+    });
     Ok(desc)
 }

@@ -42,7 +42,22 @@ pub const SUPPORTED: &[&str] = &[
     "Concat",
     "ConstantOfShape",
     "Cast",
+    "QuantizeLinear",
+    "DequantizeLinear",
 ];
+
+/// An activation's int8 quantization given by a QuantizeLinear →
+/// DequantizeLinear pair on a layer's output (uint8 pairs shifted to int8:
+/// same scale, zero point − 128).
+#[derive(Clone, Debug, PartialEq)]
+pub struct GivenQuant {
+    /// The layer whose output the pair quantizes.
+    pub layer: String,
+    /// The QuantizeLinear node's name.
+    pub node: String,
+    pub scale: f32,
+    pub zero_point: i32,
+}
 
 /// An ONNX model as a description's pieces.
 #[derive(Clone, Debug, PartialEq)]
@@ -62,6 +77,8 @@ pub struct Lowered {
     pub affine: Vec<(f64, f64)>,
     /// Things done that the user should know (a trailing Softmax left to the host).
     pub notes: Vec<String>,
+    /// Activation quantization from QDQ pairs, in graph order.
+    pub qdq: Vec<GivenQuant>,
     /// Values of the graph output (one label each).
     pub output_elems: usize,
     /// ONNX node name of each layer (the layer name may differ when the node
@@ -84,6 +101,13 @@ enum Val {
         layer: usize,
         dims: Vec<usize>,
     },
+    /// A QuantizeLinear of an activation, waiting for its DequantizeLinear.
+    Quantized {
+        inner: Box<Val>,
+        scale: f32,
+        zero_point: i32,
+        node: String,
+    },
 }
 
 struct Lowering<'a> {
@@ -99,6 +123,9 @@ struct Lowering<'a> {
     affine: Option<(Vec<f64>, Vec<f64>)>,
     notes: Vec<String>,
     output: String,
+    /// Data type of each initializer and Constant output (zero points).
+    dtypes: HashMap<String, i32>,
+    qdq: Vec<GivenQuant>,
 }
 
 /// One node being lowered: its place for messages and attribute access.
@@ -167,9 +194,11 @@ pub fn lower(m: &OnnxModel) -> Result<Lowered> {
         limits::MAX_ONNX_NODES,
     )?;
     let mut vals = HashMap::new();
+    let mut dtypes = HashMap::new();
     let mut total = 0u64;
     for t in &g.initializer {
         let name = t.name.clone().unwrap_or_default();
+        dtypes.insert(name.clone(), t.data_type.unwrap_or(0));
         let c = tensor_values(t, &format!("{origin}: initializer \"{name}\""))?;
         total = total.saturating_add(c.len() as u64 * 4);
         limits::check(
@@ -246,6 +275,8 @@ pub fn lower(m: &OnnxModel) -> Result<Lowered> {
         affine: None,
         notes: Vec::new(),
         output: out_name.clone(),
+        dtypes,
+        qdq: Vec::new(),
     };
     for (k, node) in g.node.iter().enumerate() {
         lw.node(k, node)?;
@@ -292,6 +323,7 @@ pub fn lower(m: &OnnxModel) -> Result<Lowered> {
         input_hwc: (h as u16, w as u16, channels as u16),
         affine: a.into_iter().zip(b).collect(),
         notes: lw.notes,
+        qdq: lw.qdq,
         output_elems,
         node_names: lw.node_names,
     })
@@ -431,6 +463,9 @@ impl Lowering<'_> {
             Val::Const(_) => Err(c.fail(format!(
                 "reads the constant \"{name}\" where an activation is expected"
             ))),
+            Val::Quantized { .. } => Err(c.fail(format!(
+                "reads the quantized tensor \"{name}\"; expected a DequantizeLinear right after each QuantizeLinear"
+            ))),
         }
     }
 
@@ -523,6 +558,8 @@ impl Lowering<'_> {
             "Concat" => self.op_concat(&c),
             "ConstantOfShape" => self.op_constant_of_shape(&c),
             "Cast" => self.op_cast(&c),
+            "QuantizeLinear" => self.op_quantize(&c),
+            "DequantizeLinear" => self.op_dequantize(&c),
             "Conv" => self.op_conv(&c, k),
             "ConvTranspose" => Err(c.fail(
                 "transposed convolution is not supported: the runtime has no such kernel; expected Conv",
@@ -597,6 +634,166 @@ impl Lowering<'_> {
         self.push(c, k, LayerKind::Flatten, refs(&[from]), vec![1, n])
     }
 
+    /// Scale and zero point inputs of a Q/DQ node: a per-tensor scalar pair
+    /// (`per_axis` false) or per-axis vectors; the zero point's type says
+    /// whether the integers are int8 (or int32, for biases) or uint8.
+    fn qparams(&self, c: &Ctx, per_axis: bool) -> Result<(Vec<f32>, Vec<i64>, bool)> {
+        let s = self.constant(c, c.need_input(1)?)?.floats();
+        let (zp, unsigned) = match c.input(2) {
+            Some(z) => {
+                let k = self.constant(c, z)?;
+                let t = self.dtypes.get(z).copied().unwrap_or(0);
+                let u = t == proto::tensor_proto::DataType::Uint8 as i32;
+                (
+                    k.ints()
+                        .map(<[i64]>::to_vec)
+                        .unwrap_or_else(|| vec![0; k.len()]),
+                    u,
+                )
+            }
+            // onnx.proto operators: no zero point means uint8, zero point 0.
+            None => (vec![0; s.len()], true),
+        };
+        if zp.len() != s.len() || (!per_axis && s.len() != 1) {
+            return Err(c.fail(format!(
+                "scale has {} values and zero point {}; expected one of each (per-tensor quantization of an activation)",
+                s.len(),
+                zp.len()
+            )));
+        }
+        if let Some(x) = s.iter().find(|x| !(x.is_finite() && **x > 0.0)) {
+            return Err(c.fail(format!("scale {x}; expected a positive finite number")));
+        }
+        Ok((s, zp, unsigned))
+    }
+
+    /// For a per-axis scale of `n` values along the node's `axis` of `k`:
+    /// element index → scale index.
+    fn axis_split(&self, c: &Ctx, k: &Const, n: usize) -> Result<Box<dyn Fn(usize) -> usize>> {
+        if n == 1 {
+            return Ok(Box::new(|_| 0));
+        }
+        let r = k.dims.len() as i64;
+        let axis = c.int("axis", 1);
+        let axis = if axis < 0 { axis + r } else { axis };
+        if !(0..r).contains(&axis) || k.dims[axis as usize] != n {
+            return Err(c.fail(format!(
+                "{n} scales along axis {axis} of a tensor of dims {:?}",
+                k.dims
+            )));
+        }
+        let inner: usize = k.dims[axis as usize + 1..].iter().product();
+        Ok(Box::new(move |i| (i / inner) % n))
+    }
+
+    fn op_quantize(&mut self, c: &Ctx) -> Result<()> {
+        use proto::tensor_proto::DataType as D;
+        let src = c.need_input(0)?;
+        match self.val(c, src)?.clone() {
+            Val::Const(k) => {
+                // Fake-quantized weights: q = saturate(round_half_even(x / s) + zp).
+                let (s, zp, unsigned) = self.qparams(c, true)?;
+                let (lo, hi) = if unsigned { (0, 255) } else { (-128, 127) };
+                let per = self.axis_split(c, &k, s.len())?;
+                let v: Vec<i64> = k
+                    .floats()
+                    .iter()
+                    .enumerate()
+                    .map(|(i, &x)| {
+                        let a = per(i);
+                        ((x / s[a]).round_ties_even() as i64 + zp[a]).clamp(lo, hi)
+                    })
+                    .collect();
+                let t = if unsigned { D::Uint8 } else { D::Int8 };
+                self.dtypes.insert(c.out()?.to_string(), t as i32);
+                self.set_const(
+                    c,
+                    Const {
+                        dims: k.dims,
+                        values: Values::I(v),
+                    },
+                )
+            }
+            v @ (Val::Act { .. } | Val::Input { .. }) => {
+                let (s, zp, unsigned) = self.qparams(c, false)?;
+                let zero_point = if unsigned { zp[0] - 128 } else { zp[0] };
+                if !(-128..=127).contains(&zero_point) {
+                    return Err(c.fail(format!("zero point {} is outside the 8-bit range", zp[0])));
+                }
+                self.vals.insert(
+                    c.out()?.to_string(),
+                    Val::Quantized {
+                        inner: Box::new(v),
+                        scale: s[0],
+                        zero_point: zero_point as i32,
+                        node: c.node.name.clone().unwrap_or_default(),
+                    },
+                );
+                Ok(())
+            }
+            Val::Quantized { .. } => Err(c.fail("quantizes an already quantized tensor")),
+        }
+    }
+
+    fn op_dequantize(&mut self, c: &Ctx) -> Result<()> {
+        let src = c.need_input(0)?;
+        match self.val(c, src)?.clone() {
+            Val::Const(k) => {
+                let (s, zp, _) = self.qparams(c, true)?;
+                let per = self.axis_split(c, &k, s.len())?;
+                let q = k
+                    .ints()
+                    .ok_or_else(|| c.fail("dequantizes a float constant; expected integers"))?;
+                let v: Vec<f32> = q
+                    .iter()
+                    .enumerate()
+                    .map(|(i, &x)| {
+                        let a = per(i);
+                        ((x - zp[a]) as f64 * s[a] as f64) as f32
+                    })
+                    .collect();
+                self.set_const(
+                    c,
+                    Const {
+                        dims: k.dims,
+                        values: Values::F(v),
+                    },
+                )
+            }
+            Val::Quantized {
+                inner,
+                scale,
+                zero_point,
+                node,
+            } => {
+                let (s, zp, unsigned) = self.qparams(c, false)?;
+                let z = if unsigned { zp[0] - 128 } else { zp[0] };
+                if s[0] != scale || z != zero_point as i64 {
+                    return Err(c.fail(format!(
+                        "scale {} and zero point {} differ from its QuantizeLinear \"{node}\" ({scale}, {zero_point} as int8); expected a matching pair",
+                        s[0], zp[0]
+                    )));
+                }
+                match &*inner {
+                    Val::Act { layer, .. } => self.qdq.push(GivenQuant {
+                        layer: self.layer_name(*layer).to_string(),
+                        node,
+                        scale,
+                        zero_point,
+                    }),
+                    _ => self.notes.push(format!(
+                        "the quantization of the graph input by \"{node}\" is not used: the device's first layer quantizes the pixels from the normalisation"
+                    )),
+                }
+                self.vals.insert(c.out()?.to_string(), *inner);
+                Ok(())
+            }
+            _ => Err(c.fail(format!(
+                "dequantizes \"{src}\", which is neither an integer constant nor a QuantizeLinear output"
+            ))),
+        }
+    }
+
     fn op_constant(&mut self, c: &Ctx) -> Result<()> {
         let a = c
             .node
@@ -604,10 +801,12 @@ impl Lowering<'_> {
             .first()
             .ok_or_else(|| c.fail("has no value attribute"))?;
         let k = match a.name.as_deref().unwrap_or("") {
-            "value" => tensor_values(
-                a.t.as_ref().ok_or_else(|| c.fail("value holds no tensor"))?,
-                &c.place,
-            )?,
+            "value" => {
+                let t = a.t.as_ref().ok_or_else(|| c.fail("value holds no tensor"))?;
+                self.dtypes
+                    .insert(c.out()?.to_string(), t.data_type.unwrap_or(0));
+                tensor_values(t, &c.place)?
+            }
             "value_float" => Const {
                 dims: vec![],
                 values: Values::F(vec![a.f.unwrap_or(0.0)]),
@@ -634,9 +833,14 @@ impl Lowering<'_> {
     }
 
     fn dims_of(&self, c: &Ctx, name: &str) -> Result<Vec<usize>> {
-        Ok(match self.val(c, name)? {
+        let mut v = self.val(c, name)?;
+        while let Val::Quantized { inner, .. } = v {
+            v = inner;
+        }
+        Ok(match v {
             Val::Const(k) => k.dims.clone(),
             Val::Input { dims, .. } | Val::Act { dims, .. } => dims.clone(),
+            Val::Quantized { .. } => unreachable!("unwrapped above"),
         })
     }
 

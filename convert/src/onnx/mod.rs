@@ -5,6 +5,7 @@
 
 pub mod describe;
 pub mod lower;
+pub mod qdq;
 
 use std::path::Path;
 
@@ -18,7 +19,19 @@ pub mod proto {
     include!("onnx_proto.rs");
 }
 
-pub use lower::{lower, Lowered};
+pub use lower::{lower, GivenQuant, Lowered};
+
+/// What a description's ONNX model gives besides its layers.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Imported {
+    /// Weights in PyTorch layouts under the layer names.
+    pub tensors: crate::weights::TensorMap,
+    /// What the import did that the user should know.
+    pub notes: Vec<String>,
+    /// Activation quantization carried by QuantizeLinear/DequantizeLinear
+    /// pairs (quantization-aware training), used instead of calibration.
+    pub qdq: Vec<GivenQuant>,
+}
 
 /// Opsets of the default domain midge reads (ai.onnx).
 pub const MIN_OPSET: i64 = 9;
