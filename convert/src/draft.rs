@@ -249,15 +249,13 @@ pub fn from_safetensors(weights: &Path, dest: &Path, a: &DraftArgs) -> Result<Dr
     let mut cur_c: Option<usize> = None;
     let mut spatial = true;
     let mut outputs = 1;
-    let mut k = 0;
-    for p in order {
+    for (k, p) in order.into_iter().enumerate() {
         let g = &groups[p];
         let name = if p.is_empty() {
             format!("layer{k}")
         } else {
             p.replace('.', "_")
         };
-        k += 1;
         let tensor_line = format!("tensor = {}", quote(p));
         let has_bias = g.contains_key("bias");
         match g.get("weight").map(Vec::as_slice) {

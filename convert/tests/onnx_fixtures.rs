@@ -258,7 +258,8 @@ fn qdq_scales_are_kept_and_the_int8_run_follows_the_qdq_graph() {
     .unwrap();
     let conv = quantize_description(&dir.join("m.toml"), &QuantizeOptions::default()).unwrap();
     let notes = &conv.desc.onnx_import.as_ref().unwrap().notes;
-    for (layer, scale, zp) in [("conv1", 0.05f32, -128)] {
+    {
+        let (layer, scale, zp) = ("conv1", 0.05f32, -128);
         let fid = conv
             .graph
             .nodes

@@ -1309,7 +1309,7 @@ impl Lowering<'_> {
         let hi = hi.filter(|&h| h < f32::MAX);
         let kind = match (lo, hi) {
             (Some(l), Some(h)) if l == 0.0 && h == 6.0 => LayerKind::Relu6,
-            (Some(l), None) if l == 0.0 => LayerKind::Relu,
+            (Some(0.0), None) => LayerKind::Relu,
             _ => {
                 return Err(c.fail(format!(
                     "Clip to [{}, {}]; expected [0, 6] (ReLU6) or [0, no maximum] (ReLU)",
@@ -1390,7 +1390,7 @@ impl Lowering<'_> {
         }
         let known: usize = out.iter().flatten().product();
         let holes = out.iter().filter(|o| o.is_none()).count();
-        let fill = if known == 0 { 0 } else { total / known };
+        let fill = total.checked_div(known).unwrap_or(0);
         if holes > 1 || (holes == 0 && known != total) || (holes == 1 && fill * known != total) {
             return Err(c.fail(format!(
                 "shape {target:?} does not fit a tensor of dims {dims:?}"

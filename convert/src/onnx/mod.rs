@@ -301,3 +301,68 @@ fn le_chunks<const N: usize>(
     Ok(b.chunks_exact(N)
         .map(|c| c.try_into().expect("chunks_exact gives N bytes")))
 }
+
+#[cfg(test)]
+mod tests {
+    use super::proto::tensor_proto::DataType;
+    use super::proto::TensorProto;
+    use super::*;
+
+    fn t(dt: DataType, dims: &[i64]) -> TensorProto {
+        TensorProto {
+            name: Some("w".into()),
+            dims: dims.to_vec(),
+            data_type: Some(dt as i32),
+            ..Default::default()
+        }
+    }
+
+    #[test]
+    fn half_and_bfloat16_from_raw_and_typed_fields() {
+        // IEEE 754 binary16 1.5 = 0x3E00, −2 = 0xC000; bfloat16 is the top
+        // half of binary32 (1.5f32 = 0x3FC0_0000): common practice.
+        let mut a = t(DataType::Float16, &[2]);
+        a.raw_data = Some(vec![0x00, 0x3E, 0x00, 0xC0]);
+        assert_eq!(tensor_values(&a, "a").unwrap().floats(), [1.5, -2.0]);
+        let mut b = t(DataType::Bfloat16, &[1]);
+        b.int32_data = vec![0x3FC0];
+        assert_eq!(tensor_values(&b, "b").unwrap().floats(), [1.5]);
+        let mut c = t(DataType::Float16, &[1]);
+        c.int32_data = vec![0xC000];
+        assert_eq!(tensor_values(&c, "c").unwrap().floats(), [-2.0]);
+        let mut d = t(DataType::Int64, &[2]);
+        d.raw_data = Some([-1i64, 7].iter().flat_map(|x| x.to_le_bytes()).collect());
+        assert_eq!(
+            tensor_values(&d, "d").unwrap().ints(),
+            Some(&[-1i64, 7][..])
+        );
+    }
+
+    #[test]
+    fn bad_tensors_are_refused_by_name() {
+        let mut e = t(DataType::Float, &[1]);
+        e.data_location = Some(proto::tensor_proto::DataLocation::External as i32);
+        let err = tensor_values(&e, "m.onnx: initializer \"w\"").unwrap_err();
+        assert!(err.to_string().contains("external data file"), "{err}");
+        let mut n = t(DataType::Float, &[2]);
+        n.float_data = vec![1.0, f32::NAN];
+        let err = tensor_values(&n, "w").unwrap_err();
+        assert!(err.problem.contains("flat index 1 is not finite"), "{err}");
+        let mut s = t(DataType::String, &[1]);
+        s.string_data = vec![b"x".to_vec()];
+        assert!(tensor_values(&s, "w")
+            .unwrap_err()
+            .problem
+            .contains("STRING"));
+        let mut huge = t(DataType::Float, &[1 << 20, 1 << 20]);
+        huge.float_data = vec![0.0];
+        let err = tensor_values(&huge, "w").unwrap_err();
+        assert!(err.to_string().contains("limit"), "{err}");
+        let mut neg = t(DataType::Float, &[-1]);
+        neg.float_data = vec![0.0];
+        assert!(tensor_values(&neg, "w")
+            .unwrap_err()
+            .problem
+            .contains("negative"));
+    }
+}
