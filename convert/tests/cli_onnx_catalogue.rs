@@ -665,3 +665,51 @@ fn drafts_of_every_fixture_convert_without_edits() {
     }
     fs::remove_dir_all(&dir).ok();
 }
+
+#[test]
+fn assess_works_on_an_onnx_description() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("..");
+    let caps = root.join("models/caps");
+    let dir = scratch("assess");
+    fs::copy(
+        root.join("tests/fixtures/onnx/caps_plain.onnx"),
+        dir.join("caps.onnx"),
+    )
+    .unwrap();
+    let desc = dir.join("caps.toml");
+    fs::write(
+        &desc,
+        format!(
+            "name = \"caps-plain\"\nlabels = [\"sealed\", \"missing\", \"tilted\", \"torn\"]\nonnx = \"caps.onnx\"\ncalibration = {:?}\nvalidation = {:?}\ntarget = {:?}\n[input]\npixel_range = 1.0\n",
+            s(&caps.join("calib")),
+            s(&caps.join("val")),
+            s(&root.join("models/targets/m4-80.toml"))
+        ),
+    )
+    .unwrap();
+    let out = dir.join("caps.midge");
+    // --no-emulate: as in cli_assess.rs, QEMU runs are midge-tests' part.
+    let o = run(&[
+        "assess".into(),
+        s(&desc),
+        "--json".into(),
+        "--no-emulate".into(),
+        "-o".into(),
+        s(&out),
+    ]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert!(matches!(o.status.code(), Some(0) | Some(4)), "{stderr}");
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).expect("JSON on stdout");
+    assert!(v["report"]["quantized_top1"].is_number());
+    // The same model file as the TOML description of the same network.
+    let toml_route = midge_convert::quantize::quantize_description(
+        &caps.join("plain.toml"),
+        &midge_convert::quantize::QuantizeOptions::default(),
+    )
+    .unwrap();
+    assert!(
+        fs::read(&out).unwrap() == toml_route.quantized.bytes,
+        "same .midge bytes"
+    );
+    fs::remove_dir_all(&dir).ok();
+}
