@@ -613,6 +613,8 @@ fn drafts_of_every_fixture_convert_without_edits() {
         "residual_norm_flatten_chain",
         "mul_add_norm_opset21",
         "caps_plain",
+        "caps_separable",
+        "qdq_conv_gap_gemm",
     ] {
         let onnx = dir.join(format!("{name}.onnx"));
         fs::copy(fixtures.join(format!("{name}.onnx")), &onnx).unwrap();

@@ -182,36 +182,44 @@ fn fixtures_quantize_to_int8_and_mostly_agree() {
 
 #[test]
 fn caps_onnx_matches_the_toml_route() {
+    // Both bundled networks (plain: conv2d/BN/ReLU/maxpool; separable:
+    // strided conv2d, depthwise, ReLU6 as Clip, a residual add), written as
+    // ONNX by make_fixtures.py from their descriptions and weights.
     let caps = models().join("caps");
-    let toml_desc = Description::load(&caps.join("plain.toml")).unwrap();
-    let text = format!(
-        "name = \"caps-plain\"\nlabels = [\"sealed\", \"missing\", \"tilted\", \"torn\"]\nonnx = \"{}\"\ncalibration = \"{}\"\n[input]\npixel_range = 1.0\n",
-        fixtures().join("caps_plain.onnx").display(),
-        caps.join("calib").display()
-    );
-    let dir = std::env::temp_dir().join(format!("midge-onnx-caps-{}", std::process::id()));
-    fs::create_dir_all(&dir).unwrap();
-    let onnx_path = dir.join("caps.toml");
-    fs::write(&onnx_path, text).unwrap();
-    let onnx_desc = Description::load(&onnx_path).unwrap();
-    assert_eq!(
-        onnx_desc.input, toml_desc.input,
-        "normalisation folded to mean/std"
-    );
-    let t = midge_convert::weights::TensorMap::load(&caps.join("plain.safetensors")).unwrap();
-    let a = FloatGraph::build(&toml_desc, &t).unwrap().fold().unwrap();
-    let b = FloatGraph::build(&onnx_desc, &onnx_desc.onnx_import.as_ref().unwrap().tensors)
-        .unwrap()
-        .fold()
-        .unwrap();
-    assert_eq!(a.nodes, b.nodes, "same folded float graph");
-    let qa = quantize_description(&caps.join("plain.toml"), &QuantizeOptions::default()).unwrap();
-    let qb = quantize_description(&onnx_path, &QuantizeOptions::default()).unwrap();
-    assert!(
-        qa.quantized.bytes == qb.quantized.bytes,
-        "byte-identical .midge"
-    );
-    fs::remove_dir_all(&dir).ok();
+    for (stem, labels) in [("plain", "caps-plain"), ("separable", "caps-separable")] {
+        let toml_path = caps.join(format!("{stem}.toml"));
+        let toml_desc = Description::load(&toml_path).unwrap();
+        let text = format!(
+            "name = \"{labels}\"\nlabels = [\"sealed\", \"missing\", \"tilted\", \"torn\"]\nonnx = \"{}\"\ncalibration = \"{}\"\n[input]\npixel_range = 1.0\n",
+            fixtures().join(format!("caps_{stem}.onnx")).display(),
+            caps.join("calib").display()
+        );
+        let dir =
+            std::env::temp_dir().join(format!("midge-onnx-caps-{stem}-{}", std::process::id()));
+        fs::create_dir_all(&dir).unwrap();
+        let onnx_path = dir.join("caps.toml");
+        fs::write(&onnx_path, text).unwrap();
+        let onnx_desc = Description::load(&onnx_path).unwrap();
+        assert_eq!(
+            onnx_desc.input, toml_desc.input,
+            "{stem}: normalisation folded to mean/std"
+        );
+        let t = midge_convert::weights::TensorMap::load(&caps.join(format!("{stem}.safetensors")))
+            .unwrap();
+        let a = FloatGraph::build(&toml_desc, &t).unwrap().fold().unwrap();
+        let b = FloatGraph::build(&onnx_desc, &onnx_desc.onnx_import.as_ref().unwrap().tensors)
+            .unwrap()
+            .fold()
+            .unwrap();
+        assert_eq!(a.nodes, b.nodes, "{stem}: same folded float graph");
+        let qa = quantize_description(&toml_path, &QuantizeOptions::default()).unwrap();
+        let qb = quantize_description(&onnx_path, &QuantizeOptions::default()).unwrap();
+        assert!(
+            qa.quantized.bytes == qb.quantized.bytes,
+            "{stem}: byte-identical .midge"
+        );
+        fs::remove_dir_all(&dir).ok();
+    }
 }
 
 #[test]
