@@ -900,7 +900,7 @@ impl Description {
     /// input size replaced when `input_hw` is given. Layers that produce the
     /// final output (traced back from the last layer through channel-keeping
     /// ops) keep their size, so the labels still fit. The weights path is
-    /// dropped when anything changed (the stored weights no longer fit).
+    /// (and ONNX model) dropped when anything changed (the stored weights no longer fit).
     /// Call `topology()` on the result: a smaller input may not fit a kernel.
     pub fn scaled(&self, width: f32, input_hw: Option<(u16, u16)>) -> Description {
         let mut d = self.clone();
@@ -955,6 +955,8 @@ impl Description {
         }
         if d != *self {
             d.weights = None;
+            d.onnx = None;
+            d.onnx_import = None;
         }
         d
     }

@@ -612,6 +612,7 @@ fn drafts_of_every_fixture_convert_without_edits() {
         "depthwise_bn_clip_inputs",
         "residual_norm_flatten_chain",
         "mul_add_norm_opset21",
+        "opset11_shape_chain",
         "caps_plain",
         "caps_separable",
         "qdq_conv_gap_gemm",

@@ -22,12 +22,13 @@ fn models() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("../models")
 }
 
-const FIXTURES: [&str; 5] = [
+const FIXTURES: [&str; 6] = [
     "conv_relu_pool_gemm",
     "autopad_clip_attr_gemm",
     "depthwise_bn_clip_inputs",
     "residual_norm_flatten_chain",
     "mul_add_norm_opset21",
+    "opset11_shape_chain",
 ];
 
 struct Fixture {
