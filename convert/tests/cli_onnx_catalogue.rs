@@ -340,6 +340,20 @@ fn catalogue() -> Vec<Case> {
             expect: &["node \"sm\" (Softmax", "only as the last node"],
         },
         Case {
+            name: "trailing Softmax along the batch axis",
+            model: |b| {
+                b.node("fc").output[0] = "z".into();
+                b.nodes
+                    .push(node("Softmax", "sm", &["z"], "y", vec![ai("axis", 0)]));
+                ""
+            },
+            expect: &[
+                "node \"sm\" (Softmax",
+                "axis 0 of dims [1, 2]",
+                "does not cover all 2 scores",
+            ],
+        },
+        Case {
             name: "Gemm transA",
             model: |b| {
                 b.node("fc").attribute.push(ai("transA", 1));

@@ -608,9 +608,20 @@ impl Lowering<'_> {
                 }
                 let src = c.need_input(0)?;
                 let (_, dims) = self.act(&c, src)?;
-                if dims.iter().skip(1).filter(|&&d| d > 1).count() > 1 {
+                let rank = dims.len() as i64;
+                let axis = c.int("axis", if c.opset < 13 { 1 } else { -1 });
+                let ax = if axis < 0 { axis + rank } else { axis };
+                let total: usize = dims.iter().product();
+                // Softmax-13 normalises along one axis; earlier ones over
+                // everything from `axis` on: that must be every score.
+                let covered: usize = match dims.get(ax.max(0) as usize..) {
+                    Some(rest) if c.opset < 13 && ax >= 1 => rest.iter().product(),
+                    Some([d, ..]) if ax >= 1 => *d,
+                    _ => 0,
+                };
+                if covered != total {
                     return Err(c.fail(format!(
-                        "Softmax over a {dims:?} tensor; expected class scores [1, N]"
+                        "Softmax along axis {axis} of dims {dims:?} does not cover all {total} scores; expected it over the class scores"
                     )));
                 }
                 self.notes.push(format!(
