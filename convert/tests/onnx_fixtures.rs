@@ -314,3 +314,40 @@ fn qdq_scales_are_kept_and_the_int8_run_follows_the_qdq_graph() {
     }
     fs::remove_dir_all(&dir).ok();
 }
+
+#[test]
+fn damaged_onnx_files_give_errors_not_panics() {
+    use rand::{Rng, SeedableRng};
+    // Seeded byte damage (flips, truncations, overwrites) of every fixture:
+    // decoding and lowering must return Ok or an error, never panic.
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(12);
+    let mut errors = 0;
+    for name in FIXTURES.iter().chain(&["qdq_conv_gap_gemm"]) {
+        let good = fs::read(fixtures().join(format!("{name}.onnx"))).unwrap();
+        for _ in 0..300 {
+            let mut b = good.clone();
+            match rng.gen_range(0..3) {
+                0 => {
+                    let i = rng.gen_range(0..b.len());
+                    b[i] ^= 1 << rng.gen_range(0..8);
+                }
+                1 => b.truncate(rng.gen_range(0..b.len())),
+                _ => {
+                    let i = rng.gen_range(0..b.len());
+                    b[i] = rng.gen();
+                }
+            }
+            let r = std::panic::catch_unwind(|| {
+                midge_convert::onnx::OnnxModel::from_bytes(&b, "damaged.onnx")
+                    .and_then(|m| midge_convert::onnx::lower(&m))
+                    .is_err()
+            });
+            match r {
+                Ok(is_err) => errors += is_err as usize,
+                Err(_) => panic!("{name}: a damaged file made the import panic"),
+            }
+        }
+    }
+    // Most damage is noticed (a flipped bit inside a weight may not be).
+    assert!(errors > 100, "only {errors} damaged files refused");
+}
