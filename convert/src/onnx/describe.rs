@@ -3,7 +3,7 @@
 //! range stay the description's, and `[[layer]]` tables set only precision.
 //!
 //! ```toml
-//! name = "caps"                 # default: the graph's name or the file's stem
+//! name = "caps"                 # default: the ONNX file's stem
 //! labels = ["sealed", "missing", "tilted", "torn"]
 //! onnx = "caps.onnx"            # relative to this file
 //! calibration = "calib"
@@ -218,16 +218,12 @@ pub fn from_table(mut t: Table, origin: &Path) -> Result<Description> {
         .collect::<Result<_>>()?;
     t.insert("layer".into(), Value::Array(layer_values));
     if !t.contains_key("name") {
+        // The file's stem: exporters name graphs generically ("main_graph").
         let stem = path
             .file_stem()
             .map(|s| s.to_string_lossy().into_owned())
             .unwrap_or_default();
-        let n = if low.graph_name.is_empty() {
-            stem
-        } else {
-            low.graph_name.clone()
-        };
-        t.insert("name".into(), Value::String(n));
+        t.insert("name".into(), Value::String(stem));
     }
     let mut desc: Description = Value::Table(t)
         .try_into()
