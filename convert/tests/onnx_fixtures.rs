@@ -351,3 +351,23 @@ fn damaged_onnx_files_give_errors_not_panics() {
     // Most damage is noticed (a flipped bit inside a weight may not be).
     assert!(errors > 100, "only {errors} damaged files refused");
 }
+
+#[test]
+fn normalisation_before_and_inside_the_graph_compose() {
+    // The graph computes ((x − 0.5)/0.25, (x − 0.4)/0.3) (its Sub/Div, see
+    // make_fixtures.py); a description mean m and std s applied before it
+    // give ((x − m)/s − g_mean)/g_std = (x − (m + g_mean·s)) / (s·g_std).
+    let name = "residual_norm_flatten_chain";
+    let d = description(name, 3, "[input]\nmean = [0.1, 0.2]\nstd = [0.5, 2.0]\n");
+    let (mean, std) = (d.input.mean_values(), d.input.std_values());
+    let want_mean = [0.1 + 0.5 * 0.5, 0.2 + 0.4 * 2.0];
+    let want_std = [0.5 * 0.25, 2.0 * 0.3];
+    for c in 0..2 {
+        assert!((mean[c] - want_mean[c]).abs() < 1e-6, "mean {mean:?}");
+        assert!((std[c] - want_std[c]).abs() < 1e-6, "std {std:?}");
+    }
+    // Without a description mean/std the graph's own normalisation is it.
+    let d = description(name, 3, "");
+    assert_eq!(d.input.mean_values(), [0.5, 0.4]);
+    assert_eq!(d.input.std_values(), [0.25, 0.3]);
+}
