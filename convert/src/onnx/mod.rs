@@ -13,7 +13,9 @@ use prost::Message;
 
 use crate::{limits, Error, Result};
 
-/// The prost code generated from `onnx.proto` (see `convert/onnx-gen`).
+/// The prost code generated from `onnx.proto` (see `convert/onnx-gen`);
+/// the schema file is the one the onnx 1.23.2 Python package ships,
+/// unchanged (Apache-2.0, its header kept).
 #[allow(clippy::all, missing_docs, rustdoc::all)]
 pub mod proto {
     include!("onnx_proto.rs");
