@@ -121,7 +121,8 @@ pub fn bench_report(path: &Path, opts: &ReportOptions) -> Result<BenchReport> {
     }
     let sqnr = if opts.compare && is_description(path) {
         let desc = Description::load(path)?;
-        if desc.weights.is_some() && desc.validation.is_some() && desc.calibration.is_some() {
+        let weighted = desc.weights.is_some() || desc.onnx.is_some();
+        if weighted && desc.validation.is_some() && desc.calibration.is_some() {
             Some(compare::compare(path, &CompareOptions::default())?.layers)
         } else {
             None

@@ -53,6 +53,12 @@ pub enum Command {
     /// description's validation images and the budget on its default target
     /// profile. Exit 3 over --max-drop, 4 when it does not fit.
     Assess(AssessArgs),
+    /// Draft a description from an ONNX model or a safetensors file.
+    ///
+    /// From ONNX everything but labels and image folders is read from the
+    /// graph; from safetensors the layers are guessed from tensor names and
+    /// shapes, with guesses and unknowable items marked for editing.
+    Draft(crate::draft::DraftArgs),
     // Further subcommands are added here and dispatched in `run`.
 }
 
@@ -221,6 +227,7 @@ pub fn run(cli: Cli) -> Result<i32> {
         Command::Show(a) => cmd_show(&a),
         Command::Budget(a) => crate::budget::cmd_budget(&a),
         Command::Assess(a) => cmd_assess(&a),
+        Command::Draft(a) => crate::draft::cmd_draft(&a),
     }
 }
 
@@ -268,6 +275,9 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
             escape_path(&a.description),
             escape(w)
         );
+    }
+    for n in conv.desc.onnx_import.iter().flat_map(|i| &i.notes) {
+        eprintln!("note: {}: {}", escape_path(&a.description), escape(n));
     }
     let int8 = conv
         .graph

@@ -39,6 +39,8 @@ impl Precision {
 /// name = "capcheck-plain"
 /// labels = ["sealed", "missing", "tilted", "torn"]
 /// weights = "weights.safetensors"   # optional; relative to this file
+/// # onnx = "model.onnx"             # instead of weights and [[layer]] lists:
+///                                   # see crate::onnx::describe
 /// calibration = "calib"             # optional folder of images
 /// validation = "val"                # optional, one sub-folder per label
 /// target = "../targets/m4-80.toml"  # optional default target profile
@@ -64,13 +66,14 @@ impl Precision {
 /// padding = "same"    # "valid" | "same" | p | [ph, pw] | [t, l, b, r]
 /// bias = true         # conv2d, depthwise, dense (default true)
 /// eps = 1e-5          # batchnorm
+/// count_include_pad = false  # avgpool: padding allowed, in-bounds average
 /// precision = "fp16"  # per-layer override
 /// ```
 ///
 /// Sizes (input, channels, windows, layer and label counts, name lengths,
 /// weight and activation bytes) are bounded by `crate::limits`, whose
-/// table is README's "Limits". Keys that do not apply to a layer's op are errors. Avgpool takes no
-/// padding (PyTorch's count_include_pad differs from in-bounds averaging).
+/// table is README's "Limits". Keys that do not apply to a layer's op are errors. Avgpool takes
+/// padding only with `count_include_pad = false` (PyTorch's default counts padded taps).
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct Description {
@@ -78,6 +81,10 @@ pub struct Description {
     pub labels: Vec<String>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub weights: Option<PathBuf>,
+    /// An ONNX model instead of `weights` and a layer list (see
+    /// `crate::onnx::describe`): the layers are read from its graph.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub onnx: Option<PathBuf>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub calibration: Option<PathBuf>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -93,6 +100,10 @@ pub struct Description {
     /// The file this description came from (for messages); not a TOML key.
     #[serde(skip)]
     pub origin: PathBuf,
+    /// What the `onnx` model gave besides layers: weights, quantization
+    /// parameters of QDQ pairs, notes; not a TOML key.
+    #[serde(skip)]
+    pub onnx_import: Option<crate::onnx::Imported>,
 }
 
 /// The `[input]` table.
@@ -173,6 +184,11 @@ pub struct LayerDesc {
     /// BatchNorm epsilon; default 1e-5 (PyTorch's default).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub eps: Option<f32>,
+    /// Avgpool: `false` allows padding, averaged over the in-bounds taps
+    /// only (ONNX's default); `true` (PyTorch's default) with padding is
+    /// refused, as the device never counts padded taps.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub count_include_pad: Option<bool>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub precision: Option<Precision>,
 }
@@ -272,7 +288,13 @@ impl LayerKind {
                 "precision",
             ],
             LayerKind::MaxPool => &["kernel", "stride", "dilation", "padding", "precision"],
-            LayerKind::AvgPool => &["kernel", "stride", "padding", "precision"],
+            LayerKind::AvgPool => &[
+                "kernel",
+                "stride",
+                "padding",
+                "count_include_pad",
+                "precision",
+            ],
             LayerKind::GlobalAvgPool | LayerKind::Add => &["precision"],
             LayerKind::Dense => &[
                 "tensor",
@@ -380,12 +402,17 @@ impl Description {
     /// from (for messages and to resolve relative paths).
     pub fn from_toml_str(text: &str, origin: &Path) -> Result<Description> {
         let place = origin.display().to_string();
-        let mut desc: Description =
-            toml::from_str(text).map_err(|e| toml_error(&place, text, &e))?;
+        let table: toml::Table = toml::from_str(text).map_err(|e| toml_error(&place, text, &e))?;
+        let mut desc: Description = if table.contains_key("onnx") {
+            crate::onnx::describe::from_table(table, origin)?
+        } else {
+            toml::from_str(text).map_err(|e| toml_error(&place, text, &e))?
+        };
         desc.origin = origin.to_path_buf();
         let base = origin.parent().unwrap_or(Path::new(""));
         for p in [
             &mut desc.weights,
+            &mut desc.onnx,
             &mut desc.calibration,
             &mut desc.validation,
             &mut desc.target,
@@ -640,7 +667,7 @@ impl Description {
             ))
         })?;
         // Keys that do not apply to this op.
-        let given: [(&str, bool); 10] = [
+        let given: [(&str, bool); 11] = [
             ("tensor", l.tensor.is_some()),
             ("out_channels", l.out_channels.is_some()),
             ("out_features", l.out_features.is_some()),
@@ -650,6 +677,7 @@ impl Description {
             ("padding", l.padding.is_some()),
             ("bias", l.bias.is_some()),
             ("eps", l.eps.is_some()),
+            ("count_include_pad", l.count_include_pad.is_some()),
             ("precision", l.precision.is_some()),
         ];
         for (key, set) in given {
@@ -743,9 +771,9 @@ impl Description {
                     ))
                 })?;
                 let padded = w.pad_top | w.pad_left | w.pad_bottom | w.pad_right != 0;
-                if kind == LayerKind::AvgPool && padded {
+                if kind == LayerKind::AvgPool && padded && l.count_include_pad != Some(false) {
                     return Err(err(
-                        "avgpool with padding is not supported: PyTorch counts padded taps by default (count_include_pad) while midge averages in-bounds taps only; use padding = \"valid\"".into(),
+                        "avgpool with padding is not supported: PyTorch counts padded taps by default (count_include_pad) while midge averages in-bounds taps only; use padding = \"valid\", or count_include_pad = false when the model averages in-bounds taps".into(),
                     ));
                 }
                 if kind == LayerKind::MaxPool {
@@ -872,7 +900,7 @@ impl Description {
     /// input size replaced when `input_hw` is given. Layers that produce the
     /// final output (traced back from the last layer through channel-keeping
     /// ops) keep their size, so the labels still fit. The weights path is
-    /// dropped when anything changed (the stored weights no longer fit).
+    /// (and ONNX model) dropped when anything changed (the stored weights no longer fit).
     /// Call `topology()` on the result: a smaller input may not fit a kernel.
     pub fn scaled(&self, width: f32, input_hw: Option<(u16, u16)>) -> Description {
         let mut d = self.clone();
@@ -927,6 +955,8 @@ impl Description {
         }
         if d != *self {
             d.weights = None;
+            d.onnx = None;
+            d.onnx_import = None;
         }
         d
     }

@@ -474,6 +474,11 @@ fn build_op(l: &LayerInfo, t: &TensorMap, flat_src: Option<Shape>) -> Result<Flo
 /// folded float graph. Returns the names of unused tensors as warnings.
 pub fn load_graph(desc_path: &Path) -> Result<(Description, FloatGraph, Vec<String>)> {
     let desc = Description::load(desc_path)?;
+    if let Some(import) = &desc.onnx_import {
+        let unused = import.tensors.check(&desc)?;
+        let graph = FloatGraph::build(&desc, &import.tensors)?.fold()?;
+        return Ok((desc, graph, unused));
+    }
     let wpath = desc.weights.clone().ok_or_else(|| {
         Error::new(
             desc_path.display().to_string(),

@@ -31,6 +31,11 @@ pub const WEIGHTS_FILE: FileCap = FileCap {
     what: "weights",
     max_bytes: 256 * MIB,
 };
+/// ONNX model files (graph and weights inside).
+pub const ONNX_FILE: FileCap = FileCap {
+    what: "ONNX model",
+    max_bytes: 256 * MIB,
+};
 /// Model files (.midge) read by `show`, `classify` and `budget`.
 pub const MODEL_FILE: FileCap = FileCap {
     what: "model",
@@ -55,6 +60,8 @@ pub const MAX_CHANNELS: u64 = 4096;
 pub const MAX_WINDOW_SIDE: u64 = 256;
 /// `[[layer]]` tables in a description.
 pub const MAX_LAYERS: u64 = 1024;
+/// Nodes of an ONNX graph.
+pub const MAX_ONNX_NODES: u64 = 16384;
 /// Entries of `labels`.
 pub const MAX_LABELS: u64 = 4096;
 /// Bytes (UTF-8) of one label.
@@ -211,6 +218,8 @@ pub fn table() -> Vec<(&'static str, String)> {
         ("description file", size(DESCRIPTION_FILE.max_bytes)),
         ("target profile file", size(TARGET_FILE.max_bytes)),
         ("weights file", size(WEIGHTS_FILE.max_bytes)),
+        ("ONNX model file", size(ONNX_FILE.max_bytes)),
+        ("ONNX graph nodes", MAX_ONNX_NODES.to_string()),
         ("model file", size(MODEL_FILE.max_bytes)),
         ("image file", size(IMAGE_FILE.max_bytes)),
         ("input height, width", MAX_INPUT_SIDE.to_string()),

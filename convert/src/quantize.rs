@@ -765,6 +765,7 @@ impl Conversion {
     pub fn inputs<'a>(&'a self, description: &'a Path) -> Vec<&'a Path> {
         let mut v = vec![description];
         v.extend(self.desc.weights.as_deref());
+        v.extend(self.desc.onnx.as_deref());
         v.extend(self.desc.target.as_deref());
         v
     }
@@ -839,7 +840,7 @@ pub fn calibrate_graph(
 /// The whole conversion the CLI's `quantize` runs: load, calibrate,
 /// quantize, plan, emit (nothing is written to disk).
 pub fn quantize_description(path: &Path, opts: &QuantizeOptions) -> Result<Conversion> {
-    let (desc, graph, warnings) = load_with_precision(path, opts.precision)?;
+    let (mut desc, graph, warnings) = load_with_precision(path, opts.precision)?;
     // Before calibration, which costs time and memory per layer.
     check_layer_count(&path.display().to_string(), graph.nodes.len() + 1)?;
     let dir = opts
@@ -852,7 +853,9 @@ pub fn quantize_description(path: &Path, opts: &QuantizeOptions) -> Result<Conve
                 "no calibration images: set `calibration` in the description or pass a folder",
             )
         })?;
-    let (ranges, n) = calibrate_graph(&graph, &desc, &dir, opts.method, opts.progress)?;
+    let (mut ranges, n) = calibrate_graph(&graph, &desc, &dir, opts.method, opts.progress)?;
+    // Ranges an ONNX model's QuantizeLinear/DequantizeLinear pairs give.
+    crate::onnx::qdq::apply(&mut desc, &graph, &mut ranges)?;
     let quantized = quantize_graph(&graph, &ranges)?;
     Ok(Conversion {
         desc,
