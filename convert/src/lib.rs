@@ -17,6 +17,7 @@ pub mod graph;
 pub mod images;
 pub mod limits;
 pub mod output;
+pub mod parallel;
 pub mod plan;
 pub mod quantize;
 pub mod synth;
