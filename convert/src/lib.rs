@@ -4,6 +4,7 @@
 
 pub mod budget;
 pub mod calibrate;
+pub mod classify;
 pub mod cli;
 pub mod compare;
 pub mod description;
