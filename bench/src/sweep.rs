@@ -46,7 +46,10 @@ pub struct SweepRow {
 }
 
 /// Every width × input size (height, width; none given: the description's
-/// own size) on every target.
+/// own size) on every target. The variants are built (synthetic weights,
+/// calibration, quantization) in parallel on the current rayon pool, rows in
+/// the order of `widths` × `resolutions`; their budgets, which may build
+/// firmware and run the emulator, are evaluated one after another.
 pub fn sweep(
     desc: &Description,
     widths: &[f32],
@@ -55,41 +58,24 @@ pub fn sweep(
     opts: &BudgetOptions,
     seed: u64,
 ) -> Result<Vec<SweepRow>> {
-    let own = (desc.input.height, desc.input.width);
     let sizes: Vec<Option<(u16, u16)>> = if resolutions.is_empty() {
         vec![None]
     } else {
         resolutions.iter().map(|&r| Some(r)).collect()
     };
-    let mut rows = Vec::new();
-    for &w in widths {
-        for &hw in &sizes {
-            let variant = desc.scaled(w, hw);
-            let mut row = SweepRow {
-                width: w,
-                input_hw: hw.unwrap_or(own),
-                error: None,
-                params: 0,
-                macs: 0,
-                model_bytes: 0,
-                workspace_len: 0,
-                cells: Vec::new(),
-            };
-            let bytes = match synth::synth_quantize(&variant, seed) {
-                Ok(q) => q.bytes,
-                Err(e) => {
-                    row.error = Some(e.to_string());
-                    rows.push(row);
-                    continue;
-                }
-            };
-            let aligned = AlignedBytes::from_slice(&bytes);
-            let model = Model::parse(&aligned).map_err(|e| Error::new("sweep", e.to_string()))?;
-            let fp = model_footprint(&model);
-            row.params = fp.params;
-            row.macs = fp.macs;
-            row.model_bytes = fp.sections.total;
-            row.workspace_len = fp.workspace_len;
+    let variants: Vec<(f32, Option<(u16, u16)>)> = widths
+        .iter()
+        .flat_map(|&w| sizes.iter().map(move |&hw| (w, hw)))
+        .collect();
+    let built = midge_convert::parallel::map_ordered(
+        variants.len(),
+        || (),
+        |_, i| build_variant(desc, variants[i].0, variants[i].1, seed),
+    );
+    let mut rows = Vec::with_capacity(built.len());
+    for b in built {
+        let (mut row, bytes) = b?;
+        if let Some(bytes) = bytes {
             for t in targets {
                 let ev = budget::evaluate(&bytes, t, opts)?;
                 row.cells.push(SweepCell {
@@ -104,10 +90,46 @@ pub fn sweep(
                     est_ms: ev.budget.estimated_ms,
                 });
             }
-            rows.push(row);
         }
+        rows.push(row);
     }
     Ok(rows)
+}
+
+/// One variant's row without its target cells, and its model file (`None`
+/// when the variant could not be built: `row.error` says why).
+fn build_variant(
+    desc: &Description,
+    w: f32,
+    hw: Option<(u16, u16)>,
+    seed: u64,
+) -> Result<(SweepRow, Option<Vec<u8>>)> {
+    let variant = desc.scaled(w, hw);
+    let mut row = SweepRow {
+        width: w,
+        input_hw: hw.unwrap_or((desc.input.height, desc.input.width)),
+        error: None,
+        params: 0,
+        macs: 0,
+        model_bytes: 0,
+        workspace_len: 0,
+        cells: Vec::new(),
+    };
+    let bytes = match synth::synth_quantize(&variant, seed) {
+        Ok(q) => q.bytes,
+        Err(e) => {
+            row.error = Some(e.to_string());
+            return Ok((row, None));
+        }
+    };
+    let aligned = AlignedBytes::from_slice(&bytes);
+    let model = Model::parse(&aligned).map_err(|e| Error::new("sweep", e.to_string()))?;
+    let fp = model_footprint(&model);
+    row.params = fp.params;
+    row.macs = fp.macs;
+    row.model_bytes = fp.sections.total;
+    row.workspace_len = fp.workspace_len;
+    Ok((row, Some(bytes)))
 }
 
 /// An input size as written on the command line: `32` (square) or `49x10`

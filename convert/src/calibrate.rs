@@ -7,11 +7,12 @@ use std::io::IsTerminal;
 use serde::Serialize;
 
 use crate::error::{Error, Result};
+use crate::parallel;
 
 /// Histogram resolution used for percentile and MSE ranges.
 pub const BINS: usize = 2048;
 
-/// Histogram bins `collect` holds at once (2^22 counts, 32 MiB). A model
+/// Histogram bins `collect` holds at once per thread (2^22 counts, 32 MiB). A model
 /// with more tensors than that many bins cover gets its histograms filled
 /// group by group, with one more pass over the samples per group.
 pub const HIST_BUDGET_BINS: usize = 1 << 22;
@@ -93,6 +94,14 @@ impl Histogram {
             self.counts[i] += 1;
             self.total += 1;
         }
+    }
+
+    /// Add the counts of `other`, a histogram with the same bins.
+    pub fn merge(&mut self, other: &Histogram) {
+        for (a, b) in self.counts.iter_mut().zip(&other.counts) {
+            *a += b;
+        }
+        self.total += other.total;
     }
 
     /// The value below which a fraction `q` (0..=1) of the samples lie,
@@ -188,10 +197,16 @@ impl TensorStats {
         }
     }
 
+    /// Widen [min, max] to hold `values`, in IEEE 754 total order (so
+    /// −0 < +0 and the result does not depend on the order values come in).
     fn see_extremes(&mut self, values: &[f32]) {
         for &v in values {
-            self.min = self.min.min(v);
-            self.max = self.max.max(v);
+            if v.total_cmp(&self.min).is_lt() {
+                self.min = v;
+            }
+            if v.total_cmp(&self.max).is_gt() {
+                self.max = v;
+            }
         }
     }
 
@@ -225,12 +240,16 @@ impl TensorStats {
 /// Gather statistics of every tensor from a sample source. `run(i)` returns
 /// all tensors (indexed by tensor id) for sample `i` of `count`; it is called
 /// once per sample for min/max and, when the method needs a histogram, once
-/// more per sample to fill it (so memory stays at one sample's tensors).
+/// more per sample (and tensor group) to fill it, so memory stays at one
+/// sample's tensors per thread. Samples run in parallel on the current
+/// rayon pool ([`crate::parallel`]); the statistics are the same for any
+/// number of threads (min/max in IEEE 754 total order, integer bin counts),
+/// and an error is the one of the lowest-numbered failing sample.
 pub fn collect(
     count: usize,
     method: RangeMethod,
     show_progress: bool,
-    mut run: impl FnMut(usize) -> Result<Vec<Vec<f32>>>,
+    run: impl Fn(usize) -> Result<Vec<Vec<f32>>> + Sync,
 ) -> Result<Vec<TensorStats>> {
     if count == 0 {
         return Err(Error::new("calibration", "no calibration images"));
@@ -244,24 +263,38 @@ pub fn collect(
         }
     }
     let bar = progress_bar(show_progress, count as u64, "calibrating");
+    let parts = parallel::chunked(count, |samples| {
+        let mut stats: Vec<TensorStats> = Vec::new();
+        for i in samples {
+            let tensors = run(i)?;
+            for (t, v) in tensors.iter().enumerate() {
+                if let Some(x) = v.iter().find(|x| !x.is_finite()) {
+                    return Err(Error::new(
+                        "calibration",
+                        format!("sample {i}: tensor t{t} holds {x}; ranges need finite values"),
+                    ));
+                }
+            }
+            if stats.is_empty() {
+                stats = vec![TensorStats::empty(); tensors.len()];
+            }
+            for (s, t) in stats.iter_mut().zip(&tensors) {
+                s.see_extremes(t);
+            }
+            bar.inc(1);
+        }
+        Ok(stats)
+    });
     let mut stats: Vec<TensorStats> = Vec::new();
-    for i in 0..count {
-        let tensors = run(i)?;
-        for (t, v) in tensors.iter().enumerate() {
-            if let Some(x) = v.iter().find(|x| !x.is_finite()) {
-                return Err(Error::new(
-                    "calibration",
-                    format!("sample {i}: tensor t{t} holds {x}; ranges need finite values"),
-                ));
+    for part in parts {
+        let part = part?;
+        if stats.is_empty() {
+            stats = part;
+        } else {
+            for (s, p) in stats.iter_mut().zip(&part) {
+                s.see_extremes(&[p.min, p.max]);
             }
         }
-        if stats.is_empty() {
-            stats = vec![TensorStats::empty(); tensors.len()];
-        }
-        for (s, t) in stats.iter_mut().zip(&tensors) {
-            s.see_extremes(t);
-        }
-        bar.inc(1);
     }
     if method.needs_histogram() {
         let group = (HIST_BUDGET_BINS / BINS).max(1);
@@ -270,21 +303,7 @@ pub fn collect(
         bar.set_length((count * (1 + groups)) as u64);
         for g0 in (0..stats.len()).step_by(group) {
             let g1 = (g0 + group).min(stats.len());
-            for s in &mut stats[g0..g1] {
-                if s.min <= s.max {
-                    s.hist = Some(Histogram::new(s.min, s.max, BINS));
-                }
-            }
-            for i in 0..count {
-                let tensors = run(i)?;
-                let part = tensors.get(g0..g1).unwrap_or(&[]);
-                for (s, t) in stats[g0..g1].iter_mut().zip(part) {
-                    if let Some(h) = s.hist.as_mut() {
-                        h.add(t);
-                    }
-                }
-                bar.inc(1);
-            }
+            fill_histograms(&mut stats[g0..g1], g0, count, &run, &bar)?;
             if !keep {
                 for s in &mut stats[g0..g1] {
                     s.chosen = Some(s.range(method));
@@ -295,6 +314,46 @@ pub fn collect(
     }
     bar.finish_and_clear();
     Ok(stats)
+}
+
+/// Histograms of tensors `first..first + group.len()` over all samples:
+/// one partial histogram per thread, summed (exact integer counts).
+fn fill_histograms(
+    group: &mut [TensorStats],
+    first: usize,
+    count: usize,
+    run: &(impl Fn(usize) -> Result<Vec<Vec<f32>>> + Sync),
+    bar: &indicatif::ProgressBar,
+) -> Result<()> {
+    let empty: Vec<Option<Histogram>> = group
+        .iter()
+        .map(|s| (s.min <= s.max).then(|| Histogram::new(s.min, s.max, BINS)))
+        .collect();
+    let parts = parallel::chunked(count, |samples| {
+        let mut hists = empty.clone();
+        for i in samples {
+            let tensors = run(i)?;
+            let part = tensors.get(first..first + hists.len()).unwrap_or(&[]);
+            for (h, t) in hists.iter_mut().zip(part) {
+                if let Some(h) = h.as_mut() {
+                    h.add(t);
+                }
+            }
+            bar.inc(1);
+        }
+        Ok(hists)
+    });
+    for (s, h) in group.iter_mut().zip(empty) {
+        s.hist = h;
+    }
+    for part in parts {
+        for (s, h) in group.iter_mut().zip(part?) {
+            if let (Some(total), Some(h)) = (s.hist.as_mut(), h) {
+                total.merge(&h);
+            }
+        }
+    }
+    Ok(())
 }
 
 /// A progress bar on stderr, drawn only when asked and stderr is a terminal.

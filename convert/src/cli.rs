@@ -14,10 +14,9 @@ use crate::compare::{self, op_name, CompareOptions};
 use crate::error::{escape, escape_path, Error, Result};
 use crate::firmware_module;
 use crate::graph::Precision;
-use crate::images::{self, ImageSpec};
 use crate::output;
 use crate::plan;
-use crate::quantize::{self, dequantize_tensor, QuantizeOptions};
+use crate::quantize::{self, QuantizeOptions};
 
 /// Exit status for bad input (missing file, parse error, ...).
 pub const EXIT_BAD_INPUT: i32 = 2;
@@ -41,7 +40,8 @@ pub enum Command {
     Quantize(QuantizeArgs),
     /// Quantize in memory and report the accuracy drop on labelled images.
     Compare(CompareArgs),
-    /// Classify images with a .midge model (runs midge-runtime on the host).
+    /// Classify images with a .midge model (midge-runtime on the host) or a
+    /// description (.toml, the float reference).
     Classify(ClassifyArgs),
     /// Show a .midge model: layers, shapes, quantization, memory plan.
     Show(ShowArgs),
@@ -198,7 +198,8 @@ pub struct AssessArgs {
 
 #[derive(clap::Args, Debug)]
 pub struct ClassifyArgs {
-    /// Model file (.midge).
+    /// Model file (.midge), or a description (.toml) to run its float
+    /// reference on the same images.
     pub model: PathBuf,
     /// Images (PNG, JPEG or BMP).
     #[arg(required = true)]
@@ -209,6 +210,10 @@ pub struct ClassifyArgs {
     /// How many classes to list per image.
     #[arg(long, default_value_t = 3)]
     pub top: usize,
+    /// Print one JSON document: per image the label and index, logits, raw
+    /// output values and probabilities.
+    #[arg(long)]
+    pub json: bool,
 }
 
 #[derive(clap::Args, Debug)]
@@ -439,7 +444,7 @@ pub fn read_model(path: &Path) -> Result<AlignedBytes> {
     Ok(bytes)
 }
 
-fn parse_model<'a>(bytes: &'a AlignedBytes, path: &Path) -> Result<Model<'a>> {
+pub(crate) fn parse_model<'a>(bytes: &'a AlignedBytes, path: &Path) -> Result<Model<'a>> {
     Model::parse(bytes).map_err(|e| {
         Error::new(
             path.display().to_string(),
@@ -448,71 +453,14 @@ fn parse_model<'a>(bytes: &'a AlignedBytes, path: &Path) -> Result<Model<'a>> {
     })
 }
 
-/// Softmax of logits (host side, f64, shifted by the maximum).
-pub fn softmax(logits: &[f32]) -> Vec<f64> {
-    let m = logits.iter().fold(f32::NEG_INFINITY, |a, &b| a.max(b)) as f64;
-    let e: Vec<f64> = logits.iter().map(|&v| (v as f64 - m).exp()).collect();
-    let s: f64 = e.iter().sum();
-    e.iter().map(|v| v / s).collect()
-}
-
 fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
-    let bytes = read_model(&a.model)?;
-    let model = parse_model(&bytes, &a.model)?;
-    let inp = model.input();
-    let spec = ImageSpec {
-        h: inp.shape.h as u32,
-        w: inp.shape.w as u32,
-        c: inp.shape.c as u32,
-        resize: a.resize,
-    };
-    let mut ws = compare::host_workspace(&model, &a.model.display().to_string())?;
-    for img in &a.images {
-        let px = images::load_image(img, &spec)?;
-        let out = model.run(&px, &mut ws).map_err(|e| {
-            Error::new(
-                img.display().to_string(),
-                format!("the runtime failed: {e}"),
-            )
-        })?;
-        let rec = model.output();
-        let logits = dequantize_tensor(&rec, out);
-        // Scores are never printed as NaN: a non-finite output (an fp16
-        // overflow inside the model) is an error naming the image.
-        if let Some(v) = logits.iter().find(|v| !v.is_finite()) {
-            return Err(Error::new(
-                img.display().to_string(),
-                format!(
-                    "model output t{} holds {v}: the model overflows fp16 on this image, no scores to print",
-                    model.output_id()
-                ),
-            ));
-        }
-        let top = midge_runtime::exec::top1(&rec, out)
-            .map(|(i, _)| i)
-            .unwrap_or(0);
-        let p = softmax(&logits);
-        let mut order: Vec<usize> = (0..p.len()).collect();
-        order.sort_by(|&i, &j| p[j].total_cmp(&p[i]).then(i.cmp(&j)));
-        let label = |i: usize| {
-            model
-                .label(i)
-                .map(|l| escape(l).into_owned())
-                .unwrap_or_else(|| format!("class {i}"))
-        };
-        let mut line = format!(
-            "{}: {} ({:.3})",
-            escape_path(img),
-            label(top),
-            p.get(top).copied().unwrap_or(0.0)
-        );
-        let rest: Vec<String> = order
-            .iter()
-            .take(a.top.max(1))
-            .map(|&i| format!("{} {:.3}", label(i), p[i]))
-            .collect();
-        let _ = write!(line, "  [{}]", rest.join(", "));
-        println!("{line}");
+    let result = crate::classify::classify_path(&a.model, &a.images, a.resize)?;
+    if a.json {
+        let text = serde_json::to_string_pretty(&result)
+            .map_err(|e| Error::new("classify", format!("cannot write JSON: {e}")))?;
+        println!("{text}");
+    } else {
+        print!("{}", result.to_text(a.top));
     }
     Ok(0)
 }

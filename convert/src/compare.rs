@@ -110,7 +110,7 @@ pub fn argmax(v: &[f32]) -> Option<usize> {
 }
 
 /// Collects, per runtime layer, Σx² and Σ(x − x̂)² against the float tensors
-/// of the current image.
+/// of one image (each sum in element order).
 struct Sqnr<'a> {
     source: &'a [Option<usize>],
     outputs: &'a [usize],
@@ -163,6 +163,7 @@ pub fn host_workspace(model: &Model<'_>, place: &str) -> Result<AlignedBytes> {
 }
 
 /// One quantized model ready to run on the host.
+#[derive(Clone)]
 struct Runner {
     bytes: AlignedBytes,
     ws: AlignedBytes,
@@ -226,16 +227,63 @@ pub fn compare(desc_path: &Path, opts: &CompareOptions) -> Result<Report> {
     evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)
 }
 
-/// Evaluate a conversion on the labelled folder `dir`.
+/// Logit error of one image: Σ|x − x̂| (in element order) and max |x − x̂|.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+struct LogitError {
+    sum: f64,
+    max: f64,
+}
+
+impl LogitError {
+    fn of(float: &[f32], quantized: &[f32]) -> LogitError {
+        let mut e = LogitError::default();
+        for (a, b) in float.iter().zip(quantized) {
+            let d = (*a as f64 - *b as f64).abs();
+            e.sum += d;
+            e.max = e.max.max(d);
+        }
+        e
+    }
+
+    /// Fold in the next image's error (sums in image order).
+    fn add(&mut self, next: LogitError) {
+        self.sum += next.sum;
+        self.max = self.max.max(next.max);
+    }
+}
+
+/// What one image contributes to the report.
+struct ImageResult {
+    truth: usize,
+    float_top: usize,
+    quantized_top: usize,
+    /// Logit count (the mean's denominator).
+    logits: usize,
+    error: LogitError,
+    /// Per runtime layer Σx² and Σ(x − x̂)².
+    signal: Vec<f64>,
+    noise: Vec<f64>,
+    /// The all-fp16 variant: top-1 and logit error.
+    fp16: Option<(usize, LogitError)>,
+}
+
+/// The models one worker runs (each with its own workspace).
+struct Runners {
+    main: Runner,
+    fp16: Option<Runner>,
+}
+
+/// Evaluate a conversion on the labelled folder `dir`. Images are evaluated
+/// in parallel on the current rayon pool (see [`crate::parallel`]); the
+/// report is the same for any number of threads: each image's sums are
+/// taken in element order and added up in image order.
 pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) -> Result<Report> {
     let graph = &conv.graph;
     let q = &conv.quantized;
-    let labels = &graph.labels;
-    let files = images::labelled_folder(dir, labels)?;
-    let spec = image_spec(&conv.desc);
+    let files = images::labelled_folder(dir, &graph.labels)?;
     let place = graph.name.clone();
-    let mut main = Runner::new(q, &place)?;
-    let mut fp16 = if also_fp16 {
+    let main = Runner::new(q, &place)?;
+    let fp16 = if also_fp16 {
         let mut g = graph.clone();
         g.nodes
             .iter_mut()
@@ -251,81 +299,132 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
         .iter()
         .map(|l| l.header.output as usize)
         .collect();
+    let spec = image_spec(&conv.desc);
+    let bar = progress_bar(progress, files.len() as u64, "evaluating");
+    let results = crate::parallel::map_ordered(
+        files.len(),
+        || Runners {
+            main: main.clone(),
+            fp16: fp16.clone(),
+        },
+        |r, i| {
+            let (file, truth) = &files[i];
+            let px = images::load_image(file, &spec)?;
+            let res = evaluate_image(conv, &outputs, r, (file, &px), *truth, &place);
+            bar.inc(1);
+            res
+        },
+    );
+    bar.finish_and_clear();
+    let results: Vec<ImageResult> = results.into_iter().collect::<Result<_>>()?;
+    let model = Model::parse(&main.bytes)
+        .map_err(|e| Error::new(&place, format!("the runtime rejects the model: {e}")))?;
+    Ok(tally(conv, &model, &outputs, &results, also_fp16))
+}
+
+/// One image through the float reference, the quantized model and (when
+/// given) the all-fp16 one.
+fn evaluate_image(
+    conv: &Conversion,
+    outputs: &[usize],
+    r: &mut Runners,
+    (file, px): (&Path, &[u8]),
+    truth: usize,
+    place: &str,
+) -> Result<ImageResult> {
+    let tensors = float_ref::run_finite(&conv.graph, px).map_err(|e| e.error(file))?;
+    let logits = tensors.last().cloned().unwrap_or_default();
     let n_layers = outputs.len();
-    let mut signal = vec![0.0; n_layers];
-    let mut noise = vec![0.0; n_layers];
+    let mut obs = Sqnr {
+        source: &conv.quantized.source,
+        outputs,
+        float: &tensors,
+        signal: vec![0.0; n_layers],
+        noise: vec![0.0; n_layers],
+    };
+    let (quantized_top, q_logits) = r.main.run(px, &mut obs, place)?;
+    let fp16 = match r.fp16.as_mut() {
+        Some(h) => {
+            let (top, h_logits) = h.run(px, &mut (), place)?;
+            Some((top, LogitError::of(&logits, &h_logits)))
+        }
+        None => None,
+    };
+    Ok(ImageResult {
+        truth,
+        float_top: argmax(&logits).unwrap_or(0),
+        quantized_top,
+        logits: logits.len().min(q_logits.len()),
+        error: LogitError::of(&logits, &q_logits),
+        signal: obs.signal,
+        noise: obs.noise,
+        fp16,
+    })
+}
+
+/// Add one count to `m[row][col]` (out-of-range indices are not counted).
+fn count(m: &mut [Vec<usize>], row: usize, col: usize) {
+    if let Some(cell) = m.get_mut(row).and_then(|r| r.get_mut(col)) {
+        *cell += 1;
+    }
+}
+
+/// The report from the per-image results, summed in image order.
+fn tally(
+    conv: &Conversion,
+    model: &Model<'_>,
+    outputs: &[usize],
+    results: &[ImageResult],
+    also_fp16: bool,
+) -> Report {
+    let graph = &conv.graph;
+    let q = &conv.quantized;
+    let labels = &graph.labels;
     let k = labels.len();
+    let n_layers = outputs.len();
     let mut confusion = vec![vec![0usize; k]; k];
     let mut float_confusion = vec![vec![0usize; k]; k];
-    let (mut f_ok, mut q_ok, mut agree) = (0, 0, 0);
-    let (mut h_ok, mut h_agree) = (0, 0);
-    let (mut err_sum, mut err_max, mut err_n) = (0.0f64, 0.0f64, 0usize);
-    let (mut h_sum, mut h_max) = (0.0f64, 0.0f64);
-    let bar = progress_bar(progress, files.len() as u64, "evaluating");
-    for (file, truth) in &files {
-        let px = images::load_image(file, &spec)?;
-        let tensors = float_ref::run_finite(graph, &px).map_err(|e| e.error(file))?;
-        let logits = tensors.last().cloned().unwrap_or_default();
-        let f_top = argmax(&logits).unwrap_or(0);
-        let mut obs = Sqnr {
-            source: &q.source,
-            outputs: &outputs,
-            float: &tensors,
-            signal: std::mem::take(&mut signal),
-            noise: std::mem::take(&mut noise),
-        };
-        let (q_top, q_logits) = main.run(&px, &mut obs, &place)?;
-        signal = obs.signal;
-        noise = obs.noise;
-        for (a, b) in logits.iter().zip(&q_logits) {
-            let e = (*a as f64 - *b as f64).abs();
-            err_sum += e;
-            err_max = err_max.max(e);
-            err_n += 1;
+    let mut signal = vec![0.0f64; n_layers];
+    let mut noise = vec![0.0f64; n_layers];
+    let (mut agree, mut err, mut err_n) = (0, LogitError::default(), 0usize);
+    let (mut h_ok, mut h_agree, mut h_err) = (0, 0, LogitError::default());
+    for r in results {
+        count(&mut confusion, r.truth, r.quantized_top);
+        count(&mut float_confusion, r.truth, r.float_top);
+        agree += (r.float_top == r.quantized_top) as usize;
+        err.add(r.error);
+        err_n += r.logits;
+        for (total, x) in signal.iter_mut().zip(&r.signal) {
+            *total += x;
         }
-        f_ok += (f_top == *truth) as usize;
-        q_ok += (q_top == *truth) as usize;
-        agree += (f_top == q_top) as usize;
-        if let Some(cell) = confusion.get_mut(*truth).and_then(|r| r.get_mut(q_top)) {
-            *cell += 1;
+        for (total, x) in noise.iter_mut().zip(&r.noise) {
+            *total += x;
         }
-        if let Some(cell) = float_confusion
-            .get_mut(*truth)
-            .and_then(|r| r.get_mut(f_top))
-        {
-            *cell += 1;
+        if let Some((top, e)) = r.fp16 {
+            h_ok += (top == r.truth) as usize;
+            h_agree += (top == r.float_top) as usize;
+            h_err.add(e);
         }
-        if let Some(r) = fp16.as_mut() {
-            let (h_top, h_logits) = r.run(&px, &mut (), &place)?;
-            h_ok += (h_top == *truth) as usize;
-            h_agree += (h_top == f_top) as usize;
-            for (a, b) in logits.iter().zip(&h_logits) {
-                let e = (*a as f64 - *b as f64).abs();
-                h_sum += e;
-                h_max = h_max.max(e);
-            }
-        }
-        bar.inc(1);
     }
-    bar.finish_and_clear();
-    let n = files.len();
-    let float_top1 = pct(f_ok, n);
-    let quantized_top1 = pct(q_ok, n);
+    let n = results.len();
+    let right =
+        |top: fn(&ImageResult) -> usize| results.iter().filter(|r| top(r) == r.truth).count();
+    let float_top1 = pct(right(|r| r.float_top), n);
+    let quantized_top1 = pct(right(|r| r.quantized_top), n);
+    let mean = |e: LogitError| if err_n > 0 { e.sum / err_n as f64 } else { 0.0 };
     let per_class = labels
         .iter()
         .enumerate()
         .map(|(c, l)| {
-            let count = files.iter().filter(|(_, t)| *t == c).count();
+            let images = results.iter().filter(|r| r.truth == c).count();
             ClassRow {
                 label: l.clone(),
-                images: count,
-                float_top1: pct(float_confusion[c][c], count),
-                quantized_top1: pct(confusion[c][c], count),
+                images,
+                float_top1: pct(float_confusion[c][c], images),
+                quantized_top1: pct(confusion[c][c], images),
             }
         })
         .collect();
-    let model = Model::parse(&main.bytes)
-        .map_err(|e| Error::new(&place, format!("the runtime rejects the model: {e}")))?;
     let layers = (0..n_layers)
         .map(|i| {
             let h = model.layer(i).map(|l| l.header);
@@ -341,7 +440,7 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
             }
         })
         .collect();
-    Ok(Report {
+    Report {
         model: graph.name.clone(),
         images: n,
         precision: precision_name(graph),
@@ -349,18 +448,14 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
         quantized_top1,
         drop_pp: float_top1 - quantized_top1,
         agreement: pct(agree, n),
-        mean_abs_logit_error: if err_n > 0 {
-            err_sum / err_n as f64
-        } else {
-            0.0
-        },
-        max_abs_logit_error: err_max,
-        fp16: fp16.map(|_| Fp16Row {
+        mean_abs_logit_error: mean(err),
+        max_abs_logit_error: err.max,
+        fp16: also_fp16.then(|| Fp16Row {
             top1: pct(h_ok, n),
             drop_pp: float_top1 - pct(h_ok, n),
             agreement: pct(h_agree, n),
-            mean_abs_logit_error: if err_n > 0 { h_sum / err_n as f64 } else { 0.0 },
-            max_abs_logit_error: h_max,
+            mean_abs_logit_error: mean(h_err),
+            max_abs_logit_error: h_err.max,
         }),
         per_class,
         labels: labels.clone(),
@@ -370,7 +465,7 @@ pub fn evaluate(conv: &Conversion, dir: &Path, also_fp16: bool, progress: bool) 
         workspace_len: q.plan.workspace_len,
         workspace_lower_bound: q.plan.lower_bound,
         model_bytes: q.bytes.len(),
-    })
+    }
 }
 
 /// 10·log10(signal / noise); `None` when the noise is zero.

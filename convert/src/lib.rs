@@ -4,6 +4,7 @@
 
 pub mod budget;
 pub mod calibrate;
+pub mod classify;
 pub mod cli;
 pub mod compare;
 pub mod description;
@@ -19,6 +20,7 @@ pub mod images;
 pub mod limits;
 pub mod onnx;
 pub mod output;
+pub mod parallel;
 pub mod plan;
 pub mod quantize;
 pub mod synth;

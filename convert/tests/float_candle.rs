@@ -755,3 +755,47 @@ fn repository_models_with_weights_match_candle() {
         }
     }
 }
+
+#[test]
+fn float_classify_logits_match_candle() {
+    // `midge classify model.toml` (the float reference) against candle-core
+    // 0.11 conv2d/linear as the outside reference, on the bundled caps
+    // models and validation images of every class.
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("../models/caps");
+    for file in ["plain.toml", "separable.toml"] {
+        let path = root.join(file);
+        let d = Description::load(&path).unwrap();
+        let tensors = TensorMap::load(d.weights.as_ref().unwrap()).unwrap();
+        let mut pt = Pt::new();
+        for (name, _) in d.expected_tensors().unwrap() {
+            let t = tensors.get(&name).unwrap();
+            pt.insert(name, (t.shape.clone(), t.data.clone()));
+        }
+        // The first two images (by name) of every class.
+        let mut imgs: Vec<std::path::PathBuf> = Vec::new();
+        for l in &d.labels {
+            let mut files: Vec<_> = std::fs::read_dir(root.join("val").join(l))
+                .unwrap()
+                .map(|e| e.unwrap().path())
+                .collect();
+            files.sort();
+            imgs.extend(files.into_iter().take(2));
+        }
+        assert_eq!(imgs.len(), 2 * d.labels.len(), "{imgs:?}");
+        let ours = midge_convert::classify::classify_float(&path, &imgs, false).unwrap();
+        assert_eq!(ours.source, "float");
+        let last = d.topology().unwrap().last().unwrap().name.clone();
+        let spec = midge_convert::quantize::image_spec(&d);
+        for (r, img) in ours.images.iter().zip(&imgs) {
+            let px = midge_convert::images::load_image(img, &spec).unwrap();
+            let theirs = to_hwc(&candle_run(&d, &pt, &px)[&last]);
+            assert_close(
+                &format!("{file} {}", img.display()),
+                &r.logits,
+                &theirs,
+                TOL,
+            );
+            assert!(r.raw.is_none());
+        }
+    }
+}
