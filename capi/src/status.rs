@@ -48,9 +48,8 @@ pub enum MidgeStatus {
     LengthTooLarge = 16,
 }
 
-impl MidgeStatus {
-    /// Every code, in value order.
-    pub const ALL: [MidgeStatus; 17] = [
+/// Every code, in value order.
+const ALL: [MidgeStatus; 17] = [
         MidgeStatus::Ok,
         MidgeStatus::NullArgument,
         MidgeStatus::Misaligned,
@@ -68,8 +67,9 @@ impl MidgeStatus {
         MidgeStatus::IndexOutOfRange,
         MidgeStatus::OutputLength,
         MidgeStatus::LengthTooLarge,
-    ];
+];
 
+impl MidgeStatus {
     /// The text of this code, NUL-terminated.
     pub const fn text(self) -> &'static [u8] {
         match self {
@@ -128,7 +128,7 @@ const UNKNOWN: &[u8] = b"unknown status code\0";
 /// unknown code gives "unknown status code").
 #[no_mangle]
 pub extern "C" fn midge_status_text(status: i32) -> *const c_char {
-    let text = MidgeStatus::ALL
+    let text = ALL
         .iter()
         .find(|s| **s as i32 == status)
         .map_or(UNKNOWN, |s| s.text());
@@ -141,13 +141,13 @@ mod tests {
 
     #[test]
     fn codes_are_their_index_and_texts_are_one_nul_terminated_line() {
-        for (i, s) in MidgeStatus::ALL.iter().enumerate() {
+        for (i, s) in ALL.iter().enumerate() {
             assert_eq!(*s as i32, i as i32);
             let t = s.text();
             assert_eq!(t.iter().position(|&b| b == 0), Some(t.len() - 1), "{s:?}");
             assert!(t[..t.len() - 1].iter().all(|b| (0x20..0x7f).contains(b)));
         }
-        let unknown = midge_status_text(MidgeStatus::ALL.len() as i32);
+        let unknown = midge_status_text(ALL.len() as i32);
         assert_eq!(unknown, UNKNOWN.as_ptr().cast());
         assert_eq!(midge_status_text(-1), UNKNOWN.as_ptr().cast());
         assert_eq!(midge_status_text(7), MidgeStatus::CrcMismatch.text().as_ptr().cast());
