@@ -3,6 +3,7 @@
 //! flat layout through midge-runtime, and measures the accuracy drop.
 
 pub mod budget;
+pub mod c_firmware;
 pub mod calibrate;
 pub mod cli;
 pub mod compare;
