@@ -86,7 +86,13 @@ pub struct MidgeTensorInfo {
 /// tensor after. `user` is the caller's pointer, passed through. It must
 /// return normally (no longjmp) and must not write the workspace.
 pub type MidgeLayerHook = Option<
-    unsafe extern "C" fn(user: *mut c_void, layer: u32, phase: u32, output: *const u8, output_len: usize),
+    unsafe extern "C" fn(
+        user: *mut c_void,
+        layer: u32,
+        phase: u32,
+        output: *const u8,
+        output_len: usize,
+    ),
 >;
 
 /// Bytes `[ptr, ptr + len)` as a slice after the checks safe code can make.
@@ -111,7 +117,9 @@ unsafe fn bytes_in<'a>(ptr: *const u8, len: usize) -> Result<&'a [u8], MidgeStat
 ///
 /// # Safety
 /// `handle` (when not NULL) must point to a `MidgeModel` readable for `'a`.
-unsafe fn open_model<'a>(handle: *const MidgeModel) -> Result<&'a Model<'static, OPS>, MidgeStatus> {
+unsafe fn open_model<'a>(
+    handle: *const MidgeModel,
+) -> Result<&'a Model<'static, OPS>, MidgeStatus> {
     if handle.is_null() {
         return Err(MidgeStatus::NullArgument);
     }
@@ -155,7 +163,11 @@ unsafe fn handle_out(handle: *mut MidgeModel) -> Result<*mut MidgeModel, MidgeSt
 /// `handle` must point to a writable `MidgeModel`; `bytes` to `len` readable
 /// bytes that stay in place and unchanged while the handle (or a copy) is used.
 #[no_mangle]
-pub unsafe extern "C" fn midge_open(handle: *mut MidgeModel, bytes: *const u8, len: usize) -> MidgeStatus {
+pub unsafe extern "C" fn midge_open(
+    handle: *mut MidgeModel,
+    bytes: *const u8,
+    len: usize,
+) -> MidgeStatus {
     // SAFETY: as this function's contract.
     let handle = match unsafe { handle_out(handle) } {
         Ok(h) => h,
@@ -250,7 +262,10 @@ unsafe fn tensor_info(
 /// # Safety
 /// `handle` must point to a `MidgeModel`, `out` to a writable `MidgeTensorInfo`.
 #[no_mangle]
-pub unsafe extern "C" fn midge_input_info(handle: *const MidgeModel, out: *mut MidgeTensorInfo) -> MidgeStatus {
+pub unsafe extern "C" fn midge_input_info(
+    handle: *const MidgeModel,
+    out: *mut MidgeTensorInfo,
+) -> MidgeStatus {
     // SAFETY: as this function's contract.
     unsafe { tensor_info(handle, out, |m| m.input()) }
 }
@@ -260,7 +275,10 @@ pub unsafe extern "C" fn midge_input_info(handle: *const MidgeModel, out: *mut M
 /// # Safety
 /// `handle` must point to a `MidgeModel`, `out` to a writable `MidgeTensorInfo`.
 #[no_mangle]
-pub unsafe extern "C" fn midge_output_info(handle: *const MidgeModel, out: *mut MidgeTensorInfo) -> MidgeStatus {
+pub unsafe extern "C" fn midge_output_info(
+    handle: *const MidgeModel,
+    out: *mut MidgeTensorInfo,
+) -> MidgeStatus {
     // SAFETY: as this function's contract.
     unsafe { tensor_info(handle, out, |m| m.output()) }
 }
@@ -375,14 +393,30 @@ impl Observer for Hooks {
         if let Some(f) = self.hook {
             // SAFETY: a C function of the MidgeLayerHook type the caller
             // passed, called with its own user pointer and no output.
-            unsafe { f(self.user, index as u32, MIDGE_BEFORE_LAYER, core::ptr::null(), 0) };
+            unsafe {
+                f(
+                    self.user,
+                    index as u32,
+                    MIDGE_BEFORE_LAYER,
+                    core::ptr::null(),
+                    0,
+                )
+            };
         }
     }
     fn after_layer(&mut self, index: usize, _output: &TensorRecord, bytes: &[u8]) {
         if let Some(f) = self.hook {
             // SAFETY: as in `before_layer`; `bytes` is a live slice for the
             // duration of the call.
-            unsafe { f(self.user, index as u32, MIDGE_AFTER_LAYER, bytes.as_ptr(), bytes.len()) };
+            unsafe {
+                f(
+                    self.user,
+                    index as u32,
+                    MIDGE_AFTER_LAYER,
+                    bytes.as_ptr(),
+                    bytes.len(),
+                )
+            };
         }
     }
 }

@@ -50,23 +50,23 @@ pub enum MidgeStatus {
 
 /// Every code, in value order.
 const ALL: [MidgeStatus; 17] = [
-        MidgeStatus::Ok,
-        MidgeStatus::NullArgument,
-        MidgeStatus::Misaligned,
-        MidgeStatus::NotOpen,
-        MidgeStatus::Truncated,
-        MidgeStatus::BadMagic,
-        MidgeStatus::UnsupportedVersion,
-        MidgeStatus::CrcMismatch,
-        MidgeStatus::InvalidModel,
-        MidgeStatus::NotLinked,
-        MidgeStatus::InputLength,
-        MidgeStatus::WorkspaceLength,
-        MidgeStatus::WorkspaceMisaligned,
-        MidgeStatus::Overlap,
-        MidgeStatus::IndexOutOfRange,
-        MidgeStatus::OutputLength,
-        MidgeStatus::LengthTooLarge,
+    MidgeStatus::Ok,
+    MidgeStatus::NullArgument,
+    MidgeStatus::Misaligned,
+    MidgeStatus::NotOpen,
+    MidgeStatus::Truncated,
+    MidgeStatus::BadMagic,
+    MidgeStatus::UnsupportedVersion,
+    MidgeStatus::CrcMismatch,
+    MidgeStatus::InvalidModel,
+    MidgeStatus::NotLinked,
+    MidgeStatus::InputLength,
+    MidgeStatus::WorkspaceLength,
+    MidgeStatus::WorkspaceMisaligned,
+    MidgeStatus::Overlap,
+    MidgeStatus::IndexOutOfRange,
+    MidgeStatus::OutputLength,
+    MidgeStatus::LengthTooLarge,
 ];
 
 impl MidgeStatus {
@@ -82,9 +82,7 @@ impl MidgeStatus {
             MidgeStatus::UnsupportedVersion => b"model format version not supported\0",
             MidgeStatus::CrcMismatch => b"model CRC-32 mismatch: the bytes are damaged\0",
             MidgeStatus::InvalidModel => b"model file is inconsistent\0",
-            MidgeStatus::NotLinked => {
-                b"model needs an op this library build does not link\0"
-            }
+            MidgeStatus::NotLinked => b"model needs an op this library build does not link\0",
             MidgeStatus::InputLength => b"input length is not the model's input size\0",
             MidgeStatus::WorkspaceLength => b"workspace shorter than midge_workspace_size\0",
             MidgeStatus::WorkspaceMisaligned => b"workspace not 8-byte aligned\0",
@@ -150,6 +148,9 @@ mod tests {
         let unknown = midge_status_text(ALL.len() as i32);
         assert_eq!(unknown, UNKNOWN.as_ptr().cast());
         assert_eq!(midge_status_text(-1), UNKNOWN.as_ptr().cast());
-        assert_eq!(midge_status_text(7), MidgeStatus::CrcMismatch.text().as_ptr().cast());
+        assert_eq!(
+            midge_status_text(7),
+            MidgeStatus::CrcMismatch.text().as_ptr().cast()
+        );
     }
 }

@@ -57,7 +57,9 @@ pub fn unavailable(triple: &str) -> Option<String> {
             .status()
             .is_ok_and(|s| s.success());
         if !runs {
-            return Some(format!("{tool}: not installed; install with `{INSTALL_GCC}`"));
+            return Some(format!(
+                "{tool}: not installed; install with `{INSTALL_GCC}`"
+            ));
         }
     }
     None

@@ -72,7 +72,10 @@ fn c_example_matches_the_host_on_200_caps_inputs_int8_and_fp16_on_m4() {
         let mut classes = vec![0usize; model.output().shape.elems()];
         for (k, input) in inputs.iter().enumerate() {
             let host = model.run(input, &mut ws).unwrap();
-            assert_eq!(run.outputs[k], host, "{precision:?} input {k}: C firmware ≠ host");
+            assert_eq!(
+                run.outputs[k], host,
+                "{precision:?} input {k}: C firmware ≠ host"
+            );
             classes[exec::top1(&model.output(), host).unwrap().0] += 1;
         }
         // The per-layer hook timed every layer of every run; layers with MACs
