@@ -4,6 +4,7 @@
 
 pub mod budget;
 pub mod c_firmware;
+pub mod c_source;
 pub mod calibrate;
 pub mod cli;
 pub mod compare;
