@@ -9,10 +9,10 @@ use clap::{Parser, Subcommand, ValueEnum};
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::{ElemType, Model, Op};
 
+use crate::c_source;
 use crate::calibrate::RangeMethod;
 use crate::compare::{self, op_name, CompareOptions};
 use crate::error::{escape, escape_path, Error, Result};
-use crate::c_source;
 use crate::firmware_module;
 use crate::graph::Precision;
 use crate::images::{self, ImageSpec};
