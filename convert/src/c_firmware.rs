@@ -72,8 +72,15 @@ pub fn build(triple: &str, ops: OpSet) -> Result<PathBuf> {
     let map = BUILDS.get_or_init(|| Mutex::new(HashMap::new()));
     let mut map = map.lock().unwrap_or_else(|p| p.into_inner());
     map.entry((triple.to_string(), ops.bits()))
-        .or_insert_with(|| build_now(triple, ops))
+        .or_insert_with(|| build_now(triple, ops, None))
         .clone()
+}
+
+/// The C example built with the model in flash: `model_c` is a `model.c`
+/// written by `midge quantize --c-source` (its `model.h` beside it); the ELF
+/// is written into `model_c`'s folder. Not cached.
+pub fn build_embedded(triple: &str, ops: OpSet, model_c: &Path) -> Result<PathBuf> {
+    build_now(triple, ops, Some(model_c))
 }
 
 fn run_step(cmd: &mut Command, what: &str) -> Result<()> {
@@ -93,7 +100,7 @@ fn run_step(cmd: &mut Command, what: &str) -> Result<()> {
     Err(Error::new(what, format!("failed: {first}")))
 }
 
-fn build_now(triple: &str, ops: OpSet) -> Result<PathBuf> {
+fn build_now(triple: &str, ops: OpSet, model_c: Option<&Path>) -> Result<PathBuf> {
     if let Some(why) = unavailable(triple) {
         return Err(Error::new("C example", why));
     }
@@ -114,16 +121,20 @@ fn build_now(triple: &str, ops: OpSet) -> Result<PathBuf> {
         &format!("cargo build -p midge-c --target {triple}"),
     )?;
     let lib = target.join(triple).join("c-lib").join("libmidge_c.a");
-    let out = target.join(triple).join("example");
-    run_step(
-        Command::new("make")
-            .arg("-C")
-            .arg(example_dir())
-            .arg("--quiet")
-            .arg(format!("CPU={cpu}"))
-            .arg(format!("LIB={}", lib.display()))
-            .arg(format!("OUT={}", out.display())),
-        &format!("make -C {}", example_dir().display()),
-    )?;
+    let out = match model_c.and_then(Path::parent) {
+        Some(dir) => dir.to_path_buf(),
+        None => target.join(triple).join("example"),
+    };
+    let mut make = Command::new("make");
+    make.arg("-C")
+        .arg(example_dir())
+        .arg("--quiet")
+        .arg(format!("CPU={cpu}"))
+        .arg(format!("LIB={}", lib.display()))
+        .arg(format!("OUT={}", out.display()));
+    if let Some(m) = model_c {
+        make.arg(format!("MODEL_C={}", m.display()));
+    }
+    run_step(&mut make, &format!("make -C {}", example_dir().display()))?;
     Ok(out.join("midge-c-example.elf"))
 }

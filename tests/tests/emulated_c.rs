@@ -125,3 +125,44 @@ fn c_example_links_for_m0plus() {
     let elf = c_firmware::build(triple, OpSet::ALL).unwrap();
     assert!(std::fs::metadata(&elf).unwrap().len() > 0);
 }
+
+/// The model in flash: `midge quantize --c-source model.c`'s pair compiled
+/// into the C example (the model read from the 8-byte aligned const array,
+/// not from the job block) gives the host's outputs on 20 caps inputs.
+#[test]
+fn c_example_with_the_model_from_c_source_matches_the_host() {
+    let triple = "thumbv7em-none-eabihf";
+    if let Some(why) = unavailable(triple) {
+        firmware::may_skip(&why).unwrap();
+        println!("skipped: C example on mps2-an386 not possible here: {why}");
+        return;
+    }
+    let (bytes, inputs) = caps(Precision::Int8, 20);
+    let aligned = AlignedBytes::from_slice(&bytes);
+    let model = Model::parse(&aligned).unwrap();
+    let dir = std::env::temp_dir().join(format!("midge-c-embedded-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let model_c = dir.join("model.c");
+    let spec = midge_runtime::write::ModelSpec::from_model(&model);
+    let (c, h) = midge_convert::c_source::c_sources(&spec, model.op_set(), &bytes, &model_c);
+    std::fs::write(&model_c, c).unwrap();
+    std::fs::write(dir.join("model.h"), h).unwrap();
+    let elf = c_firmware::build_embedded(triple, model.op_set(), &model_c).unwrap();
+    // The job block's own model is damaged: only the embedded one can give these outputs.
+    let mut damaged = bytes.clone();
+    let last = damaged.len() - 1;
+    damaged[last] ^= 0x5a;
+    let refs: Vec<&[u8]> = inputs.iter().map(|v| v.as_slice()).collect();
+    let job = firmware::job_block(&damaged, &refs, model.workspace_len()).unwrap();
+    let run = firmware::run("mps2-an386", &elf, &job, Duration::from_secs(300)).unwrap();
+    let mut ws = AlignedBytes::zeroed(model.workspace_len());
+    assert_eq!(run.outputs.len(), inputs.len());
+    for (k, input) in inputs.iter().enumerate() {
+        assert_eq!(
+            run.outputs[k],
+            model.run(input, &mut ws).unwrap(),
+            "input {k}"
+        );
+    }
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -1,13 +1,17 @@
 /* The C example firmware: opens the model the host's loader placed in the job block at
-   0x2010_0000 (the layout of bench/firmware/src/lib.rs), runs every input with per-layer
-   SysTick readings from the layer hook, and prints the harness line protocol that
-   midge_convert::firmware::parse_report reads, over semihosting. */
+   0x2010_0000 (the layout of bench/firmware/src/lib.rs), or with MIDGE_EMBEDDED_MODEL the
+   one `midge quantize --c-source model.c` put in flash, runs every input of the job with
+   per-layer SysTick readings from the layer hook, and prints over semihosting the harness
+   line protocol that midge_convert::firmware::parse_report reads. */
 #include <stddef.h>
 #include <stdint.h>
 #include <string.h>
 
 #include "midge.h"
 #include "semihost.h"
+#ifdef MIDGE_EMBEDDED_MODEL
+#include "model.h" /* written by `midge quantize --c-source model.c` */
+#endif
 
 /* The job block: 64-byte header ("midgejob", then little-endian u32 version 1, model
    offset, model length, input offset, input length, input count, workspace offset). */
@@ -140,7 +144,13 @@ int main(void) {
         return 1;
     }
 
+#ifdef MIDGE_EMBEDDED_MODEL
+    (void)model_off;
+    (void)model_len;
+    int32_t status = midge_open(&model, model_model, model_model_len);
+#else
     int32_t status = midge_open(&model, job + model_off, model_len);
+#endif
     if (status != MIDGE_STATUS_OK) {
         return fail("model", status);
     }
