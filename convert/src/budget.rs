@@ -78,6 +78,9 @@ pub struct Budget {
     /// The (op, precision) pairs the model uses (`op/precision`): the op set
     /// the measured firmware links, so the runtime items are this model's code.
     pub op_set: Vec<String>,
+    /// The C example firmware's sizes beside the Rust harness's, when the
+    /// Arm C toolchain is installed (not part of the bill).
+    pub c_firmware: Option<footprint::CFirmwareCost>,
 }
 
 /// Sums `flash` and `ram` and compares them with the target's limits: a
@@ -129,6 +132,7 @@ pub fn verdict(
         instructions: None,
         estimated_ms: None,
         op_set: Vec::new(),
+        c_firmware: None,
     })
 }
 
@@ -248,6 +252,12 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
         });
     let mut budget = verdict(target, &fp.name, flash, ram, peak)?;
     budget.op_set = footprint::op_set_names(ops);
+    if runtime.is_ok() && crate::c_firmware::unavailable(triple).is_none() {
+        match footprint::c_firmware_cost(triple, ops) {
+            Ok(c) => budget.c_firmware = Some(c),
+            Err(e) => firmware::may_skip(&format!("C firmware on {triple}: {e}"))?,
+        }
+    }
     if let Ok(run) = &emulated {
         let instr: u64 = run.layer_instructions(0).iter().sum();
         budget.instructions = Some(instr);
@@ -376,6 +386,17 @@ impl Budget {
                 p.op,
                 fmt_bytes(p.live_bytes)
             );
+        }
+        if let Some(c) = &self.c_firmware {
+            let line = |what: &str, e: &footprint::ElfSizes| {
+                format!(
+                    "  {what:<40} .text {:>8}  .rodata {:>7}  .data {:>5}  .bss {:>6}\n",
+                    e.text, e.rodata, e.data, e.bss
+                )
+            };
+            s += &format!("\nwhole firmware on {} (bytes, same op set):\n", c.triple);
+            s += &line("C firmware (capi/examples/mps2)", &c.c_example);
+            s += &line("Rust harness (bench/firmware)", &c.rust_harness);
         }
         if let (Some(i), Some(ms)) = (self.instructions, self.estimated_ms) {
             s += &format!("emulated: {i} instructions per inference; estimate {ms:.2} ms (CPI factor of the profile)\n");

@@ -9,6 +9,7 @@ use clap::{Parser, Subcommand, ValueEnum};
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::{ElemType, Model, Op};
 
+use crate::c_source;
 use crate::calibrate::RangeMethod;
 use crate::compare::{self, op_name, CompareOptions};
 use crate::error::{escape, escape_path, Error, Result};
@@ -146,6 +147,10 @@ pub struct QuantizeArgs {
     /// Also write a Rust module embedding the model (for firmware crates).
     #[arg(long, value_name = "FILE")]
     pub rust_module: Option<PathBuf>,
+    /// Also write the model as C source: this `.c` file (the bytes as an
+    /// 8-byte aligned const array) and a `.h` beside it (sizes as macros).
+    #[arg(long, value_name = "FILE")]
+    pub c_source: Option<PathBuf>,
 }
 
 #[derive(clap::Args, Debug)]
@@ -254,24 +259,38 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
         .output
         .clone()
         .unwrap_or_else(|| default_output(&a.description));
+    let c_header = a.c_source.as_deref().map(c_source::header_path);
     let mut outs: Vec<&Path> = vec![&out];
     outs.extend(a.rust_module.as_deref());
+    outs.extend(a.c_source.as_deref());
+    outs.extend(c_header.as_deref());
     output::check_destinations(&outs, &[&a.description])?;
     let conv = quantize::quantize_description(&a.description, &opts)?;
     let q = &conv.quantized;
+    let aligned = AlignedBytes::from_slice(&q.bytes);
+    let ops = || -> Result<midge_runtime::OpSet> {
+        Model::parse(&aligned)
+            .map(|m| m.op_set())
+            .map_err(|e| Error::new(out.display().to_string(), e.to_string()))
+    };
     let module = match &a.rust_module {
         Some(m) => {
-            let aligned = AlignedBytes::from_slice(&q.bytes);
-            let model = Model::parse(&aligned)
-                .map_err(|e| Error::new(out.display().to_string(), e.to_string()))?;
-            let text = firmware_module::module_source(&q.spec, model.op_set(), &out, m);
+            let text = firmware_module::module_source(&q.spec, ops()?, &out, m);
             Some((m.clone(), text))
         }
         None => None,
     };
+    let c_files = match (&a.c_source, &c_header) {
+        (Some(c), Some(h)) => Some((c, h, c_source::c_sources(&q.spec, ops()?, &q.bytes, c))),
+        _ => None,
+    };
     let mut files: Vec<(&Path, &[u8])> = vec![(&out, &q.bytes)];
     if let Some((path, text)) = &module {
         files.push((path, text.as_bytes()));
+    }
+    if let Some((c, h, (c_text, h_text))) = &c_files {
+        files.push((c, c_text.as_bytes()));
+        files.push((h, h_text.as_bytes()));
     }
     output::write_outputs(&files, &conv.inputs(&a.description))?;
     for w in &conv.warnings {
@@ -313,6 +332,9 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
     );
     if let Some((path, _)) = &module {
         println!("rust module: {}", escape_path(path));
+    }
+    if let Some((c, h, _)) = &c_files {
+        println!("c source: {} and {}", escape_path(c), escape_path(h));
     }
     Ok(0)
 }

@@ -126,6 +126,29 @@ pub fn runtime_cost(triple: &str, ops: OpSet) -> Result<RuntimeCost> {
     })
 }
 
+/// Whole-ELF sizes of the C example firmware (capi/examples/mps2 with the
+/// midge-c library linking one op set) beside the Rust harness's, which
+/// does the same job (job block, per-layer timing, semihosting output).
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct CFirmwareCost {
+    pub triple: String,
+    pub c_example: ElfSizes,
+    pub rust_harness: ElfSizes,
+}
+
+/// Builds both firmwares for `triple` linking `ops` and reads their sizes.
+pub fn c_firmware_cost(triple: &str, ops: OpSet) -> Result<CFirmwareCost> {
+    let read = |p: &std::path::Path| -> Result<ElfSizes> {
+        let b = crate::files::read(p, &crate::limits::ELF_FILE)?;
+        elf_sizes(&b, &p.display().to_string())
+    };
+    Ok(CFirmwareCost {
+        triple: triple.to_string(),
+        c_example: read(&crate::c_firmware::build(triple, ops)?)?,
+        rust_harness: read(&firmware::build(triple, ops)?.harness)?,
+    })
+}
+
 /// The pairs of an op set as `op/precision` (e.g. `conv2d/int8`), in op-code order.
 pub fn op_set_names(ops: OpSet) -> Vec<String> {
     ops.iter()

@@ -3,6 +3,8 @@
 //! flat layout through midge-runtime, and measures the accuracy drop.
 
 pub mod budget;
+pub mod c_firmware;
+pub mod c_source;
 pub mod calibrate;
 pub mod classify;
 pub mod cli;

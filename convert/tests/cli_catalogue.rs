@@ -1114,6 +1114,25 @@ fn hostile_catalogue() -> Vec<Case> {
             expect: &["gone/model.rs", "cannot write"],
         },
         Case {
+            name: "--c-source whose header is a folder (previous -o kept)",
+            prepare: |d| {
+                fs::create_dir(d.join("model.h")).unwrap();
+                let mut a = quantize(d);
+                a.extend(args(&["--c-source", &s(&d.join("model.c"))]));
+                a
+            },
+            expect: &["model.h", "is a folder", "regular files"],
+        },
+        Case {
+            name: "--c-source names the header it would write",
+            prepare: |d| {
+                let mut a = quantize(d);
+                a.extend(args(&["--c-source", &s(&d.join("model.h"))]));
+                a
+            },
+            expect: &["model.h", "names the same file as the output"],
+        },
+        Case {
             name: "-o and --rust-module name the same file",
             prepare: |d| {
                 let mut a = quantize(d);
