@@ -74,8 +74,11 @@ const OCB: usize = 64;
 /// Channels per block of the depthwise driver (one tap table per pixel and
 /// block; its constants stay below the conv2d driver's stack use).
 const DW_BLOCK: usize = 256;
-/// Bytes of the row-padded weight copy (see `conv2d`).
-const WBUF: usize = 2048;
+/// Bytes of the row-padded weight copy (see `conv2d`): enough for the
+/// first layers of the bundled models (3×3 windows over 1–3 channels, up to
+/// 16 output channels at 3 channels); a layer whose copy does not fit sums
+/// the last values of its window one by one instead.
+const WBUF: usize = 1024;
 
 /// Sign-extended 16-bit halves `(lo, hi)` in one word.
 #[inline]

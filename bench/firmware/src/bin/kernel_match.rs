@@ -1,6 +1,8 @@
 //! On-target kernel equality: random int8 conv2d and depthwise layers (odd
-//! channel counts, windows not a multiple of 4 long, padding, strides,
-//! dilation, pointwise, extreme values and zero points, wrapping sums)
+//! channel counts, windows not a multiple of 4 long, windows of up to 405
+//! values, odd channel counts whose row-padded weight copy does not fit,
+//! first layers with 1–3 input channels, padding, strides, dilation, pointwise,
+//! extreme values and zero points, wrapping sums)
 //! through the micro-kernel drivers with this target's kernel and with the
 //! portable one, every 4th case also through the reference loop nests; all
 //! must agree byte for byte. Prints `kernel-match dsp=<0|1> cases=<n> mismatches=<m>`
@@ -18,10 +20,13 @@ use panic_halt as _;
 
 /// Random cases run (the check asks for at least 1 000).
 const CASES: u32 = 1200;
-const MAX_X: usize = 7 * 7 * 21;
-const MAX_W: usize = 9 * 3 * 3 * 21;
+/// Most input channels (a 3×3 window of 405 values).
+const MAX_C: usize = 45;
+const MAX_X: usize = 7 * 7 * MAX_C;
+/// Weight bound: 20 output channels × 3×3×21, or 9 × 3×3×45.
+const MAX_W: usize = 20 * 3 * 3 * 21;
 /// Output bound: 7 + 2 + 2 padded rows and columns with a 1×1 window.
-const MAX_Y: usize = 11 * 11 * 21;
+const MAX_Y: usize = 11 * 11 * MAX_C;
 
 /// xorshift32: a small deterministic generator (common practice).
 struct Rng(u32);
@@ -68,8 +73,8 @@ fn main() -> ! {
     let mut rng = Rng(0x2545_f491);
     let mut x = [0i8; MAX_X];
     let mut w = [0i8; MAX_W];
-    let mut bias = [0i32; 21];
-    let mut rq = [0i32; 42];
+    let mut bias = [0i32; MAX_C];
+    let mut rq = [0i32; 2 * MAX_C];
     let (mut y_sel, mut y_port, mut y_ref) = ([0i8; MAX_Y], [0i8; MAX_Y], [0i8; MAX_Y]);
     let mut cases = 0u32;
     let mut mismatches = 0u32;
@@ -88,8 +93,19 @@ fn main() -> ! {
             )
         };
         let (ih, iw) = (r(&mut rng, 1, 7), r(&mut rng, 1, 7));
-        let ic = r(&mut rng, 1, 21);
-        let oc = r(&mut rng, 1, 9);
+        let ic = match rng.next() % 8 {
+            // Long windows and first layers.
+            0 => r(&mut rng, 22, MAX_C as i32),
+            1 => r(&mut rng, 1, 3),
+            _ => r(&mut rng, 1, 21),
+        };
+        // Now and then more output channels (with odd channel counts the
+        // row-padded weight copy then may not fit).
+        let oc = if rng.next().is_multiple_of(6) {
+            r(&mut rng, 17, 20)
+        } else {
+            r(&mut rng, 1, 9)
+        };
         let Some((oh, ow)) = win.output_hw(ih, iw) else {
             continue;
         };
