@@ -393,3 +393,54 @@ fn int8_finish_uses_exact_requantization() {
     // −512·2^30/2^40 = −0.5 → 0 (ties toward +∞); plus 3 → 3.
     assert_eq!(a.finish(-512, 0), 3);
 }
+
+/// `axis_range` (the in-bounds taps of one output position as a range, its
+/// edge case divided in 32 bits) against `tap` tap by tap: small windows
+/// exhaustively, and windows at the u16 limits of the format's fields.
+#[test]
+fn axis_range_equals_taps() {
+    let check = |o: usize, k: u16, s: u16, d: u16, p: u16, len: usize| {
+        let (lo, hi) = kernels::axis_range(o, k as usize, s, d, p, len);
+        assert!(lo <= hi && hi <= k as usize, "{o} {k} {s} {d} {p} {len}");
+        for t in 0..k as usize {
+            let inside = tap(o, t, s, d, p, len).is_some();
+            assert_eq!(
+                inside,
+                (lo..hi).contains(&t),
+                "{o} {k} {s} {d} {p} {len} tap {t}"
+            );
+        }
+    };
+    for k in 1..=5 {
+        for s in 1..=3 {
+            for d in 1..=3 {
+                for p in 0..=4 {
+                    for len in 1..=7 {
+                        for o in 0..=8 {
+                            check(o, k, s, d, p, len);
+                        }
+                    }
+                }
+            }
+        }
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(9);
+    for _ in 0..2_000 {
+        let k = if rng.gen_bool(0.01) {
+            u16::MAX
+        } else {
+            rng.gen_range(1..=300u16)
+        };
+        let big = |rng: &mut ChaCha8Rng| {
+            if rng.gen_bool(0.5) {
+                u16::MAX - rng.gen_range(0..4)
+            } else {
+                rng.gen_range(1..=u16::MAX)
+            }
+        };
+        let (s, d, p) = (big(&mut rng), big(&mut rng), big(&mut rng));
+        let len = rng.gen_range(1..=u16::MAX as usize);
+        let o = rng.gen_range(0..=u16::MAX as usize);
+        check(o, k, s, d, p, len);
+    }
+}

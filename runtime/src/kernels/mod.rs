@@ -138,10 +138,23 @@ fn axis_range_edge(base: i64, k: usize, dil: u16, len: usize) -> (usize, usize) 
             (0, 0)
         };
     }
-    // First k with base + k·d ≥ 0, and first k with base + k·d ≥ len.
-    let ceil_div = |n: i64| if n <= 0 { 0 } else { (n + d - 1) / d };
-    let lo = (ceil_div(-base) as u64).min(k as u64) as usize;
-    let hi = (ceil_div(len - base) as u64).min(k as u64) as usize;
+    // First k with base + k·d ≥ 0, and first k with base + k·d ≥ len:
+    // min(⌈n / d⌉, k) for n = −base and n = len − base.
+    let first_at = |n: i64| -> usize {
+        if n <= 0 {
+            return 0;
+        }
+        // ⌈n / d⌉ ≥ k exactly when n > (k − 1)·d; only smaller n divide.
+        // k is a window side (u16) and d ≤ 65,535, so those n fit 32 bits
+        // and no 64-bit division helper is linked; the u32 test only keeps
+        // a caller with a larger k from panicking.
+        let cap = (k as i64).saturating_sub(1).saturating_mul(d);
+        if n > cap || n > u32::MAX as i64 {
+            return k;
+        }
+        (n as u32).div_ceil(d as u32) as usize
+    };
+    let (lo, hi) = (first_at(-base), first_at(len - base));
     (lo, hi.max(lo))
 }
 
