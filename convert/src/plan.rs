@@ -1,6 +1,7 @@
 //! Memory planning: places every activation tensor of a layer sequence in one
 //! workspace, reusing bytes of tensors whose lifetimes do not meet. Greedy by
-//! size with best-fit offsets; also reports the lower bound any placement needs.
+//! size with best-fit offsets, then a bounded search for a placement inside
+//! the lower bound when greedy misses it; also reports that lower bound.
 
 /// Offsets inside the workspace are multiples of this many bytes.
 pub const ALIGN: usize = 8;
@@ -102,13 +103,138 @@ fn align_up(v: usize) -> usize {
     v.div_ceil(ALIGN) * ALIGN
 }
 
-/// Place tensors with the given lifetimes. Greedy by size (Pisarchyk & Lee,
+/// Place tensors with the given lifetimes: greedy by size (`place_greedy`);
+/// when that leaves the workspace above the lower bound, a bounded
+/// depth-first search (`place_within`) looks for a placement whose every
+/// tensor ends inside the bound, and the smaller of the two is kept.
+pub fn place(lifetimes: &[Option<Lifetime>]) -> Plan {
+    let (mut offsets, mut workspace_len) = place_greedy(lifetimes);
+    let bound = lower_bound(lifetimes);
+    if workspace_len > bound {
+        // Aligned offsets may need the bound rounded up to `ALIGN`.
+        for cap in [bound, align_up(bound)] {
+            if cap >= workspace_len {
+                break;
+            }
+            if let Some(found) = place_within(lifetimes, cap, SEARCH_NODES) {
+                workspace_len = found
+                    .iter()
+                    .zip(lifetimes)
+                    .filter_map(|(o, l)| Some((*o)? + (*l)?.bytes))
+                    .max()
+                    .unwrap_or(0);
+                offsets = found;
+                break;
+            }
+        }
+    }
+    Plan {
+        offsets,
+        lifetimes: lifetimes.to_vec(),
+        workspace_len,
+        lower_bound: bound,
+    }
+}
+
+/// Placement attempts `place_within` makes before giving up (keeps the
+/// converter's run time bounded on any graph).
+pub const SEARCH_NODES: usize = 200_000;
+/// Most tensors `place_within` searches over (its recursion is one level
+/// per tensor).
+pub const SEARCH_TENSORS: usize = 4096;
+
+/// A placement with every tensor inside `[0, cap)`, or `None` when the
+/// search finds none within `nodes` attempts. Tensors are taken in the
+/// order they are written (larger first among those written at the same
+/// step); each tries the lowest and the highest free aligned offset among
+/// the tensors it meets, backtracking on a dead end. Two ends suffice for
+/// a chain whose live set is an input and an output: each new output goes
+/// to the end its input does not occupy.
+pub fn place_within(
+    lifetimes: &[Option<Lifetime>],
+    cap: usize,
+    nodes: usize,
+) -> Option<Vec<Option<usize>>> {
+    let mut order: Vec<(usize, Lifetime)> = lifetimes
+        .iter()
+        .enumerate()
+        .filter_map(|(i, l)| Some((i, (*l)?)))
+        .collect();
+    order.sort_by(|(a, la), (b, lb)| {
+        la.first
+            .cmp(&lb.first)
+            .then(lb.bytes.cmp(&la.bytes))
+            .then(a.cmp(b))
+    });
+    if order.len() > SEARCH_TENSORS || order.iter().any(|(_, l)| l.bytes > cap) {
+        return None;
+    }
+    let mut offsets: Vec<Option<usize>> = vec![None; lifetimes.len()];
+    let mut budget = nodes;
+    if search(&order, 0, cap, &mut offsets, &mut budget) {
+        Some(offsets)
+    } else {
+        None
+    }
+}
+
+fn search(
+    order: &[(usize, Lifetime)],
+    at: usize,
+    cap: usize,
+    offsets: &mut [Option<usize>],
+    budget: &mut usize,
+) -> bool {
+    let Some(&(t, me)) = order.get(at) else {
+        return true;
+    };
+    if *budget == 0 {
+        return false;
+    }
+    *budget -= 1;
+    let mut busy: Vec<(usize, usize)> = order[..at]
+        .iter()
+        .filter(|(_, l)| l.meets(&me) && l.bytes > 0)
+        .filter_map(|&(p, l)| Some((offsets[p]?, offsets[p]? + l.bytes)))
+        .collect();
+    busy.sort_unstable();
+    let fits =
+        |o: usize| o + me.bytes <= cap && busy.iter().all(|&(s, e)| o + me.bytes <= s || o >= e);
+    // Lowest free offset: 0 or the end of a busy interval.
+    let low = std::iter::once(0)
+        .chain(busy.iter().map(|&(_, e)| align_up(e)))
+        .filter(|&o| fits(o))
+        .min();
+    // Highest free offset: the cap or the start of a busy interval, minus the size.
+    let high = std::iter::once(cap)
+        .chain(busy.iter().map(|&(s, _)| s))
+        .filter_map(|end| end.checked_sub(me.bytes))
+        .map(|o| o / ALIGN * ALIGN)
+        .filter(|&o| fits(o))
+        .max();
+    let mut tried = None;
+    for o in [low, high].into_iter().flatten() {
+        if tried == Some(o) {
+            continue;
+        }
+        tried = Some(o);
+        offsets[t] = Some(o);
+        if search(order, at + 1, cap, offsets, budget) {
+            return true;
+        }
+    }
+    offsets[t] = None;
+    false
+}
+
+/// Greedy by size (Pisarchyk & Lee,
 /// "Efficient Memory Management for Deep Neural Net Inference", 2020, the
 /// greedy-by-size offset strategy): largest first (ties by index, so the
 /// result is deterministic); each goes into the smallest gap between
 /// already-placed, lifetime-meeting tensors that holds it, else after the
-/// last of them. Offsets are multiples of `ALIGN`.
-pub fn place(lifetimes: &[Option<Lifetime>]) -> Plan {
+/// last of them. Offsets are multiples of `ALIGN`. Returns the offsets and
+/// the workspace length.
+pub fn place_greedy(lifetimes: &[Option<Lifetime>]) -> (Vec<Option<usize>>, usize) {
     let mut order: Vec<(usize, Lifetime)> = lifetimes
         .iter()
         .enumerate()
@@ -154,12 +280,7 @@ pub fn place(lifetimes: &[Option<Lifetime>]) -> Plan {
             s.push(t);
         }
     }
-    Plan {
-        offsets,
-        lifetimes: lifetimes.to_vec(),
-        workspace_len,
-        lower_bound: lower_bound(lifetimes),
-    }
+    (offsets, workspace_len)
 }
 
 /// Summed bytes of the tensors live at each step (index = step), from one
