@@ -631,7 +631,7 @@ pub struct LayerRecord {
 
 /// Whether `op` reads a sliding window (conv2d, depthwise, max/avg pool).
 pub const fn has_window(op: Op) -> bool {
-    matches!(op, Op::Conv2d | Op::Depthwise | Op::MaxPool | Op::AvgPool)
+    op.has_window()
 }
 
 impl LayerRecord {

@@ -21,6 +21,7 @@ pub mod format;
 pub mod geometry;
 pub mod kernels;
 pub mod model;
+pub mod ops;
 pub mod opset;
 pub mod repr;
 pub mod requant;

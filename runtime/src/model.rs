@@ -1,5 +1,5 @@
 //! A parsed model: `Model::parse` validates a whole file once (layout, CRC, records, graph
-//! order, lifetimes, each layer via `exec`); `run` walks the layers with the kernels of the
+//! order, lifetimes, each layer via `ops`); `run` walks the layers with the kernels of the
 //! model's op set. Also the one place for MAC/parameter counts and section sizes.
 
 use crate::error::Error;
@@ -9,6 +9,7 @@ use crate::format::{
     InfoView, LayerRecord, LayerView, ModelInfo, Span, TensorView, ALIGN, MAX_LAYERS,
     SECTIONS_START,
 };
+use crate::ops;
 use crate::opset::{OpSet, ALL_OPS};
 use crate::repr::{Bias, LayerRef, Op, Params, TensorRecord, Weights};
 
@@ -142,10 +143,6 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         model.check_tensors()?;
         model.check_layers()?;
         model.check_lifetimes()?;
-        for i in 0..model.layer_count() {
-            let (layer, a, b, out) = model.load_layer(i)?;
-            exec::check_layer_ops::<OPS>(i, &layer, &a, b.as_ref(), &out)?;
-        }
         Ok(model)
     }
 
@@ -331,19 +328,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     }
 
     /// Reads layer `i` with its tensors and typed blob views.
-    #[allow(clippy::type_complexity)]
-    fn load_layer(
-        &self,
-        i: usize,
-    ) -> Result<
-        (
-            LayerRef<'a>,
-            TensorRecord,
-            Option<TensorRecord>,
-            TensorRecord,
-        ),
-        Error,
-    > {
+    fn load_layer(&self, i: usize) -> Result<Loaded<'a>, Error> {
         let rec = self.record(i)?;
         let h = &rec.header;
         let id = |what, v: u16| -> Result<TensorRecord, Error> {
@@ -406,7 +391,13 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             bias,
             params,
         };
-        Ok((layer, a, b, out))
+        Ok(Loaded {
+            layer,
+            a,
+            b,
+            out,
+            spans: [rec.weights, rec.bias, rec.params],
+        })
     }
 
     /// One blob: empty reference for `None`; otherwise inside the blob area,
@@ -468,7 +459,9 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     }
 
     /// Records valid, ids in range, one producer per tensor (the input none),
-    /// inputs produced earlier, output id valid, blobs packed canonically.
+    /// inputs produced earlier, output id valid, blobs packed canonically,
+    /// and each layer's op checks (`ops::check_layer_ops`): one read of each
+    /// record.
     fn check_layers(&self) -> Result<(), Error> {
         let tc = self.tensor_count();
         let lc = self.layer_count();
@@ -489,9 +482,8 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         let area = self.info.blobs.range().unwrap_or(0..0);
         let mut cursor = area.start;
         for i in 0..lc {
-            let (_, _, _, _) = self.load_layer(i)?;
-            let rec = self.record(i)?;
-            let h = rec.header;
+            let l = self.load_layer(i)?;
+            let h = l.layer.header;
             // Layer i writes tensor i + 1 and reads only tensors written
             // before it (tensor 0 is the input): one linear check gives
             // "written once, read after written".
@@ -511,7 +503,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
                     });
                 }
             }
-            for span in [rec.weights, rec.bias, rec.params] {
+            for span in l.spans {
                 if span.len == 0 {
                     continue;
                 }
@@ -526,6 +518,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
                 all_zero(self.bytes, cursor, want, "padding between blobs")?;
                 cursor = span.range().map(|r| r.end).unwrap_or(usize::MAX);
             }
+            ops::check_layer_ops::<OPS>(i, &l.layer, &l.a, l.b.as_ref(), &l.out)?;
         }
         if cursor != area.end {
             return Err(Error::Layout {
@@ -707,7 +700,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
 
     /// Layer `i` with its weights, bias and params viewed in place.
     pub fn layer(&self, i: usize) -> Option<LayerRef<'a>> {
-        self.load_layer(i).ok().map(|(l, ..)| l)
+        self.load_layer(i).ok().map(|l| l.layer)
     }
 
     /// Multiply-accumulates of layer `i` for one inference. Counting rule:
@@ -716,19 +709,8 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     /// quantize, dequantize) 0, as they multiply by no weights. Saturates at
     /// u64::MAX; 0 for an unknown layer.
     pub fn layer_macs(&self, i: usize) -> u64 {
-        let Ok((layer, a, _, out)) = self.load_layer(i) else {
-            return 0;
-        };
-        let h = &layer.header;
-        let w = &h.window;
-        let out_elems = out.shape.elems() as u64;
-        let k = w.kh as u64 * w.kw as u64;
-        match h.op {
-            Op::Conv2d => out_elems.saturating_mul(k).saturating_mul(a.shape.c as u64),
-            Op::Depthwise => out_elems.saturating_mul(k),
-            Op::Dense => (a.shape.elems() as u64).saturating_mul(out_elems),
-            _ => 0,
-        }
+        self.load_layer(i)
+            .map_or(0, |l| ops::layer_macs(&l.layer, &l.a, &l.out))
     }
 
     /// The (op, output type) pairs of this model's layers: the op set a
@@ -736,9 +718,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     pub fn op_set(&self) -> OpSet {
         (0..self.layer_count())
             .filter_map(|i| self.load_layer(i).ok())
-            .fold(OpSet::EMPTY, |s, (l, _, _, out)| {
-                s.with(l.header.op, out.elem)
-            })
+            .fold(OpSet::EMPTY, |s, l| s.with(l.layer.header.op, l.out.elem))
     }
 
     /// Learned parameters of layer `i`: weight elements plus bias elements.
@@ -825,7 +805,9 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             return Err(Error::WorkspaceMisaligned);
         }
         for i in 0..self.layer_count() {
-            let (layer, a, b, out) = self.load_layer(i)?;
+            let Loaded {
+                layer, a, b, out, ..
+            } = self.load_layer(i)?;
             observer.before_layer(i);
             let outside = |index| Error::Tensor {
                 index,
@@ -861,7 +843,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
                 Some(bt) => Some((bt, fetch(layer.header.inputs[1], bt)?)),
                 None => None,
             };
-            exec::run_layer_ops::<OPS>(&layer, (&a, a_bytes), b_pair, (&out, &mut *out_bytes))
+            ops::run_layer_ops::<OPS>(&layer, (&a, a_bytes), b_pair, (&out, &mut *out_bytes))
                 .map_err(|e| exec::at_layer(e, i))?;
             observer.after_layer(i, &out, out_bytes);
         }
@@ -891,6 +873,16 @@ fn internal(index: usize) -> Error {
         index,
         problem: "blob type mismatch",
     }
+}
+
+/// One layer as `load_layer` reads it: the typed views, its tensors' records
+/// and the record's blob spans (weights, bias, params).
+struct Loaded<'a> {
+    layer: LayerRef<'a>,
+    a: TensorRecord,
+    b: Option<TensorRecord>,
+    out: TensorRecord,
+    spans: [Span; 3],
 }
 
 enum Blob<'a> {

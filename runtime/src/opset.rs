@@ -5,7 +5,7 @@
 use crate::repr::{ElemType, Op};
 
 /// A set of (op, output element type) pairs as a bitmask: bit
-/// `2·(op − 1) + (elem − 1)` for the op codes 1..=10 and the output types
+/// `2·(op − 1) + (elem − 1)` for the op codes 1..=N (`Op::ALL`) and the output types
 /// int8 (1) and fp16 (2). The output type names the precision of every op
 /// (pixels → int8 or fp16; quantize writes int8, dequantize fp16).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
@@ -14,13 +14,23 @@ pub struct OpSet(u32);
 /// Every op in both precisions: what `Model::parse` links.
 pub const ALL_OPS: u32 = OpSet::ALL.bits();
 
-/// The op codes in order (`Op::from_u8` of 1..=10).
-const OP_CODES: core::ops::RangeInclusive<u8> = 1..=10;
+/// The bit layout needs the op codes to be 1..=N in `Op::ALL` order.
+const _: () = {
+    let mut i = 0;
+    while i < Op::ALL.len() {
+        assert!(
+            Op::ALL[i] as usize == i + 1,
+            "op codes must be 1..=N in order"
+        );
+        i += 1;
+    }
+    assert!(2 * Op::ALL.len() <= 32, "op set bitmask is a u32");
+};
 
 impl OpSet {
     pub const EMPTY: OpSet = OpSet(0);
-    /// All twenty pairs (some, like quantize → fp16, no layer can have).
-    pub const ALL: OpSet = OpSet((1 << 20) - 1);
+    /// Every pair (some, like quantize → fp16, no layer can have).
+    pub const ALL: OpSet = OpSet(((1u64 << (2 * Op::ALL.len())) - 1) as u32);
 
     /// The bit of `(op, elem)`; `None` for a u8 output, which no layer has.
     const fn bit(op: Op, elem: ElemType) -> Option<u32> {
@@ -71,9 +81,9 @@ impl OpSet {
 
     /// The pairs in op-code order, int8 before fp16.
     pub fn iter(self) -> impl Iterator<Item = (Op, ElemType)> {
-        OP_CODES
-            .filter_map(Op::from_u8)
-            .flat_map(|op| [(op, ElemType::I8), (op, ElemType::F16)])
+        Op::ALL
+            .iter()
+            .flat_map(|&op| [(op, ElemType::I8), (op, ElemType::F16)])
             .filter(move |&(op, e)| self.has(op, e))
     }
 }
@@ -92,8 +102,7 @@ mod tests {
     #[test]
     fn bits_are_distinct_and_cover_all() {
         let mut seen = 0u32;
-        for code in OP_CODES {
-            let op = Op::from_u8(code).unwrap();
+        for &op in Op::ALL {
             for e in [ElemType::I8, ElemType::F16] {
                 let b = OpSet::EMPTY.with(op, e).bits();
                 assert_eq!(b.count_ones(), 1, "{op:?} {e:?}");

@@ -112,50 +112,7 @@ impl Activation {
     }
 }
 
-/// The operation of one layer. Flatten and reshape are not layers: a dense
-/// layer reads its input tensor as a flat H·W·C vector in HWC order.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[repr(u8)]
-pub enum Op {
-    /// Camera bytes (U8) → normalized I8 or F16, per channel.
-    Pixels = 1,
-    Conv2d = 2,
-    Depthwise = 3,
-    MaxPool = 4,
-    AvgPool = 5,
-    GlobalAvgPool = 6,
-    Dense = 7,
-    Add = 8,
-    /// F16 → I8 at a precision boundary.
-    Quantize = 9,
-    /// I8 → F16 at a precision boundary.
-    Dequantize = 10,
-}
-
-impl Op {
-    pub const fn from_u8(v: u8) -> Option<Self> {
-        match v {
-            1 => Some(Op::Pixels),
-            2 => Some(Op::Conv2d),
-            3 => Some(Op::Depthwise),
-            4 => Some(Op::MaxPool),
-            5 => Some(Op::AvgPool),
-            6 => Some(Op::GlobalAvgPool),
-            7 => Some(Op::Dense),
-            8 => Some(Op::Add),
-            9 => Some(Op::Quantize),
-            10 => Some(Op::Dequantize),
-            _ => None,
-        }
-    }
-    /// Number of input tensors the op reads.
-    pub const fn arity(self) -> usize {
-        match self {
-            Op::Add => 2,
-            _ => 1,
-        }
-    }
-}
+pub use crate::ops::Op;
 
 /// Sliding-window geometry of conv2d, depthwise and pooling layers. Padding
 /// is always explicit here; `Padding::resolve` turns valid/same into it.
