@@ -7,7 +7,7 @@ use std::path::{Path, PathBuf};
 
 use clap::{Parser, Subcommand, ValueEnum};
 use midge_runtime::embed::AlignedBytes;
-use midge_runtime::{ElemType, Model, Op};
+use midge_runtime::{ElemType, Model};
 
 use crate::c_source;
 use crate::calibrate::RangeMethod;
@@ -559,7 +559,7 @@ pub fn show_text(model: &Model<'_>) -> String {
         } else {
             ("-".into(), "-".into())
         };
-        let win = if matches!(h.op, Op::Conv2d | Op::Depthwise | Op::MaxPool | Op::AvgPool) {
+        let win = if h.op.has_window() {
             format!(" k{}x{} s{}", h.window.kh, h.window.kw, h.window.stride_h)
         } else {
             String::new()

@@ -477,21 +477,9 @@ pub fn sqnr_db(signal: f64, noise: f64) -> Option<f64> {
     }
 }
 
-/// Our short names of the runtime ops, for tables.
+/// Our short names of the runtime ops, for tables (the runtime's `Op::name`).
 pub fn op_name(op: midge_runtime::Op) -> &'static str {
-    use midge_runtime::Op;
-    match op {
-        Op::Pixels => "pixels",
-        Op::Conv2d => "conv2d",
-        Op::Depthwise => "depthwise",
-        Op::MaxPool => "maxpool",
-        Op::AvgPool => "avgpool",
-        Op::GlobalAvgPool => "global_avgpool",
-        Op::Dense => "dense",
-        Op::Add => "add",
-        Op::Quantize => "quantize",
-        Op::Dequantize => "dequantize",
-    }
+    op.name()
 }
 
 impl Report {
