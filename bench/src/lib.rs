@@ -1,6 +1,6 @@
 //! midge-bench: memory footprint, host and emulated Cortex-M latency,
 //! target budgets and architecture sweeps, rendered as tables, JSON or HTML.
-//! The binary `midge-bench` only parses flags and calls `bench_report`/`sweep`.
+//! `midge report` and `midge sweep` (cli/) only parse flags and call `bench_report`/`sweep`.
 
 pub mod emulated;
 pub mod host;

@@ -14,7 +14,7 @@ use crate::emulated::EmulatedReport;
 use crate::host::{HostLatency, Spread};
 use crate::sweep::SweepRow;
 
-/// Everything one `midge-bench report` run found.
+/// Everything one `midge report` run found.
 #[derive(Clone, Debug, Serialize)]
 pub struct BenchReport {
     pub footprint: ModelFootprint,

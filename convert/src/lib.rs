@@ -7,7 +7,6 @@ pub mod c_firmware;
 pub mod c_source;
 pub mod calibrate;
 pub mod classify;
-pub mod cli;
 pub mod compare;
 pub mod description;
 pub mod draft;

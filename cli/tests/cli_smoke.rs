@@ -3,6 +3,7 @@
 //! --max-drop), --help everywhere, and bad input → status 2, one stderr
 //! line, no output file.
 
+#[path = "../../convert/tests/quant_support/mod.rs"]
 mod quant_support;
 
 use std::path::Path;
