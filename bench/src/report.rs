@@ -4,10 +4,10 @@
 
 use std::fmt::Write as _;
 
-use midge_convert::budget::Budget;
+use crate::budget::Budget;
+use crate::footprint::ModelFootprint;
 use midge_convert::compare::LayerRow as SqnrRow;
 use midge_convert::error::escape;
-use midge_convert::footprint::ModelFootprint;
 use serde::Serialize;
 
 use crate::emulated::EmulatedReport;

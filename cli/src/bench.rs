@@ -1,15 +1,15 @@
-//! `midge report` and `midge sweep`: their flags and the calls into the
+//! `midge budget`, `midge report` and `midge sweep`: their flags and the calls into the
 //! midge-bench library (`bench_report`, `sweep::sweep`, the renderers).
 
 use std::path::PathBuf;
 use std::time::Duration;
 
+use midge_bench::budget::{BudgetOptions, DEFAULT_SEED};
 use midge_bench::report::{sweep_html, sweep_text};
-use midge_bench::{bench_report, sweep, ReportOptions, Result};
-use midge_convert::budget::{BudgetOptions, DEFAULT_SEED};
+use midge_bench::target::Target;
+use midge_bench::{bench_report, sweep, Error, ReportOptions, Result};
 use midge_convert::description::Description;
 use midge_convert::output::{check_destinations, write_outputs};
-use midge_convert::target::Target;
 
 #[derive(clap::Args, Debug)]
 pub struct Common {
@@ -152,4 +152,54 @@ pub fn cmd_sweep(a: SweepArgs) -> Result<i32> {
         print!("{}", sweep_text(&rows));
     }
     Ok(0)
+}
+
+/// Flags of `midge budget`.
+#[derive(clap::Args, Debug)]
+pub struct BudgetArgs {
+    /// A .midge model file, or a description (TOML); a description without
+    /// weights gets seeded synthetic weights.
+    pub model: PathBuf,
+    /// Target profile: a name under models/targets (m4-80, m0plus-48,
+    /// m7-400) or a profile file.
+    #[arg(long)]
+    pub target: String,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    pub json: bool,
+    /// Skip the emulated run (no stack high-water mark).
+    #[arg(long)]
+    pub no_emulate: bool,
+    /// Do not build firmware to measure the runtime's code size.
+    #[arg(long)]
+    pub no_runtime_size: bool,
+    /// Seed of synthetic weights.
+    #[arg(long, default_value_t = DEFAULT_SEED)]
+    pub seed: u64,
+}
+
+/// `midge budget`: prints the bill and verdict; returns the exit status
+/// (0 fits, `midge_bench::budget::EXIT_DOES_NOT_FIT` otherwise).
+pub fn cmd_budget(a: &BudgetArgs) -> Result<i32> {
+    let target = Target::resolve(&a.target)?;
+    let bytes = midge_bench::budget::model_bytes_for(&a.model, a.seed)?;
+    let opts = BudgetOptions {
+        measure_runtime: !a.no_runtime_size,
+        emulate: !a.no_emulate,
+        ..BudgetOptions::default()
+    };
+    let ev = midge_bench::budget::evaluate(&bytes, &target, &opts)
+        .map_err(|e| Error::new(a.model.display().to_string(), e.to_string()))?;
+    if a.json {
+        let text = serde_json::to_string_pretty(&ev.budget)
+            .map_err(|e| Error::new("budget", format!("cannot write JSON: {e}")))?;
+        println!("{text}");
+    } else {
+        print!("{}", ev.budget.render_text());
+    }
+    Ok(if ev.budget.fits {
+        0
+    } else {
+        midge_bench::budget::EXIT_DOES_NOT_FIT
+    })
 }

@@ -11,7 +11,7 @@ use midge_runtime::{ElemType, Model, Op};
 
 use midge_convert::c_source;
 use midge_convert::calibrate::RangeMethod;
-use midge_convert::compare::{self, op_name, CompareOptions};
+use midge_convert::compare::{self, elem_name, op_name, CompareOptions};
 use midge_convert::error::{escape, escape_path, Error, Result};
 use midge_convert::files::{parse_model, read_model};
 use midge_convert::firmware_module;
@@ -48,7 +48,7 @@ pub enum Command {
     /// Show a .midge model: layers, shapes, quantization, memory plan.
     Show(ShowArgs),
     /// Flash and RAM of a model on a target profile: fits or does not fit (exit 4).
-    Budget(midge_convert::budget::BudgetArgs),
+    Budget(crate::bench::BudgetArgs),
     /// The whole job: quantize, accuracy-drop report and budget in one go.
     ///
     /// Quantizes and writes the model, reports the accuracy drop on the
@@ -240,7 +240,7 @@ pub fn run(cli: Cli) -> Result<i32> {
         Command::Compare(a) => cmd_compare(&a),
         Command::Classify(a) => cmd_classify(&a),
         Command::Show(a) => cmd_show(&a),
-        Command::Budget(a) => midge_convert::budget::cmd_budget(&a),
+        Command::Budget(a) => crate::bench::cmd_budget(&a),
         Command::Assess(a) => cmd_assess(&a),
         Command::Draft(a) => midge_convert::draft::cmd_draft(&a),
         Command::Report(a) => crate::bench::cmd_report(a),
@@ -386,8 +386,8 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
     let conv = quantize::quantize_description(&a.description, &opts)?;
     let place = a.description.display().to_string();
     let target = match (&a.target, &conv.desc.target) {
-        (Some(t), _) => midge_convert::target::Target::resolve(t)?,
-        (None, Some(path)) => midge_convert::target::Target::load(path)?,
+        (Some(t), _) => midge_bench::target::Target::resolve(t)?,
+        (None, Some(path)) => midge_bench::target::Target::load(path)?,
         (None, None) => {
             return Err(Error::new(
                 &place,
@@ -402,12 +402,12 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
         )
     })?;
     let report = compare::evaluate(&conv, &validation, a.also_fp16, opts.progress)?;
-    let budget_opts = midge_convert::budget::BudgetOptions {
+    let budget_opts = midge_bench::budget::BudgetOptions {
         emulate: !a.no_emulate,
-        ..midge_convert::budget::BudgetOptions::default()
+        ..midge_bench::budget::BudgetOptions::default()
     };
     let q = &conv.quantized;
-    let ev = midge_convert::budget::evaluate(&q.bytes, &target, &budget_opts)
+    let ev = midge_bench::budget::evaluate(&q.bytes, &target, &budget_opts)
         .map_err(|e| Error::new(&place, e.to_string()))?;
     let mut inputs = conv.inputs(&a.description);
     let target_path = a.target.as_ref().map(PathBuf::from);
@@ -441,7 +441,7 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
     Ok(if ev.budget.fits {
         0
     } else {
-        midge_convert::budget::EXIT_DOES_NOT_FIT
+        midge_bench::budget::EXIT_DOES_NOT_FIT
     })
 }
 
@@ -473,14 +473,6 @@ fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
         print!("{}", result.to_text(a.top));
     }
     Ok(0)
-}
-
-fn elem_name(e: ElemType) -> &'static str {
-    match e {
-        ElemType::U8 => "u8",
-        ElemType::I8 => "int8",
-        ElemType::F16 => "fp16",
-    }
 }
 
 /// The text `midge show` prints.

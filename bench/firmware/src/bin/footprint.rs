@@ -1,6 +1,6 @@
 //! Footprint probe: the smallest application that parses and runs a model
 //! with midge-runtime. Its ELF minus `baseline`'s is the runtime's own code
-//! and data on this target (measured by `midge_convert::footprint`).
+//! and data on this target (measured by `midge_bench::footprint`).
 #![no_std]
 #![no_main]
 
