@@ -294,6 +294,9 @@ fn emulate_once(
     firmware::run(&target.emulator.machine, &build.harness, &job, timeout)
 }
 
+/// Exit status of `midge budget` when the model does not fit.
+pub const EXIT_DOES_NOT_FIT: i32 = 4;
+
 /// Seed for synthetic weights when a description has none.
 pub const DEFAULT_SEED: u64 = 0x6D_6964_6765;
 
@@ -469,6 +472,3 @@ mod tests {
         assert!(e.to_string().contains("RAM margin"), "{e}");
     }
 }
-
-/// Exit status of `midge budget` when the model does not fit.
-pub const EXIT_DOES_NOT_FIT: i32 = 4;
