@@ -5,7 +5,7 @@
 #![no_main]
 
 use cortex_m_rt::entry;
-use midge_firmware::{job_block, keep, OPS};
+use midge_firmware::{job_block, keep, workspace, OPS};
 use midge_runtime::Model;
 use panic_halt as _;
 
@@ -13,9 +13,9 @@ use panic_halt as _;
 fn main() -> ! {
     let mut sink = 0u32;
     if let Ok((job, block)) = job_block() {
-        if let Ok(model) = Model::<OPS>::parse_with_ops(job.model(block)) {
-            if let Ok(ws) = job.workspace(model.workspace_len()) {
-                if let Ok(out) = model.run(job.input(block, 0), ws) {
+        if let Ok(model) = Model::<OPS>::parse_with_ops(job.model(block).unwrap_or(&[])) {
+            if let Ok(ws) = workspace(&job, model.workspace_len()) {
+                if let Ok(out) = model.run(job.input(block, 0).unwrap_or(&[]), ws) {
                     sink = out.iter().map(|&b| b as u32).sum();
                 }
             }
