@@ -4,9 +4,9 @@
 
 use std::time::Duration;
 
+use crate::firmware::{self, EmulatedRun};
+use crate::target::Target;
 use midge_convert::compare::op_name;
-use midge_convert::firmware::{self, EmulatedRun};
-use midge_convert::target::Target;
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::Model;
 use serde::Serialize;

@@ -1,22 +1,26 @@
 //! midge-bench: memory footprint, host and emulated Cortex-M latency,
 //! target budgets and architecture sweeps, rendered as tables, JSON or HTML.
-//! The binary `midge-bench` only parses flags and calls `bench_report`/`sweep`.
+//! `midge report` and `midge sweep` (cli/) only parse flags and call `bench_report`/`sweep`.
 
+pub mod budget;
+pub mod c_firmware;
 pub mod emulated;
+pub mod firmware;
+pub mod footprint;
 pub mod host;
 pub mod report;
 pub mod sweep;
+pub mod target;
 
 use std::path::Path;
 use std::time::Duration;
 
-use midge_convert::budget::{self, BudgetOptions};
+use crate::budget::BudgetOptions;
+use crate::footprint::model_footprint;
+use crate::target::Target;
 use midge_convert::compare::{self, CompareOptions};
 use midge_convert::description::Description;
-use midge_convert::firmware;
-use midge_convert::footprint::model_footprint;
 use midge_convert::synth::SplitMix;
-use midge_convert::target::Target;
 pub use midge_convert::{Error, Result};
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::{ElemType, Model};
@@ -74,7 +78,7 @@ impl Default for ReportOptions {
             emulate: true,
             measure_runtime: true,
             compare: false,
-            seed: budget::DEFAULT_SEED,
+            seed: crate::budget::DEFAULT_SEED,
             timeout: Duration::from_secs(300),
         }
     }
@@ -83,7 +87,7 @@ impl Default for ReportOptions {
 /// Footprint, host latency, budgets and emulated runs of a model file or a
 /// description (quantized as `midge budget` does).
 pub fn bench_report(path: &Path, opts: &ReportOptions) -> Result<BenchReport> {
-    let bytes = budget::model_bytes_for(path, opts.seed)?;
+    let bytes = crate::budget::model_bytes_for(path, opts.seed)?;
     let aligned = AlignedBytes::from_slice(&bytes);
     let model = Model::parse(&aligned)
         .map_err(|e| Error::new(path.display().to_string(), e.to_string()))?;
@@ -102,7 +106,7 @@ pub fn bench_report(path: &Path, opts: &ReportOptions) -> Result<BenchReport> {
     let mut emulated = Vec::new();
     let mut not_emulated = Vec::new();
     for t in &opts.targets {
-        budgets.push(budget::evaluate(&bytes, t, &bopts)?.budget);
+        budgets.push(crate::budget::evaluate(&bytes, t, &bopts)?.budget);
         if !opts.emulate {
             continue;
         }

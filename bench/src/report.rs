@@ -4,17 +4,17 @@
 
 use std::fmt::Write as _;
 
-use midge_convert::budget::Budget;
+use crate::budget::Budget;
+use crate::footprint::ModelFootprint;
 use midge_convert::compare::LayerRow as SqnrRow;
 use midge_convert::error::escape;
-use midge_convert::footprint::ModelFootprint;
 use serde::Serialize;
 
 use crate::emulated::EmulatedReport;
 use crate::host::{HostLatency, Spread};
 use crate::sweep::SweepRow;
 
-/// Everything one `midge-bench report` run found.
+/// Everything one `midge report` run found.
 #[derive(Clone, Debug, Serialize)]
 pub struct BenchReport {
     pub footprint: ModelFootprint,

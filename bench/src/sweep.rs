@@ -2,11 +2,11 @@
 //! resolution, each variant quantized with synthetic weights and budgeted on
 //! every target (flash, peak RAM, emulated instructions, estimated latency).
 
-use midge_convert::budget::{self, BudgetOptions};
+use crate::budget::{self, BudgetOptions};
+use crate::footprint::model_footprint;
+use crate::target::Target;
 use midge_convert::description::Description;
-use midge_convert::footprint::model_footprint;
 use midge_convert::synth;
-use midge_convert::target::Target;
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::Model;
 use serde::Serialize;

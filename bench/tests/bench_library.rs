@@ -4,14 +4,14 @@
 
 use std::path::{Path, PathBuf};
 
+use midge_bench::budget::{evaluate, model_bytes_for, BudgetOptions};
+use midge_bench::footprint::model_footprint;
 use midge_bench::host::host_latency;
 use midge_bench::report::sweep_text;
 use midge_bench::sweep::sweep;
+use midge_bench::target::Target;
 use midge_bench::{bench_report, synth_inputs, ReportOptions};
-use midge_convert::budget::{evaluate, model_bytes_for, BudgetOptions};
 use midge_convert::description::Description;
-use midge_convert::footprint::model_footprint;
-use midge_convert::target::Target;
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::Model;
 

@@ -3,11 +3,11 @@
 
 use std::path::Path;
 
+use midge_bench::budget::BudgetOptions;
 use midge_bench::sweep::sweep;
-use midge_convert::budget::BudgetOptions;
+use midge_bench::target::Target;
 use midge_convert::description::Description;
 use midge_convert::parallel::with_threads;
-use midge_convert::target::Target;
 
 #[test]
 fn sweep_rows_do_not_depend_on_the_thread_count() {

@@ -7,7 +7,7 @@ use std::path::Path;
 use midge_runtime::write::ModelSpec;
 use midge_runtime::OpSet;
 
-use crate::footprint::op_set_names;
+use crate::compare::op_set_names;
 
 /// `s` as a C string literal: printable ASCII as is, except `"`, `\` and
 /// `?` (which could start a trigraph) escaped; every other byte (control

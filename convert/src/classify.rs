@@ -87,8 +87,8 @@ pub fn classify_path(path: &Path, images: &[PathBuf], resize: bool) -> Result<Cl
     if path.extension().is_some_and(|e| e == "toml") {
         classify_float(path, images, resize)
     } else {
-        let bytes = crate::cli::read_model(path)?;
-        let model = crate::cli::parse_model(&bytes, path)?;
+        let bytes = crate::files::read_model(path)?;
+        let model = crate::files::parse_model(&bytes, path)?;
         classify_model(&model, &path.display().to_string(), images, resize)
     }
 }

@@ -482,6 +482,23 @@ pub fn op_name(op: midge_runtime::Op) -> &'static str {
     op.name()
 }
 
+/// Our short names of the element types, for tables.
+pub fn elem_name(e: midge_runtime::ElemType) -> &'static str {
+    use midge_runtime::ElemType;
+    match e {
+        ElemType::U8 => "u8",
+        ElemType::I8 => "int8",
+        ElemType::F16 => "fp16",
+    }
+}
+
+/// The pairs of an op set as `op/precision` (e.g. `conv2d/int8`), in op-code order.
+pub fn op_set_names(ops: midge_runtime::OpSet) -> Vec<String> {
+    ops.iter()
+        .map(|(op, e)| format!("{}/{}", op_name(op), elem_name(e)))
+        .collect()
+}
+
 impl Report {
     /// The terminal table.
     pub fn to_text(&self) -> String {

@@ -8,6 +8,8 @@ use std::path::{Path, PathBuf};
 
 use crate::error::{Error, Result};
 use crate::limits::{self, FileCap};
+use midge_runtime::embed::AlignedBytes;
+use midge_runtime::Model;
 
 /// What kind of file system object `t` is, for messages.
 pub fn kind_name(t: &FileType) -> &'static str {
@@ -160,6 +162,26 @@ pub fn list_folder(dir: &Path) -> Result<Vec<Entry>> {
     }
     out.sort();
     Ok(out)
+}
+
+/// Read a model file into aligned bytes and check that it parses.
+pub fn read_model(path: &Path) -> Result<AlignedBytes> {
+    let place = path.display().to_string();
+    let raw = read(path, &limits::MODEL_FILE)?;
+    let bytes = AlignedBytes::from_slice(&raw);
+    Model::parse(&bytes)
+        .map_err(|e| Error::new(&place, format!("not a valid midge model: {e}")))?;
+    Ok(bytes)
+}
+
+/// Parse model bytes; errors name `path`.
+pub fn parse_model<'a>(bytes: &'a AlignedBytes, path: &Path) -> Result<Model<'a>> {
+    Model::parse(bytes).map_err(|e| {
+        Error::new(
+            path.display().to_string(),
+            format!("not a valid midge model: {e}"),
+        )
+    })
 }
 
 #[cfg(test)]

@@ -7,7 +7,7 @@ use std::path::{Component, Path, PathBuf};
 use midge_runtime::write::ModelSpec;
 use midge_runtime::{ElemType, OpSet};
 
-use crate::footprint::op_set_names;
+use crate::compare::op_set_names;
 
 /// `to` relative to the folder `from_dir` (both made absolute first), with
 /// `/` separators as `include_bytes!` accepts on every host.

@@ -2,21 +2,16 @@
 //! runs the float reference, calibrates, quantizes, plans memory, writes the
 //! flat layout through midge-runtime, and measures the accuracy drop.
 
-pub mod budget;
-pub mod c_firmware;
 pub mod c_source;
 pub mod calibrate;
 pub mod classify;
-pub mod cli;
 pub mod compare;
 pub mod description;
 pub mod draft;
 pub mod error;
 pub mod files;
-pub mod firmware;
 pub mod firmware_module;
 pub mod float_ref;
-pub mod footprint;
 pub mod graph;
 pub mod images;
 pub mod limits;
@@ -26,7 +21,6 @@ pub mod parallel;
 pub mod plan;
 pub mod quantize;
 pub mod synth;
-pub mod target;
 pub mod weights;
 
 pub use error::{Error, Result};

@@ -4,13 +4,11 @@
 
 use std::path::{Path, PathBuf};
 
-use midge_convert::budget::{
-    cmd_budget, evaluate, model_bytes_for, BudgetArgs, BudgetOptions, EXIT_DOES_NOT_FIT,
-};
+use midge_bench::budget::{evaluate, model_bytes_for, BudgetOptions};
+use midge_bench::footprint::model_footprint;
+use midge_bench::target::Target;
 use midge_convert::description::Description;
-use midge_convert::footprint::model_footprint;
 use midge_convert::synth;
-use midge_convert::target::Target;
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::Model;
 
@@ -56,26 +54,6 @@ fn verdict_flips_one_byte_over_the_limit() {
     let f = evaluate(&bytes, &flash_short, &offline()).unwrap().budget;
     assert!(!f.fits);
     assert_eq!(f.flash_margin, -1);
-
-    // The CLI path: exit 0 at the limit, 4 one byte over.
-    let dir = std::env::temp_dir().join(format!("midge-budget-{}", std::process::id()));
-    std::fs::create_dir_all(&dir).unwrap();
-    let args = |t: &Path| BudgetArgs {
-        model: desc.clone(),
-        target: t.display().to_string(),
-        json: true,
-        no_emulate: true,
-        no_runtime_size: true,
-        seed: 3,
-    };
-    let ok = dir.join("exact.toml");
-    std::fs::write(&ok, profile(ram + 100, flash + 200)).unwrap();
-    assert_eq!(cmd_budget(&args(&ok)).unwrap(), 0);
-    let over = dir.join("over.toml");
-    std::fs::write(&over, profile(ram + 99, flash + 200)).unwrap();
-    assert_eq!(cmd_budget(&args(&over)).unwrap(), EXIT_DOES_NOT_FIT);
-    assert_eq!(EXIT_DOES_NOT_FIT, 4);
-    let _ = std::fs::remove_dir_all(&dir);
 }
 
 // ResNet-8 (models/reference/resnet8.toml), int8. Tensor bytes by hand:

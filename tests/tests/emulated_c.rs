@@ -7,9 +7,10 @@
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
+use midge_bench::{c_firmware, firmware};
 use midge_convert::graph::Precision;
+use midge_convert::images;
 use midge_convert::quantize::{image_spec, quantize_description, QuantizeOptions};
-use midge_convert::{c_firmware, firmware, images};
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::{exec, Model, OpSet};
 

@@ -9,10 +9,10 @@ use std::collections::BTreeSet;
 use std::path::Path;
 use std::process::Command;
 
-use midge_convert::budget::{evaluate, model_bytes_for, BudgetOptions, DEFAULT_SEED};
-use midge_convert::firmware;
-use midge_convert::footprint::{elf_sizes, runtime_cost, ElfSizes};
-use midge_convert::target::Target;
+use midge_bench::budget::{evaluate, model_bytes_for, BudgetOptions, DEFAULT_SEED};
+use midge_bench::firmware;
+use midge_bench::footprint::{elf_sizes, runtime_cost, ElfSizes};
+use midge_bench::target::Target;
 use midge_runtime::OpSet;
 
 /// Allocated section bytes by kind as `readelf -S -W` lists them (GNU

@@ -9,17 +9,17 @@
 use std::process::{Command, Stdio};
 
 use midge_bench::emulated::unavailable;
-use midge_convert::target::Target;
+use midge_bench::target::Target;
 use midge_runtime::OpSet;
 
 fn kernel_match(target: &str, want_dsp: bool) {
     let t = Target::resolve(target).unwrap();
     if let Some(why) = unavailable(&t) {
-        midge_convert::firmware::may_skip(&why).unwrap();
+        midge_bench::firmware::may_skip(&why).unwrap();
         println!("skipped: emulated run on {target} not possible here: {why}");
         return;
     }
-    let build = midge_convert::firmware::build(&t.rust_target, OpSet::ALL).unwrap();
+    let build = midge_bench::firmware::build(&t.rust_target, OpSet::ALL).unwrap();
     let bin = build.kernel_match;
     let out = Command::new("qemu-system-arm")
         .args(["-M", &t.emulator.machine, "-nographic", "-monitor", "none"])

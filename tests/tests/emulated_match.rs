@@ -9,11 +9,11 @@ use std::path::{Path, PathBuf};
 use std::time::Duration;
 
 use midge_bench::emulated::{emulated_latency, unavailable};
-use midge_convert::firmware;
+use midge_bench::firmware;
+use midge_bench::target::Target;
 use midge_convert::graph::Precision;
 use midge_convert::images;
 use midge_convert::quantize::{image_spec, quantize_description, QuantizeOptions};
-use midge_convert::target::Target;
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::{Model, OpSet};
 

@@ -4,8 +4,8 @@
 
 use std::path::{Path, PathBuf};
 
+use midge_bench::footprint::{model_footprint, ModelFootprint};
 use midge_convert::description::Description;
-use midge_convert::footprint::{model_footprint, ModelFootprint};
 use midge_convert::synth;
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::Model;

@@ -1,5 +1,5 @@
 //! Shared pieces of the harness binaries: the job block that QEMU's loader
-//! places in RAM (layout owned by `midge_bench::emulated`, mirrored here),
+//! places in RAM (layout defined once in `midge-job`, bench/job),
 //! the SysTick instruction clock, and the op set `OPS` the binaries link.
 #![no_std]
 
@@ -8,110 +8,35 @@ include!(concat!(env!("OUT_DIR"), "/ops.rs"));
 use core::sync::atomic::{AtomicU32, Ordering};
 use cortex_m::peripheral::{syst::SystClkSource, SYST};
 
-/// Where the host's loader puts the job block (ZBT SSRAM2/3 + 1 MiB, the
-/// same address on mps2-an385, -an386 and -an500).
-pub const JOB_ADDR: usize = 0x2010_0000;
-/// Bytes from `JOB_ADDR` to the end of SSRAM2/3.
-pub const JOB_CAPACITY: usize = 3 * 1024 * 1024;
-/// First eight bytes of a job block.
-pub const JOB_MAGIC: [u8; 8] = *b"midgejob";
-pub const JOB_VERSION: u32 = 1;
-pub const JOB_HEADER_LEN: usize = 64;
+pub use midge_job::{Job, JobError, JOB_CAPACITY, JOB_HEADER_LEN};
 
-/// The job header's fields, all little-endian u32 after the magic.
-#[derive(Clone, Copy, Debug)]
-pub struct Job {
-    pub model_offset: usize,
-    pub model_len: usize,
-    pub input_offset: usize,
-    pub input_len: usize,
-    pub input_count: usize,
-    pub workspace_offset: usize,
-}
-
-impl Job {
-    /// Reads the header (the first `JOB_HEADER_LEN` bytes of the block).
-    pub fn parse_header(head: &[u8]) -> Result<Job, &'static str> {
-        let head = head.get(..JOB_HEADER_LEN).ok_or("job block too short")?;
-        if head[..8] != JOB_MAGIC {
-            return Err("no job block at 0x20100000 (bad magic)");
-        }
-        let word = |i: usize| {
-            let o = 8 + 4 * i;
-            u32::from_le_bytes([head[o], head[o + 1], head[o + 2], head[o + 3]]) as usize
-        };
-        if word(0) != JOB_VERSION as usize {
-            return Err("job block version is not 1");
-        }
-        Ok(Job {
-            model_offset: word(1),
-            model_len: word(2),
-            input_offset: word(3),
-            input_len: word(4),
-            input_count: word(5),
-            workspace_offset: word(6),
-        })
-    }
-
-    /// Checks that model and inputs lie inside `block` (the job area up to
-    /// the workspace) and that offsets are aligned.
-    pub fn check(&self, block: &[u8]) -> Result<(), &'static str> {
-        let job = self;
-        let inputs_end = job
-            .input_len
-            .checked_mul(job.input_count)
-            .and_then(|n| n.checked_add(job.input_offset));
-        let model_end = job.model_offset.checked_add(job.model_len);
-        match (model_end, inputs_end) {
-            (Some(m), Some(i)) if m <= block.len() && i <= block.len() => {}
-            _ => return Err("job block fields reach outside the job area"),
-        }
-        if !job.workspace_offset.is_multiple_of(8) || !job.model_offset.is_multiple_of(8) {
-            return Err("job block offsets are not 8-byte aligned");
-        }
-        Ok(())
-    }
-}
-
-impl Job {
-    /// The model bytes inside `block` (checked by `check`).
-    pub fn model<'a>(&self, block: &'a [u8]) -> &'a [u8] {
-        &block[self.model_offset..self.model_offset + self.model_len]
-    }
-
-    /// Input `k` (< `input_count`) inside `block` (checked by `check`).
-    pub fn input<'a>(&self, block: &'a [u8], k: usize) -> &'a [u8] {
-        let start = self.input_offset + k * self.input_len;
-        &block[start..start + self.input_len]
-    }
-
-    /// The `len`-byte workspace at `workspace_offset`, when it fits in the
-    /// job area.
-    pub fn workspace(&self, len: usize) -> Result<&'static mut [u8], &'static str> {
-        if self.workspace_offset + len > JOB_CAPACITY {
-            return Err("workspace does not fit in the job area");
-        }
-        // SAFETY: inside the job area, after the model and inputs (`check`),
-        // and taken once per run.
-        Ok(unsafe {
-            core::slice::from_raw_parts_mut((JOB_ADDR + self.workspace_offset) as *mut u8, len)
-        })
-    }
-}
+/// `midge_job::JOB_ADDR` as an address.
+pub const JOB_ADDR: usize = midge_job::JOB_ADDR as usize;
 
 /// The job the host's loader placed at `JOB_ADDR`: its header, parsed, and
 /// the job area up to the workspace, checked (`Job::check`).
-pub fn job_block() -> Result<(Job, &'static [u8]), &'static str> {
+pub fn job_block() -> Result<(Job, &'static [u8]), JobError> {
     // SAFETY: the host's loader wrote the job block there before reset; the
     // firmware's own data and stack live below JOB_ADDR (memory.x).
     let head = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, JOB_HEADER_LEN) };
     let job = Job::parse_header(head)?;
-    if job.workspace_offset > JOB_CAPACITY {
-        return Err("workspace offset outside the job area");
-    }
+    // `parse_header` checked workspace_offset <= JOB_CAPACITY.
     let block = unsafe { core::slice::from_raw_parts(JOB_ADDR as *const u8, job.workspace_offset) };
     job.check(block)?;
     Ok((job, block))
+}
+
+/// The `len`-byte workspace at the job's `workspace_offset`, when it fits
+/// in the job area.
+pub fn workspace(job: &Job, len: usize) -> Result<&'static mut [u8], JobError> {
+    if !job.workspace_fits(len) {
+        return Err(JobError::TooLarge(job.workspace_offset.saturating_add(len)));
+    }
+    // SAFETY: inside the job area, after the model and inputs (`check`),
+    // and taken once per run.
+    Ok(unsafe {
+        core::slice::from_raw_parts_mut((JOB_ADDR + job.workspace_offset) as *mut u8, len)
+    })
 }
 
 /// End of the footprint probes: stores `sink` where the optimiser must keep

@@ -2,7 +2,7 @@
    0x2010_0000 (the layout of bench/firmware/src/lib.rs), or with MIDGE_EMBEDDED_MODEL the
    one `midge quantize --c-source model.c` put in flash, runs every input of the job with
    per-layer SysTick readings from the layer hook, and prints over semihosting the harness
-   line protocol that midge_convert::firmware::parse_report reads. */
+   line protocol that midge_bench::firmware::parse_report reads. */
 #include <stddef.h>
 #include <stdint.h>
 #include <string.h>

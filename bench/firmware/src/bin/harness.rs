@@ -85,12 +85,12 @@ fn main() -> ! {
         Ok(j) => j,
         Err(e) => fail(&mut out, format_args!("{e}")),
     };
-    let model = match Model::<OPS>::parse_with_ops(job.model(block)) {
+    let model = match Model::<OPS>::parse_with_ops(job.model(block).unwrap_or(&[])) {
         Ok(m) => m,
         Err(e) => fail(&mut out, format_args!("model: {e}")),
     };
     let ws_len = model.workspace_len();
-    let ws = match job.workspace(ws_len) {
+    let ws = match workspace(&job, ws_len) {
         Ok(ws) => ws,
         Err(e) => fail(&mut out, format_args!("{e}")),
     };
@@ -109,7 +109,7 @@ fn main() -> ! {
     };
     let sp = paint_stack();
     for k in 0..job.input_count {
-        let result = model.run_observed(job.input(block, k), ws, &mut clock);
+        let result = model.run_observed(job.input(block, k).unwrap_or(&[]), ws, &mut clock);
         let output = match result {
             Ok(o) => o,
             Err(e) => fail(&mut out, format_args!("run {k}: {e}")),

@@ -1,9 +1,12 @@
-//! The `midge` binary: parses the command line, runs it through the
-//! library (`midge_convert::cli`), prints one line on error and exits.
+//! The `midge` binary: parses the command line (`cli`), runs it through the
+//! midge-convert and midge-bench libraries, prints one line on error and exits.
+
+mod bench;
+mod cli;
 
 use clap::error::ErrorKind;
 use clap::Parser;
-use midge_convert::cli::{self, Cli, EXIT_BAD_INPUT};
+use cli::{Cli, EXIT_BAD_INPUT};
 
 fn main() {
     let parsed = match Cli::try_parse() {

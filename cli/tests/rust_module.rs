@@ -3,6 +3,7 @@
 //! the module's op set, gives the host's output bytes, and refuses a model
 //! file whose ops are outside that set with the op named.
 
+#[path = "../../convert/tests/quant_support/mod.rs"]
 mod quant_support;
 
 use std::path::{Path, PathBuf};

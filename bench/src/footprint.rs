@@ -2,13 +2,13 @@
 //! runtime's own code measured from firmware ELFs, RAM by workspace, input,
 //! stack and static data, and the per-layer table with the memory timeline.
 
-use midge_runtime::{Bias, ElemType, Model, OpSet, Params, Weights};
+use midge_runtime::{Bias, Model, OpSet, Params, Weights};
 use serde::Serialize;
 
-use crate::compare::op_name;
 use crate::firmware;
-use crate::plan;
 use crate::{Error, Result};
+use midge_convert::compare::{elem_name, op_name, op_set_names};
+use midge_convert::plan;
 
 /// Allocated bytes of an ELF image by kind, from its section table.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize)]
@@ -112,7 +112,7 @@ pub fn runtime_cost(triple: &str, ops: OpSet) -> Result<RuntimeCost> {
     let build = firmware::build(triple, ops)?;
     let read = |p: &std::path::Path| -> Result<ElfSizes> {
         let place = p.display().to_string();
-        let b = crate::files::read(p, &crate::limits::ELF_FILE)?;
+        let b = midge_convert::files::read(p, &midge_convert::limits::ELF_FILE)?;
         elf_sizes(&b, &place)
     };
     let with_runtime = read(&build.footprint)?;
@@ -139,7 +139,7 @@ pub struct CFirmwareCost {
 /// Builds both firmwares for `triple` linking `ops` and reads their sizes.
 pub fn c_firmware_cost(triple: &str, ops: OpSet) -> Result<CFirmwareCost> {
     let read = |p: &std::path::Path| -> Result<ElfSizes> {
-        let b = crate::files::read(p, &crate::limits::ELF_FILE)?;
+        let b = midge_convert::files::read(p, &midge_convert::limits::ELF_FILE)?;
         elf_sizes(&b, &p.display().to_string())
     };
     Ok(CFirmwareCost {
@@ -147,13 +147,6 @@ pub fn c_firmware_cost(triple: &str, ops: OpSet) -> Result<CFirmwareCost> {
         c_example: read(&crate::c_firmware::build(triple, ops)?)?,
         rust_harness: read(&firmware::build(triple, ops)?.harness)?,
     })
-}
-
-/// The pairs of an op set as `op/precision` (e.g. `conv2d/int8`), in op-code order.
-pub fn op_set_names(ops: OpSet) -> Vec<String> {
-    ops.iter()
-        .map(|(op, e)| format!("{}/{}", op_name(op), elem_name(e)))
-        .collect()
 }
 
 /// Model-file bytes by kind (a serializable copy of the runtime's `SectionSizes`).
@@ -206,14 +199,6 @@ pub struct ModelFootprint {
     pub layers: Vec<LayerRow>,
     /// The layer at whose step `live_bytes` peaks (first one on ties).
     pub peak_layer: Option<usize>,
-}
-
-fn elem_name(e: ElemType) -> &'static str {
-    match e {
-        ElemType::U8 => "u8",
-        ElemType::I8 => "int8",
-        ElemType::F16 => "fp16",
-    }
 }
 
 /// Per-layer table, memory timeline and file sections of a parsed model.

@@ -3,6 +3,7 @@
 //! --max-drop), --help everywhere, and bad input → status 2, one stderr
 //! line, no output file.
 
+#[path = "../../convert/tests/quant_support/mod.rs"]
 mod quant_support;
 
 use std::path::Path;
@@ -171,7 +172,7 @@ fn bad_input_exits_2_with_one_line_and_no_output() {
 #[test]
 fn required_emulator_turns_not_measured_into_an_error() {
     let missing = "thumbv7m-none-eabi";
-    if midge_convert::firmware::rust_target_installed(missing).is_ok() {
+    if midge_bench::firmware::rust_target_installed(missing).is_ok() {
         println!("{missing} is installed here: nothing to check");
         return;
     }

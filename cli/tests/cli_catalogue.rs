@@ -4,6 +4,7 @@
 //! file / key / layer and the problem, leave no new file behind and leave
 //! every file that was there (a previous `out.midge` among them) as it was.
 
+#[path = "../../convert/tests/quant_support/mod.rs"]
 mod quant_support;
 
 use std::collections::BTreeMap;

@@ -12,17 +12,9 @@ use midge_runtime::OpSet;
 
 use crate::{Error, Result};
 
-/// Where the loader puts the job block (ZBT SSRAM2/3 + 1 MiB; see
-/// bench/firmware/memory.x) and how many bytes it may span with the workspace.
-pub const JOB_ADDR: u32 = 0x2010_0000;
-pub const JOB_CAPACITY: usize = 3 * 1024 * 1024;
-pub const JOB_MAGIC: [u8; 8] = *b"midgejob";
-pub const JOB_HEADER_LEN: usize = 64;
-/// NOPs by which the harness's two calibration loops differ.
-pub const CALIBRATION_NOPS: u64 = 40_000;
-/// SysTick ticks those NOPs take on an MPS2 board (25 MHz core clock, one
-/// instruction per nanosecond of virtual time under `-icount shift=0`).
-pub const CALIBRATION_EXPECTED_TICKS: u64 = 1_000;
+pub use midge_job::{
+    CALIBRATION_EXPECTED_TICKS, CALIBRATION_NOPS, JOB_ADDR, JOB_CAPACITY, JOB_HEADER_LEN, JOB_MAGIC,
+};
 
 const INSTALL_QEMU: &str = "apt-get update && apt-get install -y qemu-system-arm";
 
@@ -293,14 +285,8 @@ fn cargo_build(triple: &str, ops: OpSet) -> Result<PathBuf> {
     Ok(target_dir.join(triple).join("release"))
 }
 
-fn align8(v: usize) -> usize {
-    v.div_ceil(8) * 8
-}
-
-/// The job block: 64-byte header (magic, then little-endian u32: version 1,
-/// model offset, model length, input offset, input length, input count,
-/// workspace offset), the model, the inputs back to back. The workspace
-/// starts at the returned block's end (8-byte aligned).
+/// The job block (`midge_job` owns the layout): header, the model, the
+/// inputs back to back. The workspace starts at the returned block's end.
 pub fn job_block(model: &[u8], inputs: &[&[u8]], workspace_len: usize) -> Result<Vec<u8>> {
     let input_len = inputs.first().map_or(0, |i| i.len());
     if let Some(i) = inputs.iter().position(|i| i.len() != input_len) {
@@ -312,35 +298,13 @@ pub fn job_block(model: &[u8], inputs: &[&[u8]], workspace_len: usize) -> Result
             ),
         ));
     }
-    let model_offset = JOB_HEADER_LEN;
-    let input_offset = align8(model_offset + model.len());
-    let ws_offset = align8(input_offset + input_len * inputs.len());
-    if ws_offset + workspace_len > JOB_CAPACITY {
-        return Err(Error::new(
-            "emulator job",
-            format!(
-                "model, inputs and workspace need {} bytes, the harness's job area holds {JOB_CAPACITY}",
-                ws_offset + workspace_len
-            ),
-        ));
-    }
-    let mut b = vec![0u8; ws_offset];
-    b[..8].copy_from_slice(&JOB_MAGIC);
-    let words = [
-        1u32,
-        model_offset as u32,
-        model.len() as u32,
-        input_offset as u32,
-        input_len as u32,
-        inputs.len() as u32,
-        ws_offset as u32,
-    ];
-    for (i, w) in words.iter().enumerate() {
-        b[8 + 4 * i..12 + 4 * i].copy_from_slice(&w.to_le_bytes());
-    }
-    b[model_offset..model_offset + model.len()].copy_from_slice(model);
+    let job = midge_job::Job::layout(model.len(), input_len, inputs.len(), workspace_len)
+        .map_err(|e| Error::new("emulator job", e.to_string()))?;
+    let mut b = vec![0u8; job.workspace_offset];
+    b[..JOB_HEADER_LEN].copy_from_slice(&job.header());
+    b[job.model_offset..job.model_offset + model.len()].copy_from_slice(model);
     for (k, inp) in inputs.iter().enumerate() {
-        let o = input_offset + k * input_len;
+        let o = job.input_offset + k * input_len;
         b[o..o + input_len].copy_from_slice(inp);
     }
     Ok(b)

@@ -87,7 +87,7 @@ impl Target {
     /// Read and check a profile file.
     pub fn load(path: &Path) -> Result<Target> {
         let place = path.display().to_string();
-        let text = crate::files::read_text(path, &crate::limits::TARGET_FILE)?;
+        let text = midge_convert::files::read_text(path, &midge_convert::limits::TARGET_FILE)?;
         Target::from_toml_str(&text, &place)
     }
 

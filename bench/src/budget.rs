@@ -9,13 +9,13 @@ use midge_runtime::embed::AlignedBytes;
 use midge_runtime::Model;
 use serde::Serialize;
 
-use crate::description::Description;
 use crate::firmware::{self, EmulatedRun};
 use crate::footprint::{self, ModelFootprint};
-use crate::quantize::{self, QuantizeOptions};
-use crate::synth;
 use crate::target::Target;
 use crate::{Error, Result};
+use midge_convert::description::Description;
+use midge_convert::quantize::{self, QuantizeOptions};
+use midge_convert::synth;
 
 /// One line of a flash or RAM bill.
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -251,7 +251,7 @@ pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Re
             live_bytes: r.live_bytes as u64,
         });
     let mut budget = verdict(target, &fp.name, flash, ram, peak)?;
-    budget.op_set = footprint::op_set_names(ops);
+    budget.op_set = midge_convert::compare::op_set_names(ops);
     if runtime.is_ok() && crate::c_firmware::unavailable(triple).is_none() {
         match footprint::c_firmware_cost(triple, ops) {
             Ok(c) => budget.c_firmware = Some(c),
@@ -294,6 +294,9 @@ fn emulate_once(
     firmware::run(&target.emulator.machine, &build.harness, &job, timeout)
 }
 
+/// Exit status of `midge budget` when the model does not fit.
+pub const EXIT_DOES_NOT_FIT: i32 = 4;
+
 /// Seed for synthetic weights when a description has none.
 pub const DEFAULT_SEED: u64 = 0x6D_6964_6765;
 
@@ -316,7 +319,7 @@ pub fn model_bytes_for(path: &Path, seed: u64) -> Result<Vec<u8>> {
         }
         return Ok(synth::synth_quantize(&desc, seed)?.bytes);
     }
-    crate::files::read(path, &crate::limits::MODEL_FILE)
+    midge_convert::files::read(path, &midge_convert::limits::MODEL_FILE)
 }
 
 fn fmt_bytes(b: u64) -> String {
@@ -332,8 +335,8 @@ impl Budget {
     pub fn render_text(&self) -> String {
         let mut s = format!(
             "budget of {} on {}\n",
-            crate::error::escape(&self.model),
-            crate::error::escape(&self.target)
+            midge_convert::error::escape(&self.model),
+            midge_convert::error::escape(&self.target)
         );
         if !self.op_set.is_empty() {
             s += &format!(
@@ -468,53 +471,4 @@ mod tests {
         .unwrap_err();
         assert!(e.to_string().contains("RAM margin"), "{e}");
     }
-}
-
-/// Exit status of `midge budget` when the model does not fit.
-pub const EXIT_DOES_NOT_FIT: i32 = 4;
-
-/// Flags of `midge budget`.
-#[derive(clap::Args, Debug)]
-pub struct BudgetArgs {
-    /// A .midge model file, or a description (TOML); a description without
-    /// weights gets seeded synthetic weights.
-    pub model: std::path::PathBuf,
-    /// Target profile: a name under models/targets (m4-80, m0plus-48,
-    /// m7-400) or a profile file.
-    #[arg(long)]
-    pub target: String,
-    /// Print JSON instead of a table.
-    #[arg(long)]
-    pub json: bool,
-    /// Skip the emulated run (no stack high-water mark).
-    #[arg(long)]
-    pub no_emulate: bool,
-    /// Do not build firmware to measure the runtime's code size.
-    #[arg(long)]
-    pub no_runtime_size: bool,
-    /// Seed of synthetic weights.
-    #[arg(long, default_value_t = DEFAULT_SEED)]
-    pub seed: u64,
-}
-
-/// `midge budget`: prints the bill and verdict; returns the exit status
-/// (0 fits, `EXIT_DOES_NOT_FIT` otherwise).
-pub fn cmd_budget(a: &BudgetArgs) -> Result<i32> {
-    let target = Target::resolve(&a.target)?;
-    let bytes = model_bytes_for(&a.model, a.seed)?;
-    let opts = BudgetOptions {
-        measure_runtime: !a.no_runtime_size,
-        emulate: !a.no_emulate,
-        ..BudgetOptions::default()
-    };
-    let ev = evaluate(&bytes, &target, &opts)
-        .map_err(|e| Error::new(a.model.display().to_string(), e.to_string()))?;
-    if a.json {
-        let text = serde_json::to_string_pretty(&ev.budget)
-            .map_err(|e| Error::new("budget", format!("cannot write JSON: {e}")))?;
-        println!("{text}");
-    } else {
-        print!("{}", ev.budget.render_text());
-    }
-    Ok(if ev.budget.fits { 0 } else { EXIT_DOES_NOT_FIT })
 }

@@ -1,6 +1,6 @@
 //! The `midge` command line: flag parsing (clap) and the wiring of library
-//! calls for `quantize`, `compare`, `classify` and `show`. `main.rs` only
-//! calls `run` and turns its result into an exit status.
+//! calls for every subcommand (`quantize`, `compare`, `classify`, `show`,
+//! `budget`, `assess`, `draft`, and `report`/`sweep` in `bench.rs`).
 
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
@@ -9,15 +9,16 @@ use clap::{Parser, Subcommand, ValueEnum};
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::{ElemType, Model};
 
-use crate::c_source;
-use crate::calibrate::RangeMethod;
-use crate::compare::{self, op_name, CompareOptions};
-use crate::error::{escape, escape_path, Error, Result};
-use crate::firmware_module;
-use crate::graph::Precision;
-use crate::output;
-use crate::plan;
-use crate::quantize::{self, QuantizeOptions};
+use midge_convert::c_source;
+use midge_convert::calibrate::RangeMethod;
+use midge_convert::compare::{self, elem_name, op_name, CompareOptions};
+use midge_convert::error::{escape, escape_path, Error, Result};
+use midge_convert::files::{parse_model, read_model};
+use midge_convert::firmware_module;
+use midge_convert::graph::Precision;
+use midge_convert::output;
+use midge_convert::plan;
+use midge_convert::quantize::{self, QuantizeOptions};
 
 /// Exit status for bad input (missing file, parse error, ...).
 pub const EXIT_BAD_INPUT: i32 = 2;
@@ -28,7 +29,7 @@ pub const EXIT_DROP_EXCEEDED: i32 = 3;
 #[command(
     name = "midge",
     version,
-    about = "Put small float CNN image classifiers onto microcontrollers: calibrate, quantize, plan memory, measure the accuracy drop"
+    about = "Put small float CNN image classifiers onto microcontrollers: calibrate, quantize, plan memory, measure the accuracy drop, footprint and latency"
 )]
 pub struct Cli {
     #[command(subcommand)]
@@ -47,7 +48,7 @@ pub enum Command {
     /// Show a .midge model: layers, shapes, quantization, memory plan.
     Show(ShowArgs),
     /// Flash and RAM of a model on a target profile: fits or does not fit (exit 4).
-    Budget(crate::budget::BudgetArgs),
+    Budget(crate::bench::BudgetArgs),
     /// The whole job: quantize, accuracy-drop report and budget in one go.
     ///
     /// Quantizes and writes the model, reports the accuracy drop on the
@@ -59,8 +60,12 @@ pub enum Command {
     /// From ONNX everything but labels and image folders is read from the
     /// graph; from safetensors the layers are guessed from tensor names and
     /// shapes, with guesses and unknowable items marked for editing.
-    Draft(crate::draft::DraftArgs),
-    // Further subcommands are added here and dispatched in `run`.
+    Draft(midge_convert::draft::DraftArgs),
+    /// Footprint, per-layer host latency, budgets and emulated runs of one
+    /// model file or description.
+    Report(crate::bench::ReportArgs),
+    /// Scale a description in width and resolution and budget every variant.
+    Sweep(crate::bench::SweepArgs),
 }
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
@@ -235,9 +240,11 @@ pub fn run(cli: Cli) -> Result<i32> {
         Command::Compare(a) => cmd_compare(&a),
         Command::Classify(a) => cmd_classify(&a),
         Command::Show(a) => cmd_show(&a),
-        Command::Budget(a) => crate::budget::cmd_budget(&a),
+        Command::Budget(a) => crate::bench::cmd_budget(&a),
         Command::Assess(a) => cmd_assess(&a),
-        Command::Draft(a) => crate::draft::cmd_draft(&a),
+        Command::Draft(a) => midge_convert::draft::cmd_draft(&a),
+        Command::Report(a) => crate::bench::cmd_report(a),
+        Command::Sweep(a) => crate::bench::cmd_sweep(a),
     }
 }
 
@@ -379,8 +386,8 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
     let conv = quantize::quantize_description(&a.description, &opts)?;
     let place = a.description.display().to_string();
     let target = match (&a.target, &conv.desc.target) {
-        (Some(t), _) => crate::target::Target::resolve(t)?,
-        (None, Some(path)) => crate::target::Target::load(path)?,
+        (Some(t), _) => midge_bench::target::Target::resolve(t)?,
+        (None, Some(path)) => midge_bench::target::Target::load(path)?,
         (None, None) => {
             return Err(Error::new(
                 &place,
@@ -395,12 +402,12 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
         )
     })?;
     let report = compare::evaluate(&conv, &validation, a.also_fp16, opts.progress)?;
-    let budget_opts = crate::budget::BudgetOptions {
+    let budget_opts = midge_bench::budget::BudgetOptions {
         emulate: !a.no_emulate,
-        ..crate::budget::BudgetOptions::default()
+        ..midge_bench::budget::BudgetOptions::default()
     };
     let q = &conv.quantized;
-    let ev = crate::budget::evaluate(&q.bytes, &target, &budget_opts)
+    let ev = midge_bench::budget::evaluate(&q.bytes, &target, &budget_opts)
         .map_err(|e| Error::new(&place, e.to_string()))?;
     let mut inputs = conv.inputs(&a.description);
     let target_path = a.target.as_ref().map(PathBuf::from);
@@ -434,7 +441,7 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
     Ok(if ev.budget.fits {
         0
     } else {
-        crate::budget::EXIT_DOES_NOT_FIT
+        midge_bench::budget::EXIT_DOES_NOT_FIT
     })
 }
 
@@ -456,27 +463,8 @@ fn cmd_compare(a: &CompareArgs) -> Result<i32> {
     Ok(drop_status(report.drop_pp, a.max_drop))
 }
 
-/// Read a model file into aligned bytes and check that it parses.
-pub fn read_model(path: &Path) -> Result<AlignedBytes> {
-    let place = path.display().to_string();
-    let raw = crate::files::read(path, &crate::limits::MODEL_FILE)?;
-    let bytes = AlignedBytes::from_slice(&raw);
-    Model::parse(&bytes)
-        .map_err(|e| Error::new(&place, format!("not a valid midge model: {e}")))?;
-    Ok(bytes)
-}
-
-pub(crate) fn parse_model<'a>(bytes: &'a AlignedBytes, path: &Path) -> Result<Model<'a>> {
-    Model::parse(bytes).map_err(|e| {
-        Error::new(
-            path.display().to_string(),
-            format!("not a valid midge model: {e}"),
-        )
-    })
-}
-
 fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
-    let result = crate::classify::classify_path(&a.model, &a.images, a.resize)?;
+    let result = midge_convert::classify::classify_path(&a.model, &a.images, a.resize)?;
     if a.json {
         let text = serde_json::to_string_pretty(&result)
             .map_err(|e| Error::new("classify", format!("cannot write JSON: {e}")))?;
@@ -485,14 +473,6 @@ fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
         print!("{}", result.to_text(a.top));
     }
     Ok(0)
-}
-
-fn elem_name(e: ElemType) -> &'static str {
-    match e {
-        ElemType::U8 => "u8",
-        ElemType::I8 => "int8",
-        ElemType::F16 => "fp16",
-    }
 }
 
 /// The text `midge show` prints.
