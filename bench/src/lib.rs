@@ -4,6 +4,7 @@
 
 pub mod budget;
 pub mod c_firmware;
+pub mod chart;
 pub mod emulated;
 pub mod firmware;
 pub mod footprint;

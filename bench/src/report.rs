@@ -5,7 +5,9 @@
 use std::fmt::Write as _;
 
 use crate::budget::Budget;
+use crate::chart::{bar_chart, capacity_chart, esc, group, kib, page, Capacity};
 use crate::footprint::ModelFootprint;
+
 use midge_convert::compare::LayerRow as SqnrRow;
 use midge_convert::error::escape;
 use serde::Serialize;
@@ -224,71 +226,12 @@ impl BenchReport {
 
     pub fn render_html(&self) -> String {
         let fp = &self.footprint;
-        let mut body = String::new();
-        let _ = write!(
-            body,
-            "<h1>{}</h1><p class=sub>{} layers · {} parameters · {} MACs · file {} · workspace {} (lower bound {})</p>",
-            esc(&fp.name),
-            fp.layers.len(),
-            group(fp.params),
-            group(fp.macs),
-            kib(fp.sections.total as u64),
-            kib(fp.workspace_len as u64),
-            kib(fp.lower_bound as u64)
-        );
-        if !self.budgets.is_empty() {
-            body += "<h2>Budgets</h2><div class=cards>";
-            for b in &self.budgets {
-                let _ = write!(
-                    body,
-                    "<div class='card {}'><b>{}</b><span>{}</span>flash {} / {}<br>RAM {} / {}{}</div>",
-                    if b.fits { "ok" } else { "over" },
-                    esc(&b.target),
-                    if b.fits { "fits" } else { "does not fit" },
-                    kib(b.flash_bytes),
-                    kib(b.flash_limit),
-                    kib(b.ram_bytes),
-                    kib(b.ram_limit),
-                    if b.complete { "" } else { "<br><i>some items not measured</i>" }
-                );
-            }
-            body += "</div>";
-            if let Some(b) = self.budgets.iter().find(|b| !b.op_set.is_empty()) {
-                let _ = write!(
-                    body,
-                    "<p class=sub>runtime code measured on firmware linking the model's op set: {}</p>",
-                    esc(&b.op_set.join(", "))
-                );
-            }
-        }
-        let labels: Vec<String> = fp
-            .layers
-            .iter()
-            .map(|r| format!("{} {}", r.index, r.op))
-            .collect();
-        let live: Vec<f64> = fp.layers.iter().map(|r| r.live_bytes as f64).collect();
-        let mut lines = vec![(fp.workspace_len as f64, "workspace".to_string())];
-        for b in &self.budgets {
-            lines.push((b.ram_limit as f64, format!("{} RAM", b.target)));
-        }
-        body += "<h2>Memory timeline</h2><p class=note>Workspace bytes live at each layer step; the darker bar sets the peak.</p>";
-        body += &bar_chart(&labels, &live, "B", fp.peak_layer, &lines);
+        let labels = layer_labels(fp);
+        let mut body = model_heading(fp);
+        body += &budget_section(&self.budgets);
+        body += &memory_section(fp, &self.budgets);
         if let Some(h) = &self.host {
-            let v: Vec<f64> = h
-                .layers
-                .iter()
-                .map(|l| l.time.median_ns as f64 / 1e3)
-                .collect();
-            let _ = write!(
-                body,
-                "<h2>Host latency per layer</h2><p class=note>Median of {} runs after {} warm-up, µs; whole model {} µs median ({}–{}).</p>",
-                h.runs,
-                h.warmup,
-                us(h.total.median_ns),
-                us(h.total.min_ns),
-                us(h.total.max_ns)
-            );
-            body += &bar_chart(&labels, &v, "µs", None, &[]);
+            body += &host_latency_section(h, &labels);
         }
         for e in &self.emulated {
             let v: Vec<f64> = e.layers.iter().map(|l| l.instructions as f64).collect();
@@ -304,7 +247,14 @@ impl BenchReport {
                 if e.matches_host { "equal" } else { "differ from" },
                 e.stack_runtime
             );
-            body += &bar_chart(&labels, &v, "instr", None, &[]);
+            body += &bar_chart(
+                &format!("instructions-{}", e.target),
+                &labels,
+                &v,
+                "instructions",
+                None,
+                &[],
+            );
         }
         for (t, why) in &self.not_emulated {
             let _ = write!(
@@ -315,30 +265,161 @@ impl BenchReport {
             );
         }
         if let Some(q) = &self.sqnr {
-            let l: Vec<String> = q.iter().map(|r| r.name.clone()).collect();
-            let v: Vec<f64> = q.iter().map(|r| r.sqnr_db.unwrap_or(0.0)).collect();
-            body += "<h2>Per-layer SQNR</h2><p class=note>Float reference vs the runtime, dB (higher is better; exact layers shown as 0).</p>";
-            body += &bar_chart(&l, &v, "dB", None, &[]);
+            body += &sqnr_section(q);
         }
-        body += "<h2>Layers</h2><table><tr><th>#</th><th>op</th><th>type</th><th>output</th><th>params</th><th>weight B</th><th>MACs</th><th>live B</th></tr>";
-        for r in &fp.layers {
-            let _ = write!(
-                body,
-                "<tr{}><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
-                if Some(r.index) == fp.peak_layer { " class=peak" } else { "" },
-                r.index,
-                r.op,
-                r.elem,
-                shape(r.output_shape),
-                group(r.params),
-                group(r.weight_bytes as u64),
-                group(r.macs),
-                group(r.live_bytes as u64)
-            );
-        }
-        body += "</table>";
-        page(&format!("midge bench — {}", fp.name), &body)
+        body += &layers_table(fp);
+        page(&format!("midge bench — {}", fp.name), "bench", &body)
     }
+}
+
+/// `index op` of every layer: the x labels of per-layer charts.
+pub fn layer_labels(fp: &ModelFootprint) -> Vec<String> {
+    fp.layers
+        .iter()
+        .map(|r| format!("{} {}", r.index, r.op))
+        .collect()
+}
+
+/// The page title and the model's one-line summary.
+pub fn model_heading(fp: &ModelFootprint) -> String {
+    format!(
+        "<h1>{}</h1><p class=sub>{} layers · {} parameters · {} MACs · file {} · workspace {} (lower bound {})</p>",
+        esc(&fp.name),
+        fp.layers.len(),
+        group(fp.params),
+        group(fp.macs),
+        kib(fp.sections.total as u64),
+        kib(fp.workspace_len as u64),
+        kib(fp.lower_bound as u64)
+    )
+}
+
+/// Budgets: a verdict card per target and flash/RAM used against what each
+/// target has available (empty without budgets).
+pub fn budget_section(budgets: &[Budget]) -> String {
+    if budgets.is_empty() {
+        return String::new();
+    }
+    let mut body = String::from("<h2>Budgets</h2><div class=cards>");
+    for b in budgets {
+        let _ = write!(
+            body,
+            "<div class='card {}'><b>{}</b><span>{}</span>flash {} / {}<br>RAM {} / {}{}</div>",
+            if b.fits { "ok" } else { "over" },
+            esc(&b.target),
+            if b.fits { "fits" } else { "does not fit" },
+            kib(b.flash_bytes),
+            kib(b.flash_limit),
+            kib(b.ram_bytes),
+            kib(b.ram_limit),
+            if b.complete {
+                ""
+            } else {
+                "<br><i>some items not measured</i>"
+            }
+        );
+    }
+    body += "</div>";
+    let rows: Vec<Capacity> = budgets
+        .iter()
+        .flat_map(|b| {
+            [
+                Capacity {
+                    label: format!("{} flash", b.target),
+                    used: b.flash_bytes,
+                    available: b.flash_limit,
+                },
+                Capacity {
+                    label: format!("{} RAM", b.target),
+                    used: b.ram_bytes,
+                    available: b.ram_limit,
+                },
+            ]
+        })
+        .collect();
+    body += "<p class=note>Measured bill items against the profile's memory minus what it reserves for the application; the dashed line is all of it.</p>";
+    body += &capacity_chart("budget", &rows);
+    if let Some(b) = budgets.iter().find(|b| !b.op_set.is_empty()) {
+        let _ = write!(
+            body,
+            "<p class=sub>runtime code measured on firmware linking the model's op set: {}</p>",
+            esc(&b.op_set.join(", "))
+        );
+    }
+    body
+}
+
+/// Memory timeline: workspace bytes live at each layer step from the plan,
+/// with the workspace, its lower bound and each target's RAM as lines.
+pub fn memory_section(fp: &ModelFootprint, budgets: &[Budget]) -> String {
+    let live: Vec<f64> = fp.layers.iter().map(|r| r.live_bytes as f64).collect();
+    let mut lines = vec![(fp.workspace_len as f64, "workspace".to_string())];
+    if fp.lower_bound != fp.workspace_len {
+        lines.push((fp.lower_bound as f64, "lower bound".to_string()));
+    }
+    for b in budgets {
+        lines.push((b.ram_limit as f64, format!("{} RAM", b.target)));
+    }
+    let mut body = String::from("<h2>Memory timeline</h2><p class=note>Workspace bytes live at each layer step; the darker bar sets the peak (the lower bound of any placement).</p>");
+    body += &bar_chart(
+        "memory",
+        &layer_labels(fp),
+        &live,
+        "B",
+        fp.peak_layer,
+        &lines,
+    );
+    body
+}
+
+/// Host latency per layer: median µs per layer over the timed runs.
+pub fn host_latency_section(h: &HostLatency, labels: &[String]) -> String {
+    let v: Vec<f64> = h
+        .layers
+        .iter()
+        .map(|l| l.time.median_ns as f64 / 1e3)
+        .collect();
+    let mut body = format!(
+        "<h2>Host latency per layer</h2><p class=note>Median of {} runs after {} warm-up, µs; whole model {} µs median ({}–{}).</p>",
+        h.runs,
+        h.warmup,
+        us(h.total.median_ns),
+        us(h.total.min_ns),
+        us(h.total.max_ns)
+    );
+    body += &bar_chart("host-latency", labels, &v, "µs", None, &[]);
+    body
+}
+
+/// Per-layer SQNR of a compare run as a bar chart.
+pub fn sqnr_section(q: &[SqnrRow]) -> String {
+    let l: Vec<String> = q.iter().map(|r| r.name.clone()).collect();
+    let v: Vec<f64> = q.iter().map(|r| r.sqnr_db.unwrap_or(0.0)).collect();
+    let mut body = String::from("<h2>Per-layer SQNR</h2><p class=note>Float reference vs the runtime, dB over all images (higher is better; layers equal to the float reference are shown as 0).</p>");
+    body += &bar_chart("sqnr", &l, &v, "dB", None, &[]);
+    body
+}
+
+/// The layer table of the footprint, the peak layer marked.
+pub fn layers_table(fp: &ModelFootprint) -> String {
+    let mut body = String::from("<h2>Layers</h2><table><tr><th>#</th><th>op</th><th>type</th><th>output</th><th>params</th><th>weight B</th><th>MACs</th><th>live B</th></tr>");
+    for r in &fp.layers {
+        let _ = write!(
+            body,
+            "<tr{}><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            if Some(r.index) == fp.peak_layer { " class=peak" } else { "" },
+            r.index,
+            r.op,
+            r.elem,
+            shape(r.output_shape),
+            group(r.params),
+            group(r.weight_bytes as u64),
+            group(r.macs),
+            group(r.live_bytes as u64)
+        );
+    }
+    body += "</table>";
+    body
 }
 
 /// Terminal table of a sweep: one row per variant, per target flash, RAM,
@@ -398,16 +479,25 @@ pub fn sweep_html(name: &str, rows: &[SweepRow]) -> String {
         .map(|r| format!("×{} {}×{}", r.width, r.input_hw.0, r.input_hw.1))
         .collect();
     let mut body = format!("<h1>Sweep of {}</h1>", esc(name));
-    type Series = (&'static str, &'static str, fn(&SweepRow) -> f64);
+    type Series = (
+        &'static str,
+        &'static str,
+        &'static str,
+        fn(&SweepRow) -> f64,
+    );
     let series: [Series; 3] = [
-        ("MACs per variant", "MACs", |r| r.macs as f64),
-        ("Model file size per variant", "B", |r| r.model_bytes as f64),
-        ("Workspace per variant", "B", |r| r.workspace_len as f64),
+        ("macs", "MACs per variant", "MACs", |r| r.macs as f64),
+        ("file", "Model file size per variant", "B", |r| {
+            r.model_bytes as f64
+        }),
+        ("workspace", "Workspace per variant", "B", |r| {
+            r.workspace_len as f64
+        }),
     ];
-    for (title, unit, value) in series {
+    for (chart, title, unit, value) in series {
         let _ = write!(body, "<h2>{title}</h2>");
         let values: Vec<f64> = ok.iter().map(|r| value(r)).collect();
-        body += &bar_chart(&labels, &values, unit, None, &[]);
+        body += &bar_chart(chart, &labels, &values, unit, None, &[]);
     }
     let targets: Vec<String> = ok
         .first()
@@ -437,6 +527,7 @@ pub fn sweep_html(name: &str, rows: &[SweepRow]) -> String {
             .find_map(|r| r.cells.get(k))
             .map_or(0, |c| c.ram_limit);
         body += &bar_chart(
+            &format!("ram-{t}"),
             &labels,
             &ram,
             "B",
@@ -453,184 +544,14 @@ pub fn sweep_html(name: &str, rows: &[SweepRow]) -> String {
                 "<h2>Estimated latency on {}</h2><p class=note>Emulated instructions × the profile's CPI at its clock, ms (an estimate).</p>",
                 esc(t)
             );
-            body += &bar_chart(&labels, &ms, "ms", None, &[]);
+            body += &bar_chart(&format!("ms-{t}"), &labels, &ms, "ms", None, &[]);
         }
     }
     body += "<h2>Table</h2><pre>";
     body += &esc(&sweep_text(rows));
     body += "</pre>";
-    page(&format!("midge sweep — {name}"), &body)
+    page(&format!("midge sweep — {name}"), "sweep", &body)
 }
-
-fn esc(s: &str) -> String {
-    s.replace('&', "&amp;")
-        .replace('<', "&lt;")
-        .replace('>', "&gt;")
-        .replace('"', "&quot;")
-        .replace('\'', "&#39;")
-}
-
-fn group(v: u64) -> String {
-    let s = v.to_string();
-    let mut out = String::new();
-    for (i, ch) in s.chars().enumerate() {
-        if i > 0 && (s.len() - i).is_multiple_of(3) {
-            out.push('\u{2009}');
-        }
-        out.push(ch);
-    }
-    out
-}
-
-fn kib(b: u64) -> String {
-    if b >= 1024 {
-        format!("{:.1} KiB", b as f64 / 1024.0)
-    } else {
-        format!("{b} B")
-    }
-}
-
-/// A dashed reference line of a chart: value and caption.
-pub type RefLine = (f64, String);
-
-/// A vertical bar chart as inline SVG: one bar per label, an optional
-/// highlighted bar and dashed reference lines (value, caption).
-pub fn bar_chart(
-    labels: &[String],
-    values: &[f64],
-    unit: &str,
-    highlight: Option<usize>,
-    lines: &[RefLine],
-) -> String {
-    let n = values.len().max(1);
-    let (w, h, left, bottom, top) = (900.0f64, 300.0f64, 70.0f64, 100.0f64, 26.0f64);
-    let plot_w = w - left - 10.0;
-    let plot_h = h - bottom - top;
-    let top_bar = values.iter().copied().fold(0.0f64, f64::max);
-    // Reference lines far above the bars would flatten them: those are
-    // named in a caption instead of drawn.
-    let (drawn, off): (Vec<&RefLine>, Vec<&RefLine>) = lines
-        .iter()
-        .partition(|l| l.0 <= 3.0 * top_bar || top_bar <= 0.0);
-    let max = values
-        .iter()
-        .copied()
-        .chain(drawn.iter().map(|l| l.0))
-        .fold(0.0f64, f64::max)
-        .max(1e-9);
-    let y = |v: f64| top + plot_h * (1.0 - v.max(0.0) / max);
-    let bw = plot_w / n as f64;
-    let mut s = format!(
-        "<svg class='chart' viewBox='0 0 {w} {h}' xmlns='http://www.w3.org/2000/svg' role='img'>"
-    );
-    for k in 0..=4 {
-        let v = max * k as f64 / 4.0;
-        let _ = write!(
-            s,
-            "<line x1='{left}' x2='{}' y1='{y:.1}' y2='{y:.1}' class='grid'/><text x='{}' y='{:.1}' class='tick' text-anchor='end'>{}</text>",
-            w - 10.0,
-            left - 6.0,
-            y(v) + 4.0,
-            short(v),
-            y = y(v)
-        );
-    }
-    for (i, &v) in values.iter().enumerate() {
-        let x = left + bw * i as f64;
-        let cls = if Some(i) == highlight {
-            "bar hi"
-        } else {
-            "bar"
-        };
-        let label = labels.get(i).map(|l| esc(l)).unwrap_or_default();
-        let _ = write!(
-            s,
-            "<rect class='{cls}' x='{:.1}' y='{:.1}' width='{:.1}' height='{:.1}'><title>{label}: {} {unit}</title></rect>",
-            x + bw * 0.12,
-            y(v),
-            (bw * 0.76).max(0.5),
-            (top + plot_h - y(v)).max(0.0),
-            short(v)
-        );
-        if n <= 48 {
-            let _ = write!(
-                s,
-                "<text class='lab' transform='translate({:.1},{:.1}) rotate(-55)' text-anchor='end'>{label}</text>",
-                x + bw / 2.0 + 3.0,
-                top + plot_h + 10.0
-            );
-        }
-    }
-    for (v, cap) in drawn {
-        let _ = write!(
-            s,
-            "<line class='ref' x1='{left}' x2='{}' y1='{:.1}' y2='{:.1}'/><text class='refcap' x='{}' y='{:.1}' text-anchor='end'>{} {}</text>",
-            w - 10.0,
-            y(*v),
-            y(*v),
-            w - 12.0,
-            y(*v) - 4.0,
-            esc(cap),
-            short(*v)
-        );
-    }
-    let _ = write!(s, "<text class='unit' x='{left}' y='14'>{unit}</text>");
-    if !off.is_empty() {
-        let names: Vec<String> = off
-            .iter()
-            .map(|(v, c)| format!("{} {}", esc(c), short(*v)))
-            .collect();
-        let _ = write!(
-            s,
-            "<text class='refcap' x='{}' y='14'>off scale: {}</text>",
-            left + 40.0,
-            names.join(", ")
-        );
-    }
-    s += "</svg>";
-    s
-}
-
-fn short(v: f64) -> String {
-    let a = v.abs();
-    if a >= 1e9 {
-        format!("{:.1}G", v / 1e9)
-    } else if a >= 1e6 {
-        format!("{:.1}M", v / 1e6)
-    } else if a >= 1e4 {
-        format!("{:.1}k", v / 1e3)
-    } else if a >= 100.0 || v == v.trunc() {
-        format!("{v:.0}")
-    } else {
-        format!("{v:.2}")
-    }
-}
-
-fn page(title: &str, body: &str) -> String {
-    format!(
-        "<!doctype html><html lang=en><head><meta charset=utf-8><title>{}</title><style>{}</style></head><body><header>midge · bench</header><main>{}</main></body></html>\n",
-        esc(title),
-        STYLE,
-        body
-    )
-}
-
-const STYLE: &str = "\
-body{margin:0;background:#f6f3ee;color:#2b2a28;font:15px/1.45 'Iowan Old Style',Georgia,serif}\
-header{background:#23403a;color:#f6f3ee;padding:10px 28px;font:600 13px/1 ui-monospace,Menlo,monospace;letter-spacing:.18em;text-transform:uppercase}\
-main{max-width:960px;margin:0 auto;padding:8px 28px 48px}\
-h1{font-weight:600;margin:22px 0 2px}h2{font-size:17px;margin:30px 0 4px;border-bottom:2px solid #d9cbb3;padding-bottom:3px}\
-.sub,.note{color:#6b655c;margin:2px 0 8px}\
-.cards{display:flex;gap:12px;flex-wrap:wrap}.card{padding:10px 14px;border-radius:6px;background:#fff;border-left:6px solid #3f8f7f;font:13px ui-monospace,Menlo,monospace}\
-.card.over{border-left-color:#c2572f}.card b{display:block;font-size:14px}.card span{float:right;margin-left:12px;font-weight:700}\
-.card.ok span{color:#2f7d6d}.card.over span{color:#c2572f}\
-svg.chart{width:100%;height:auto;background:#fff;border-radius:6px}\
-.grid{stroke:#ece5d9}.tick,.lab,.unit{font:10px ui-monospace,Menlo,monospace;fill:#6b655c}\
-.bar{fill:#5fa596}.bar.hi{fill:#23403a}.bar:hover{fill:#d9953b}\
-.ref{stroke:#c2572f;stroke-dasharray:5 4}.refcap{font:11px ui-monospace,Menlo,monospace;fill:#c2572f}\
-table{border-collapse:collapse;font:12px ui-monospace,Menlo,monospace;background:#fff}\
-td,th{padding:3px 9px;text-align:right;border-bottom:1px solid #eee6d8}td:nth-child(2),th:nth-child(2){text-align:left}\
-tr.peak td{background:#f3e3cc;font-weight:700}pre{font:12px ui-monospace,Menlo,monospace;background:#fff;padding:10px;overflow:auto}";
 
 #[cfg(test)]
 mod tests {
@@ -649,20 +570,5 @@ mod tests {
         assert_eq!(lines[0], "a     bb");
         assert_eq!(lines[2], "xyz    1");
         assert_eq!(lines[3], "q    200");
-    }
-
-    #[test]
-    fn chart_escapes_and_highlights() {
-        let svg = bar_chart(
-            &["0 <conv>".into(), "1 add".into()],
-            &[10.0, 20.0],
-            "B",
-            Some(1),
-            &[(15.0, "limit".into())],
-        );
-        assert!(svg.contains("&lt;conv&gt;") && !svg.contains("<conv>"));
-        assert_eq!(svg.matches("class='bar hi'").count(), 1);
-        assert!(svg.contains("class='ref'"));
-        assert_eq!(group(1234567), "1\u{2009}234\u{2009}567");
     }
 }
