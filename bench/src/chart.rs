@@ -429,8 +429,10 @@ pub fn heat_map(
     );
     let _ = write!(
         s,
-        "<text class='unit' x='{left}' y='14'>{} →</text><text class='unit' transform='translate(14,{top}) rotate(90)'>{} →</text>",
+        "<text class='unit' x='{left}' y='14'>{} →</text><text class='unit' x='{}' y='{}' text-anchor='end'>{} ↓</text>",
         esc(cols),
+        left - 6.0,
+        top - 6.0,
         esc(rows)
     );
     for (j, l) in labels.iter().enumerate() {

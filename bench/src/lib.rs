@@ -2,6 +2,7 @@
 //! target budgets and architecture sweeps, rendered as tables, JSON or HTML.
 //! `midge report` and `midge sweep` (cli/) only parse flags and call `bench_report`/`sweep`.
 
+pub mod assess_page;
 pub mod budget;
 pub mod c_firmware;
 pub mod chart;

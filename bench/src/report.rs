@@ -231,7 +231,7 @@ impl BenchReport {
         body += &budget_section(&self.budgets);
         body += &memory_section(fp, &self.budgets);
         if let Some(h) = &self.host {
-            body += &host_latency_section(h, &labels);
+            body += &host_latency_section("host-latency", h, &labels);
         }
         for e in &self.emulated {
             let v: Vec<f64> = e.layers.iter().map(|l| l.instructions as f64).collect();
@@ -373,7 +373,7 @@ pub fn memory_section(fp: &ModelFootprint, budgets: &[Budget]) -> String {
 }
 
 /// Host latency per layer: median µs per layer over the timed runs.
-pub fn host_latency_section(h: &HostLatency, labels: &[String]) -> String {
+pub fn host_latency_section(chart: &str, h: &HostLatency, labels: &[String]) -> String {
     let v: Vec<f64> = h
         .layers
         .iter()
@@ -387,7 +387,7 @@ pub fn host_latency_section(h: &HostLatency, labels: &[String]) -> String {
         us(h.total.min_ns),
         us(h.total.max_ns)
     );
-    body += &bar_chart("host-latency", labels, &v, "µs", None, &[]);
+    body += &bar_chart(chart, labels, &v, "µs", None, &[]);
     body
 }
 

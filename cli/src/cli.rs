@@ -204,6 +204,10 @@ pub struct AssessArgs {
     /// Print one JSON object {"model", "report", "budget"} instead of tables.
     #[arg(long)]
     pub json: bool,
+    /// Also write one self-contained HTML page: accuracy drop, confusion,
+    /// per-layer SQNR, logit error, budget, memory timeline, latency.
+    #[arg(long, value_name = "FILE")]
+    pub html: Option<PathBuf>,
 }
 
 #[derive(clap::Args, Debug)]
@@ -382,7 +386,9 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
         .output
         .clone()
         .unwrap_or_else(|| default_output(&a.description));
-    output::check_destinations(&[&out], &[&a.description])?;
+    let mut outs: Vec<&Path> = vec![&out];
+    outs.extend(a.html.as_deref());
+    output::check_destinations(&outs, &[&a.description])?;
     let conv = quantize::quantize_description(&a.description, &opts)?;
     let place = a.description.display().to_string();
     let target = match (&a.target, &conv.desc.target) {
@@ -412,7 +418,15 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
     let mut inputs = conv.inputs(&a.description);
     let target_path = a.target.as_ref().map(PathBuf::from);
     inputs.extend(target_path.as_deref());
-    output::write_outputs(&[(&out, &q.bytes)], &inputs)?;
+    let page = match &a.html {
+        Some(path) => Some((path, assess_page(&report, &ev, &target, &q.bytes, &place)?)),
+        None => None,
+    };
+    let mut files: Vec<(&Path, &[u8])> = vec![(&out, &q.bytes)];
+    if let Some((path, text)) = &page {
+        files.push((path, text.as_bytes()));
+    }
+    output::write_outputs(&files, &inputs)?;
     if a.json {
         let value = serde_json::json!({
             "model": out.display().to_string(),
@@ -443,6 +457,41 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
     } else {
         midge_bench::budget::EXIT_DOES_NOT_FIT
     })
+}
+
+/// The `assess --html` page: latency from the emulated run when there was
+/// one, else timed on the host (20 runs of a seeded input after 3 warm-up).
+fn assess_page(
+    report: &compare::Report,
+    ev: &midge_bench::budget::Evaluation,
+    target: &midge_bench::target::Target,
+    model_bytes: &[u8],
+    place: &str,
+) -> Result<String> {
+    use midge_bench::assess_page::{AssessPage, Latency};
+    let host;
+    let latency = match &ev.emulated {
+        Some(run) => Latency::Emulated {
+            target: &target.name,
+            machine: &run.machine,
+            instructions: run.layer_instructions(0),
+            estimated_ms: ev.budget.estimated_ms,
+        },
+        None => {
+            let bytes = AlignedBytes::from_slice(model_bytes);
+            let model = Model::parse(&bytes).map_err(|e| Error::new(place, e.to_string()))?;
+            let inputs = midge_bench::synth_inputs(&model, 1, midge_bench::budget::DEFAULT_SEED);
+            host = midge_bench::host::host_latency(model_bytes, &inputs, 20, 3)?;
+            Latency::Host(&host)
+        }
+    };
+    Ok(AssessPage {
+        report,
+        footprint: &ev.footprint,
+        budgets: std::slice::from_ref(&ev.budget),
+        latency,
+    }
+    .render())
 }
 
 fn cmd_compare(a: &CompareArgs) -> Result<i32> {

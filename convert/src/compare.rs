@@ -58,6 +58,45 @@ pub struct Fp16Row {
     pub agreement: f64,
     pub mean_abs_logit_error: f64,
     pub max_abs_logit_error: f64,
+    pub logit_error_histogram: ErrorHistogram,
+}
+
+/// Bins of the logit error x̂ − x (dequantized runtime logit minus float
+/// logit) over every logit of every image: `counts[i]` errors fall in
+/// `[lo + i·w, lo + (i+1)·w)` with `w = (hi − lo) / counts.len()` (the last
+/// bin closed), `hi = −lo` = the largest |x̂ − x|, so zero sits in the middle
+/// bin. Counts are integers, so the histogram does not depend on the order
+/// images were evaluated in.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct ErrorHistogram {
+    pub lo: f64,
+    pub hi: f64,
+    pub counts: Vec<u64>,
+}
+
+/// Bins of [`ErrorHistogram`] (odd, so one bin is centred on zero).
+pub const ERROR_BINS: usize = 41;
+
+impl ErrorHistogram {
+    /// The histogram of `errors` (each x̂ − x) in [`ERROR_BINS`] bins over
+    /// ±max|error|; with no error at all, one bin around zero.
+    pub fn of<'a>(errors: impl Iterator<Item = &'a [f64]> + Clone) -> ErrorHistogram {
+        let hi = errors.clone().flatten().fold(0.0f64, |m, d| m.max(d.abs()));
+        let mut counts = vec![0u64; ERROR_BINS];
+        for &d in errors.flatten() {
+            let bin = if hi > 0.0 {
+                (((d + hi) / (2.0 * hi)) * ERROR_BINS as f64).floor() as usize
+            } else {
+                ERROR_BINS / 2
+            };
+            counts[bin.min(ERROR_BINS - 1)] += 1;
+        }
+        ErrorHistogram {
+            lo: -hi,
+            hi,
+            counts,
+        }
+    }
 }
 
 /// The accuracy-drop report. Accuracies and agreement are percentages;
@@ -74,6 +113,7 @@ pub struct Report {
     pub agreement: f64,
     pub mean_abs_logit_error: f64,
     pub max_abs_logit_error: f64,
+    pub logit_error_histogram: ErrorHistogram,
     pub fp16: Option<Fp16Row>,
     pub per_class: Vec<ClassRow>,
     pub labels: Vec<String>,
@@ -234,13 +274,21 @@ struct LogitError {
     max: f64,
 }
 
+/// Each logit's error x̂ − x, in element order.
+fn logit_errors(float: &[f32], quantized: &[f32]) -> Vec<f64> {
+    float
+        .iter()
+        .zip(quantized)
+        .map(|(a, b)| *b as f64 - *a as f64)
+        .collect()
+}
+
 impl LogitError {
-    fn of(float: &[f32], quantized: &[f32]) -> LogitError {
+    fn of(errors: &[f64]) -> LogitError {
         let mut e = LogitError::default();
-        for (a, b) in float.iter().zip(quantized) {
-            let d = (*a as f64 - *b as f64).abs();
-            e.sum += d;
-            e.max = e.max.max(d);
+        for d in errors {
+            e.sum += d.abs();
+            e.max = e.max.max(d.abs());
         }
         e
     }
@@ -257,14 +305,13 @@ struct ImageResult {
     truth: usize,
     float_top: usize,
     quantized_top: usize,
-    /// Logit count (the mean's denominator).
-    logits: usize,
-    error: LogitError,
+    /// Each logit's error x̂ − x (its count is the mean's denominator).
+    errors: Vec<f64>,
     /// Per runtime layer Σx² and Σ(x − x̂)².
     signal: Vec<f64>,
     noise: Vec<f64>,
-    /// The all-fp16 variant: top-1 and logit error.
-    fp16: Option<(usize, LogitError)>,
+    /// The all-fp16 variant: top-1 and each logit's error.
+    fp16: Option<(usize, Vec<f64>)>,
 }
 
 /// The models one worker runs (each with its own workspace).
@@ -346,7 +393,7 @@ fn evaluate_image(
     let fp16 = match r.fp16.as_mut() {
         Some(h) => {
             let (top, h_logits) = h.run(px, &mut (), place)?;
-            Some((top, LogitError::of(&logits, &h_logits)))
+            Some((top, logit_errors(&logits, &h_logits)))
         }
         None => None,
     };
@@ -354,8 +401,7 @@ fn evaluate_image(
         truth,
         float_top: argmax(&logits).unwrap_or(0),
         quantized_top,
-        logits: logits.len().min(q_logits.len()),
-        error: LogitError::of(&logits, &q_logits),
+        errors: logit_errors(&logits, &q_logits),
         signal: obs.signal,
         noise: obs.noise,
         fp16,
@@ -392,18 +438,18 @@ fn tally(
         count(&mut confusion, r.truth, r.quantized_top);
         count(&mut float_confusion, r.truth, r.float_top);
         agree += (r.float_top == r.quantized_top) as usize;
-        err.add(r.error);
-        err_n += r.logits;
+        err.add(LogitError::of(&r.errors));
+        err_n += r.errors.len();
         for (total, x) in signal.iter_mut().zip(&r.signal) {
             *total += x;
         }
         for (total, x) in noise.iter_mut().zip(&r.noise) {
             *total += x;
         }
-        if let Some((top, e)) = r.fp16 {
-            h_ok += (top == r.truth) as usize;
-            h_agree += (top == r.float_top) as usize;
-            h_err.add(e);
+        if let Some((top, e)) = &r.fp16 {
+            h_ok += (*top == r.truth) as usize;
+            h_agree += (*top == r.float_top) as usize;
+            h_err.add(LogitError::of(e));
         }
     }
     let n = results.len();
@@ -450,12 +496,18 @@ fn tally(
         agreement: pct(agree, n),
         mean_abs_logit_error: mean(err),
         max_abs_logit_error: err.max,
+        logit_error_histogram: ErrorHistogram::of(results.iter().map(|r| r.errors.as_slice())),
         fp16: also_fp16.then(|| Fp16Row {
             top1: pct(h_ok, n),
             drop_pp: float_top1 - pct(h_ok, n),
             agreement: pct(h_agree, n),
             mean_abs_logit_error: mean(h_err),
             max_abs_logit_error: h_err.max,
+            logit_error_histogram: ErrorHistogram::of(
+                results
+                    .iter()
+                    .filter_map(|r| r.fp16.as_ref().map(|(_, e)| e.as_slice())),
+            ),
         }),
         per_class,
         labels: labels.clone(),
@@ -618,5 +670,27 @@ mod tests {
         assert_eq!(sqnr_db(5.0, 0.0), None);
         assert_eq!(argmax(&[1.0, 3.0, 3.0, f32::NAN]), Some(1));
         assert_eq!(argmax(&[f32::NAN]), None);
+    }
+
+    #[test]
+    fn error_histogram_bins_by_hand() {
+        // Errors −1, −0.5, 0, 0, 0.99, 1 over ±1 in 41 bins of width 2/41:
+        // bin = floor((d + 1)·41/2) → 0, 10 (20.5/2 = 10.25), 20, 20, 40
+        // (40.795), and 41 → the closed last bin 40 (worked by hand).
+        let a = [-1.0, -0.5, 0.0];
+        let b = [0.0, 0.99, 1.0];
+        let h = ErrorHistogram::of([&a[..], &b[..]].into_iter());
+        assert_eq!((h.lo, h.hi), (-1.0, 1.0));
+        let mut want = vec![0u64; ERROR_BINS];
+        want[0] = 1;
+        want[10] = 1;
+        want[20] = 2;
+        want[40] = 2;
+        assert_eq!(h.counts, want);
+        // Order of the images does not matter.
+        assert_eq!(ErrorHistogram::of([&b[..], &a[..]].into_iter()), h);
+        // No error at all: everything in the middle bin.
+        let z = ErrorHistogram::of([&[0.0, 0.0][..]].into_iter());
+        assert_eq!((z.hi, z.counts[ERROR_BINS / 2]), (0.0, 2));
     }
 }
