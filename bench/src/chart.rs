@@ -94,6 +94,9 @@ impl Ticks {
     /// A tick's text: thousands as k, millions as M when the axis reaches
     /// 10 000, else the number with the axis's decimals.
     pub fn text(&self, v: f64) -> String {
+        if v == 0.0 {
+            return "0".into();
+        }
         let top = self.lo.abs().max(self.hi.abs());
         for (div, suffix) in [(1e9, "G"), (1e6, "M"), (1e3, "k")] {
             if top >= 10.0 * div && self.step >= div / 10.0 {
@@ -647,6 +650,7 @@ mod tests {
         let t = nice_ticks(0.0, 48_000.0, 5);
         assert_eq!(t.values[1], 10_000.0);
         assert_eq!(t.text(10_000.0), "10k");
+        assert_eq!(t.text(0.0), "0");
         assert_eq!(nice_ticks(0.0, 870.0, 5).text(200.0), "200");
     }
 
