@@ -423,7 +423,7 @@ pub fn heat_map(
     let k = labels.len().max(1) as f64;
     let longest = labels.iter().map(|l| l.chars().count()).max().unwrap_or(1) as f64;
     let left = (longest * 7.5 + 40.0).clamp(70.0, 200.0);
-    let cell = ((520.0 / k).min(80.0)).max(14.0);
+    let cell = (520.0 / k).clamp(14.0, 80.0);
     let top = 40.0 + (longest * 5.5).min(120.0);
     let (w, h) = (left + cell * k + 20.0, top + cell * k + 16.0);
     let mut s = format!(
