@@ -353,10 +353,17 @@ pub fn budget_section(budgets: &[Budget]) -> String {
 /// with the workspace, its lower bound and each target's RAM as lines.
 pub fn memory_section(fp: &ModelFootprint, budgets: &[Budget]) -> String {
     let live: Vec<f64> = fp.layers.iter().map(|r| r.live_bytes as f64).collect();
-    let mut lines = vec![(fp.workspace_len as f64, "workspace".to_string())];
-    if fp.lower_bound != fp.workspace_len {
-        lines.push((fp.lower_bound as f64, "lower bound".to_string()));
-    }
+    let mut lines = if fp.lower_bound == fp.workspace_len {
+        vec![(
+            fp.workspace_len as f64,
+            "workspace = lower bound".to_string(),
+        )]
+    } else {
+        vec![
+            (fp.workspace_len as f64, "workspace".to_string()),
+            (fp.lower_bound as f64, "lower bound".to_string()),
+        ]
+    };
     for b in budgets {
         lines.push((b.ram_limit as f64, format!("{} RAM", b.target)));
     }
