@@ -1,6 +1,6 @@
-//! Rendering bench results: terminal tables, JSON, and a self-contained HTML
-//! page with inline SVG charts (memory timeline, per-layer latency,
-//! per-layer SQNR) in midge's own look.
+//! Rendering bench results: terminal tables, JSON, the `report` and `sweep`
+//! HTML pages, and the page sections the assess page shares (budgets, memory
+//! timeline, host latency, per-layer SQNR, layer table); charts: `chart.rs`.
 
 use std::fmt::Write as _;
 
