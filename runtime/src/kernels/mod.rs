@@ -17,6 +17,7 @@ pub mod dsp;
 pub mod fp16;
 pub mod int8;
 pub mod reference;
+pub mod depthwise;
 pub mod tile;
 
 pub use reference::{conv2d_ref, dense_ref, depthwise_ref, pool_ref};
