@@ -470,7 +470,10 @@ fn depthwise3x3_equals_reference() {
         } else {
             rng.gen_range(1..=14)
         };
-        let (ih, c) = (rng.gen_range(1..=9), rng.gen_range(1..=if i % 4 == 0 { 70 } else { 13 }));
+        let (ih, c) = (
+            rng.gen_range(1..=9),
+            rng.gen_range(1..=if i % 4 == 0 { 70 } else { 13 }),
+        );
         let Some((oh, ow)) = win.output_hw(ih, iw) else {
             continue;
         };
@@ -493,7 +496,13 @@ fn depthwise3x3_equals_reference() {
         let b2: Vec<i32>;
         if i % 7 == 4 {
             b2 = (0..c)
-                .map(|_| if rng.gen() { i32::MAX - 100 } else { i32::MIN + 100 })
+                .map(|_| {
+                    if rng.gen() {
+                        i32::MAX - 100
+                    } else {
+                        i32::MIN + 100
+                    }
+                })
                 .collect();
             a.bias = &b2;
         }

@@ -113,10 +113,24 @@ pub fn fits(win: &Window) -> bool {
     win.kh == 3 && win.kw == 3 && win.dil_w == 1 && matches!(win.stride_w, 1 | 2)
 }
 
-/// int8 depthwise: 3×3 windows (`fits`) through `depthwise3x3` with the DSP
-/// row kernel where `build.rs` set `midge_dsp`; everything else (and every
-/// window on cores without DSP, where `depthwise_fast` is quicker) through
-/// `tile::depthwise_selected`.
+/// Whether the row driver is the quicker of the two DSP paths for a 3×3
+/// layer: measured on the emulated Cortex-M4 (instructions per MAC on the
+/// bundled reference models), the row driver wins only with horizontal
+/// stride 1 and rows of at least `ROWS_MIN_W` output pixels (48×48×8:
+/// 7.1 against 16.6; 24×24×32: 8.0 against 9.8), and loses on stride 2 and
+/// on short rows (12×12×64: 9.8 against 8.9; 6×6×128: 13.6 against 8.8),
+/// where its per-row set-up is spread over too few pixels.
+pub fn rows_pay(win: &Window, ys: Shape) -> bool {
+    fits(win) && win.stride_w == 1 && ys.w as usize >= ROWS_MIN_W
+}
+
+/// Shortest output row the row driver takes (see `rows_pay`).
+pub const ROWS_MIN_W: usize = 16;
+
+/// int8 depthwise: 3×3 windows where `rows_pay` through `depthwise3x3` with
+/// the DSP row kernel (only where `build.rs` set `midge_dsp`); everything
+/// else (and every window on cores without DSP, where `depthwise_fast` is
+/// quicker) through `tile::depthwise_selected`.
 pub fn depthwise_selected(
     a: &Int8Arith<'_>,
     x: &[i8],
@@ -126,7 +140,7 @@ pub fn depthwise_selected(
     y: &mut [i8],
     ys: Shape,
 ) -> Result<(), Error> {
-    if cfg!(midge_dsp) && fits(win) {
+    if cfg!(midge_dsp) && rows_pay(win, ys) {
         return depthwise3x3::<Selected>(a, x, xs, w, win, y, ys);
     }
     tile::depthwise_selected(a, x, xs, w, win, y, ys)
@@ -213,10 +227,21 @@ pub fn depthwise3x3<K: RowKernel>(
                 }
                 for (ky, r) in rows.iter().enumerate() {
                     if let (Some(iy), EMPTY) = (*r, slot_of[ky]) {
-                        let s = (0..3)
-                            .find(|&s| !used[s])
-                            .ok_or(fault("depthwise slots"))?;
-                        widen(x, iy, iw, c, c0, gc, j0, sw, npairs, a.zp_in, s, &mut planes)?;
+                        let s = (0..3).find(|&s| !used[s]).ok_or(fault("depthwise slots"))?;
+                        widen(
+                            x,
+                            iy,
+                            iw,
+                            c,
+                            c0,
+                            gc,
+                            j0,
+                            sw,
+                            npairs,
+                            a.zp_in,
+                            s,
+                            &mut planes,
+                        )?;
                         tags[s] = iy;
                         slot_of[ky] = s;
                         used[s] = true;
@@ -246,17 +271,19 @@ pub fn depthwise3x3<K: RowKernel>(
                         .ok_or(fault("depthwise plane"))?;
                     K::row(plane, &wk, n, stride2)?;
                 }
-                // Requantize the strip's pixels.
+                // Requantize the strip's pixels channel by channel (the
+                // constants stay in registers; outputs are `c` apart).
                 let at = (oy * ow + ox0) * c + c0;
-                for p in 0..np {
-                    let y_px = y
-                        .get_mut(at + p * c..)
-                        .and_then(|s| s.get_mut(..gc))
-                        .ok_or(fault("depthwise output too short"))?;
-                    for (i, (yv, k)) in y_px.iter_mut().zip(&ch).enumerate() {
-                        let s = planes.get(i * PLANE + ACC + p).copied().unwrap_or(0) as i32;
-                        let s = s.wrapping_add(k.bias).wrapping_add(corr[i]);
-                        *yv = a.finish_with(s, &k.rq);
+                let y_strip = y
+                    .get_mut(at..at + (np - 1) * c + gc)
+                    .ok_or(fault("depthwise output too short"))?;
+                for (i, k) in ch.iter().take(gc).enumerate() {
+                    let add = k.bias.wrapping_add(corr[i]);
+                    let accs =
+                        part(&planes, i * PLANE + ACC, np).ok_or(fault("depthwise plane"))?;
+                    let ys = y_strip.iter_mut().skip(i).step_by(c);
+                    for (yv, &s) in ys.zip(accs) {
+                        *yv = a.finish_with((s as i32).wrapping_add(add), &k.rq);
                     }
                 }
             }
@@ -285,29 +312,63 @@ fn widen(
     planes: &mut [u32],
 ) -> Result<(), Error> {
     let row = part(x, iy * iw * c, iw * c).ok_or(fault("depthwise input too short"))?;
-    // The 4 values of column j (zp outside the input or past the group).
-    let col = |j: isize| -> [i8; GROUP] {
-        let mut v = [zp; GROUP];
-        if j >= 0 && (j as usize) < iw {
-            if let Some(src) = part(row, j as usize * c + c0, gc) {
-                v[..gc].copy_from_slice(src);
+    if npairs == 0 || iw == 0 {
+        return Err(fault("depthwise empty row"));
+    }
+    // Pairs `k` in `ka..kb` read only columns inside the input: the first
+    // column `j0 + k·sw ≥ 0` and the second `j0 + k·sw + 1 < iw`.
+    let (j0i, swi, iwi) = (j0 as i64, sw as i64, iw as i64);
+    let clampk = |k: i64| k.clamp(0, npairs as i64) as usize;
+    let ka = clampk((-j0i + swi - 1).div_euclid(swi));
+    let kb = clampk((iwi - 2 - j0i).div_euclid(swi) + 1).max(ka);
+    for i in 0..gc {
+        let at = i * PLANE + s * RP;
+        let slot = planes
+            .get_mut(at..at + npairs)
+            .ok_or(fault("depthwise slot"))?;
+        let col = row
+            .get(c0 + i..)
+            .ok_or(fault("depthwise input too short"))?;
+        // Column `j` of this channel, `zp` outside the input.
+        let v = |j: i64| -> i8 {
+            if (0..iwi).contains(&j) {
+                col.get(j as usize * c).copied().unwrap_or(zp)
+            } else {
+                zp
+            }
+        };
+        let edge = |k: usize| {
+            let j = j0i + k as i64 * swi;
+            pair(v(j), v(j + 1))
+        };
+        let (left, rest) = slot.split_at_mut(ka);
+        let (mid, right) = rest.split_at_mut(kb - ka);
+        for (k, d) in left.iter_mut().enumerate() {
+            *d = edge(k);
+        }
+        for (k, d) in right.iter_mut().enumerate() {
+            *d = edge(kb + k);
+        }
+        if mid.is_empty() {
+            continue;
+        }
+        // Interior: the columns from `j0 + ka·sw` on, `c` bytes apart.
+        let first = (j0i + ka as i64 * swi) as usize * c;
+        let mut vals = col.get(first..).unwrap_or(&[]).iter().step_by(c).copied();
+        if sw == 1 {
+            let mut prev = vals.next().unwrap_or(zp);
+            for d in mid.iter_mut() {
+                let h = vals.next().unwrap_or(zp);
+                *d = pair(prev, h);
+                prev = h;
+            }
+        } else {
+            for d in mid.iter_mut() {
+                let l = vals.next().unwrap_or(zp);
+                let h = vals.next().unwrap_or(zp);
+                *d = pair(l, h);
             }
         }
-        v
-    };
-    let base = s * RP;
-    let mut prev = col(j0);
-    for k in 0..npairs {
-        let j = j0 + (k * sw) as isize;
-        let h = col(j + 1);
-        let l = if sw == 1 { prev } else { col(j) };
-        for (i, (&l, &h)) in l.iter().zip(&h).take(gc).enumerate() {
-            let d = planes
-                .get_mut(i * PLANE + base + k)
-                .ok_or(fault("depthwise slot"))?;
-            *d = pair(l, h);
-        }
-        prev = h;
     }
     Ok(())
 }

@@ -4,7 +4,7 @@
 
 use super::{fault, Arith, Pool};
 use crate::error::Error;
-use crate::requant::{requantize, saturate_i32, Rq};
+use crate::requant::{saturate_i32, Rq};
 
 /// `v` clamped to the inclusive `[lo, hi]` and then to the int8 range (so a
 /// bad clamp can never wrap).
@@ -164,13 +164,19 @@ pub fn pixels(
     if c == 0 || params.len() != 3 * c || x.len() != y.len() || !x.len().is_multiple_of(c) {
         return Err(fault("pixels lengths do not match the channel count"));
     }
-    for (x_px, y_px) in x.chunks_exact(c).zip(y.chunks_exact_mut(c)) {
-        for ((&p, y), prm) in x_px.iter().zip(y_px.iter_mut()).zip(params.chunks_exact(3)) {
-            let acc = (p as i32 * 256).wrapping_sub(prm[0]);
-            *y = clamp_i8(
-                zp_out.saturating_add(requantize(acc, prm[1], prm[2])),
-                clamp,
-            );
+    // A u8 input has 256 values, so each channel's map is worked out once
+    // into a table (256 requantizations instead of one per pixel) and then
+    // looked up: the same formula, so the same bytes.
+    let mut table = [0i8; 256];
+    for (ci, prm) in params.chunks_exact(3).enumerate() {
+        let rq = Rq::new(prm[1], prm[2]);
+        for (v, t) in table.iter_mut().enumerate() {
+            let acc = (v as i32 * 256).wrapping_sub(prm[0]);
+            *t = clamp_i8(zp_out.saturating_add(rq.apply(acc)), clamp);
+        }
+        let xs = x.iter().skip(ci).step_by(c);
+        for (&p, y) in xs.zip(y.iter_mut().skip(ci).step_by(c)) {
+            *y = table[p as usize];
         }
     }
     Ok(())

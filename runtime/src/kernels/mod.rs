@@ -12,12 +12,12 @@
 //! and pooling work on up to 32 channels per pass, and the in-bounds taps of
 //! a pixel are found once per axis (`axis_range`) instead of per tap.
 
+pub mod depthwise;
 #[cfg(midge_dsp)]
 pub mod dsp;
 pub mod fp16;
 pub mod int8;
 pub mod reference;
-pub mod depthwise;
 pub mod tile;
 
 pub use reference::{conv2d_ref, dense_ref, depthwise_ref, pool_ref};
