@@ -164,19 +164,34 @@ pub fn pixels(
     if c == 0 || params.len() != 3 * c || x.len() != y.len() || !x.len().is_multiple_of(c) {
         return Err(fault("pixels lengths do not match the channel count"));
     }
-    // A u8 input has 256 values, so each channel's map is worked out once
-    // into a table (256 requantizations instead of one per pixel) and then
-    // looked up: the same formula, so the same bytes.
+    // A u8 input has 256 values, so with more pixels than that each
+    // channel's map is worked out once into a table (256 requantizations
+    // instead of one per pixel) and then looked up: the same formula, so
+    // the same bytes. Smaller images map each pixel directly.
+    let use_table = x.len() / c > 256;
     let mut table = [0i8; 256];
     for (ci, prm) in params.chunks_exact(3).enumerate() {
         let rq = Rq::new(prm[1], prm[2]);
-        for (v, t) in table.iter_mut().enumerate() {
+        let map = |v: u8| {
             let acc = (v as i32 * 256).wrapping_sub(prm[0]);
-            *t = clamp_i8(zp_out.saturating_add(rq.apply(acc)), clamp);
-        }
-        let xs = x.iter().skip(ci).step_by(c);
-        for (&p, y) in xs.zip(y.iter_mut().skip(ci).step_by(c)) {
-            *y = table[p as usize];
+            clamp_i8(zp_out.saturating_add(rq.apply(acc)), clamp)
+        };
+        let pairs = x
+            .iter()
+            .skip(ci)
+            .step_by(c)
+            .zip(y.iter_mut().skip(ci).step_by(c));
+        if use_table {
+            for (v, t) in table.iter_mut().enumerate() {
+                *t = map(v as u8);
+            }
+            for (&p, y) in pairs {
+                *y = table[p as usize];
+            }
+        } else {
+            for (&p, y) in pairs {
+                *y = map(p);
+            }
         }
     }
     Ok(())
