@@ -512,3 +512,42 @@ fn depthwise3x3_equals_reference() {
         assert_eq!(rows, slow, "case {i}: {win:?} {xs:?} {ys:?}");
     }
 }
+
+// The 32-bit form of the int8 add (`AddI8::split_shift`) against the i64
+// formula of FORMAT.md (`AddI8::apply`) on every pair of int8 inputs, for
+// random constants including the extreme multipliers, shifts and zero points.
+#[test]
+fn add_split_shift_equals_formula() {
+    use midge_runtime::kernels::int8::{self, AddI8};
+    let mut rng = ChaCha8Rng::seed_from_u64(0xadd_0032);
+    let all: Vec<(i8, i8)> = (-128..=127i32)
+        .flat_map(|a| (-128..=127i32).map(move |b| (a as i8, b as i8)))
+        .collect();
+    let (xa, xb): (Vec<i8>, Vec<i8>) = all.iter().copied().unzip();
+    for case in 0..24 {
+        let pick = |rng: &mut ChaCha8Rng, lo: i32, hi: i32| match case % 4 {
+            0 => lo,
+            1 => hi,
+            _ => rng.gen_range(lo..=hi),
+        };
+        let p = AddI8 {
+            zp_a: pick(&mut rng, -128, 127),
+            zp_b: pick(&mut rng, -128, 127),
+            zp_out: pick(&mut rng, -128, 127),
+            ma: pick(&mut rng, 0, i32::MAX),
+            mb: rng.gen_range(0..=i32::MAX),
+            rshift: if case < 8 {
+                [10, 31][case % 2]
+            } else {
+                rng.gen_range(10..=31)
+            },
+            clamp: [-128, 127],
+        };
+        assert!(p.split_shift().is_some());
+        let mut y = vec![0i8; all.len()];
+        int8::add(&p, &xa, &xb, &mut y).unwrap();
+        for ((&qa, &qb), &got) in xa.iter().zip(&xb).zip(&y) {
+            assert_eq!(got, p.apply(qa, qb), "case {case}: {p:?} {qa} {qb}");
+        }
+    }
+}

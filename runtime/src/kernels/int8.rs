@@ -210,6 +210,19 @@ pub struct AddI8 {
 }
 
 impl AddI8 {
+    /// The shift when `apply` can take its 32-bit form: zero points in the
+    /// int8 range (so |q − zp| ≤ 255) and rshift in 10..=31. Then
+    /// |sum| ≤ 2·255·(2^31 − 1) + 2^30 < 2^40, so `sum >> rshift` fits in
+    /// 30 bits (no saturation) and equals bits rshift..rshift + 31 of the
+    /// sum, taken from its two 32-bit halves. The converter's shifts for
+    /// sums of tensors of similar scale are about 30.
+    #[inline]
+    pub fn split_shift(&self) -> Option<u32> {
+        let int8 = |z: i32| (-128..=127).contains(&z);
+        let s = self.rshift;
+        (int8(self.zp_a) && int8(self.zp_b) && (10..=31).contains(&s)).then_some(s as u32)
+    }
+
     /// `clamp(zp_out + floor(((qa−zpa)·ma + (qb−zpb)·mb + 2^(rshift−1)) / 2^rshift))`
     /// in i64 (ties toward +∞, as `requantize`). Exact for checked layers
     /// (|q − zp| ≤ 255, multipliers < 2^31, so each product < 2^39); the
@@ -233,8 +246,26 @@ pub fn add(p: &AddI8, a: &[i8], b: &[i8], y: &mut [i8]) -> Result<(), Error> {
     if a.len() != y.len() || b.len() != y.len() {
         return Err(fault("add inputs and output differ in length"));
     }
-    for ((y, &qa), &qb) in y.iter_mut().zip(a).zip(b) {
-        *y = p.apply(qa, qb);
+    let pairs = y.iter_mut().zip(a).zip(b);
+    match p.split_shift() {
+        Some(s) => {
+            let (zp_a, zp_b, ma, mb) = (p.zp_a, p.zp_b, p.ma as i64, p.mb as i64);
+            let round = 1i64 << (s - 1);
+            for ((y, &qa), &qb) in pairs {
+                let da = (qa as i32 - zp_a) as i64;
+                let db = (qb as i32 - zp_b) as i64;
+                let sum = da * ma + db * mb + round;
+                // Bits s..s + 31 of the sum: its quotient by 2^s (see
+                // `split_shift` for why it fits i32 and needs no saturation).
+                let r = ((sum as u32) >> s) | (((sum >> 32) as u32) << (32 - s));
+                *y = clamp_i8(p.zp_out.saturating_add(r as i32), p.clamp);
+            }
+        }
+        None => {
+            for ((y, &qa), &qb) in pairs {
+                *y = p.apply(qa, qb);
+            }
+        }
     }
     Ok(())
 }
