@@ -423,7 +423,8 @@ pub fn heat_map(
     let k = labels.len().max(1) as f64;
     let longest = labels.iter().map(|l| l.chars().count()).max().unwrap_or(1) as f64;
     let left = (longest * 7.5 + 40.0).clamp(70.0, 200.0);
-    let cell = (520.0 / k).clamp(14.0, 80.0);
+    // Two maps of up to ~12 classes fit side by side in the page's column.
+    let cell = (300.0 / k).clamp(14.0, 64.0);
     let top = 40.0 + (longest * 5.5).min(120.0);
     let (w, h) = (left + cell * k + 20.0, top + cell * k + 16.0);
     let mut s = format!(
@@ -447,7 +448,7 @@ pub fn heat_map(
             esc(l)
         );
     }
-    let font = (cell * 0.32).clamp(8.0, 14.0);
+    let font = (cell * 0.36).clamp(8.0, 14.0);
     for (i, l) in labels.iter().enumerate() {
         let row = m.get(i).map(|r| r.as_slice()).unwrap_or(&[]);
         let total: usize = row.iter().sum();
@@ -479,7 +480,11 @@ pub fn heat_map(
                 cell - 2.0,
                 esc(l),
                 esc(labels.get(j).map(|s| s.as_str()).unwrap_or("")),
-                if opacity > 0.6 && c > 0 { " light" } else { "" },
+                match c {
+                    0 => " zero",
+                    _ if opacity > 0.6 => " light",
+                    _ => "",
+                },
                 x + cell / 2.0 - 1.0,
                 y + cell / 2.0 + font * 0.35
             );
@@ -562,7 +567,7 @@ h1{font-weight:600;margin:22px 0 2px}h2{font-size:17px;margin:30px 0 4px;border-
 svg.chart{width:100%;height:auto;background:#fff;border-radius:6px;display:block}svg.heat{max-width:100%;width:auto}\
 .grid{stroke:#ece5d9}.axis{stroke:#b9ad9a}.tick,.lab,.unit{font:10px ui-monospace,Menlo,monospace;fill:#6b655c}.lab{font-size:11px;fill:#2b2a28}\
 .bar{fill:#5fa596}.bar.hi{fill:#23403a}.bar.over{fill:#c2572f}.bar:hover{fill:#d9953b}.room{fill:#efe9df}\
-.cell{fill:#f3efe8}.cell.hit{fill:#23403a}.cell.miss{fill:#c2572f}.count{font-family:ui-monospace,Menlo,monospace;fill:#2b2a28}.count.light{fill:#fff}\
+.cell{fill:#f3efe8}.cell.hit{fill:#23403a}.cell.miss{fill:#c2572f}.count{font-family:ui-monospace,Menlo,monospace;fill:#2b2a28}.count.light{fill:#fff}.count.zero{fill:#c9bfb0}\
 .ref{stroke:#c2572f;stroke-dasharray:5 4}.refcap{font:11px ui-monospace,Menlo,monospace;fill:#c2572f}\
 table{border-collapse:collapse;font:12px ui-monospace,Menlo,monospace;background:#fff}\
 td,th{padding:3px 9px;text-align:right;border-bottom:1px solid #eee6d8}td:nth-child(2),th:nth-child(2){text-align:left}\
@@ -716,6 +721,8 @@ mod tests {
         assert_eq!(svg.matches("cell miss").count(), 1);
         // 9 of 10 in its row: 0.15 + 0.85·0.9 = 0.915 → 0.92 (by hand).
         assert!(svg.contains("fill-opacity='0.92'"));
+        // Zero counts are written faintly.
+        assert_eq!(svg.matches("class='count zero'").count(), 1);
     }
 
     #[test]

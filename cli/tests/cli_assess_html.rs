@@ -165,12 +165,19 @@ fn assess_page_renders_every_chart_in_a_browser() {
     let dim = |i: usize| u32::from_be_bytes(bytes[i..i + 4].try_into().unwrap());
     assert_eq!((dim(16), dim(20)), (w, h));
     assert!(bytes.len() > 30_000, "screenshot of {} bytes", bytes.len());
-    // The page's bar colour (#5fa596) and dark teal (#23403a) are painted:
-    // the SVG charts and heat maps were drawn, not only the text.
+    // The charts were painted, not only the text: the bar colour (#5fa596,
+    // used by nothing else) fills the SQNR and histogram bars, and below the
+    // header band (33 px) the dark teal (#23403a) at full opacity is a heat
+    // map's diagonal cell with every image of its row right ("missing":
+    // 100 of 100 in both maps, 62 × 62 px each).
     let img = image::load_from_memory(&bytes).unwrap().to_rgb8();
-    let count = |rgb: [u8; 3]| img.pixels().filter(|p| p.0 == rgb).count();
+    let count = |rgb: [u8; 3]| {
+        img.enumerate_pixels()
+            .filter(|(_, y, p)| *y >= 40 && p.0 == rgb)
+            .count()
+    };
     assert!(count([0x5f, 0xa5, 0x96]) > 20_000, "bars drawn");
-    assert!(count([0x23, 0x40, 0x3a]) > 5_000, "heat map diagonal drawn");
+    assert!(count([0x23, 0x40, 0x3a]) > 3_000, "heat map drawn");
 
     let dom = run_chromium(&exe, &dir, &page, &["--dump-dom".into()]);
     let dom = String::from_utf8(dom).expect("DOM is UTF-8");
