@@ -128,6 +128,14 @@ fn assess_page_renders_every_chart_in_a_browser() {
         .sum();
     // Every logit of every image is counted once: 400 images × 4 classes.
     assert_eq!(total, v["report"]["images"].as_u64().unwrap() * 4);
+    // Its range is ± the largest logit error the report states.
+    let h = &v["report"]["logit_error_histogram"];
+    let max = v["report"]["max_abs_logit_error"].as_f64().unwrap();
+    assert!(max > 0.0);
+    assert_eq!(
+        (h["lo"].as_f64(), h["hi"].as_f64()),
+        (Some(-max), Some(max))
+    );
 
     let html = std::fs::read_to_string(&page).unwrap();
     for external in ["<script", "<link", "src=", "url(", "@import"] {
