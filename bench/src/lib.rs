@@ -64,7 +64,7 @@ pub struct ReportOptions {
     pub inputs: usize,
     pub emulate: bool,
     pub measure_runtime: bool,
-    /// Include a compare run (per-layer SQNR) when the path is a
+    /// Include a compare run (the accuracy-drop report) when the path is a
     /// description with weights and validation images.
     pub compare: bool,
     pub seed: u64,
@@ -126,11 +126,11 @@ pub fn bench_report(path: &Path, opts: &ReportOptions) -> Result<BenchReport> {
             }
         }
     }
-    let sqnr = if opts.compare && is_description(path) {
+    let accuracy = if opts.compare && is_description(path) {
         let desc = Description::load(path)?;
         let weighted = desc.weights.is_some() || desc.onnx.is_some();
         if weighted && desc.validation.is_some() && desc.calibration.is_some() {
-            Some(compare::compare(path, &CompareOptions::default())?.layers)
+            Some(compare::compare(path, &CompareOptions::default())?)
         } else {
             None
         }
@@ -143,7 +143,7 @@ pub fn bench_report(path: &Path, opts: &ReportOptions) -> Result<BenchReport> {
         host,
         emulated,
         not_emulated,
-        sqnr,
+        accuracy,
     })
 }
 

@@ -5,10 +5,12 @@
 use std::fmt::Write as _;
 
 use crate::budget::Budget;
-use crate::chart::{bar_chart, capacity_chart, esc, group, kib, page, Capacity};
+use crate::chart::{
+    bar_chart, capacity_chart, esc, group, heat_map, histogram, kib, page, Capacity,
+};
 use crate::footprint::ModelFootprint;
 
-use midge_convert::compare::LayerRow as SqnrRow;
+use midge_convert::compare::{ErrorHistogram, LayerRow as SqnrRow, Report};
 use midge_convert::error::escape;
 use serde::Serialize;
 
@@ -25,8 +27,9 @@ pub struct BenchReport {
     pub emulated: Vec<EmulatedReport>,
     /// (target, reason) for targets whose emulated run was not possible.
     pub not_emulated: Vec<(String, String)>,
-    /// Per-layer SQNR from a compare run, when one was included.
-    pub sqnr: Option<Vec<SqnrRow>>,
+    /// The accuracy-drop report of a compare run (per-layer SQNR included),
+    /// when one was asked for.
+    pub accuracy: Option<Report>,
 }
 
 /// A plain text table: first column left-aligned, the others right-aligned.
@@ -202,7 +205,7 @@ impl BenchReport {
         for (t, why) in &self.not_emulated {
             s += &format!("\nemulated on {t}: not measured: {why}\n");
         }
-        if let Some(q) = &self.sqnr {
+        if let Some(q) = self.accuracy.as_ref().map(|a| &a.layers) {
             s += "\nper-layer SQNR (float reference vs runtime):\n";
             let rows: Vec<Vec<String>> = q
                 .iter()
@@ -264,8 +267,8 @@ impl BenchReport {
                 esc(why)
             );
         }
-        if let Some(q) = &self.sqnr {
-            body += &sqnr_section(q);
+        if let Some(a) = &self.accuracy {
+            body += &accuracy_sections(a);
         }
         body += &layers_table(fp);
         page(&format!("midge bench — {}", fp.name), "bench", &body)
@@ -396,6 +399,106 @@ pub fn host_latency_section(chart: &str, h: &HostLatency, labels: &[String]) -> 
     );
     body += &bar_chart(chart, labels, &v, "µs", None, &[]);
     body
+}
+
+/// The accuracy drop of a compare run: top-1 cards, confusion heat maps,
+/// per-class table, per-layer SQNR and the logit-error histograms.
+pub fn accuracy_sections(r: &Report) -> String {
+    let mut s = top1_and_confusion(r);
+    s += &sqnr_section(&r.layers);
+    s += &logit_error_section(r);
+    s
+}
+
+fn top1_and_confusion(r: &Report) -> String {
+    let mut s = format!(
+        "<h2>Accuracy</h2><p class=note>Top-1 on {} labelled validation images: the float reference against the {} model as midge-runtime runs it.</p><div class=cards>",
+        group(r.images as u64),
+        esc(&r.precision)
+    );
+    let card = |s: &mut String, cls: &str, name: &str, top1: f64, extra: String| {
+        let _ = write!(
+            s,
+            "<div class='card {cls}'><b>{}</b><big>{top1:.2} %</big>{extra}</div>",
+            esc(name)
+        );
+    };
+    card(&mut s, "plain", "float", r.float_top1, "reference".into());
+    let verdict = |drop: f64| if drop > 0.0 { "over" } else { "ok" };
+    card(
+        &mut s,
+        verdict(r.drop_pp),
+        &r.precision,
+        r.quantized_top1,
+        format!("drop {:.2} pp · agrees {:.1} %", r.drop_pp, r.agreement),
+    );
+    if let Some(h) = &r.fp16 {
+        card(
+            &mut s,
+            verdict(h.drop_pp),
+            "all fp16",
+            h.top1,
+            format!("drop {:.2} pp · agrees {:.1} %", h.drop_pp, h.agreement),
+        );
+    }
+    s += "</div><h2>Confusion</h2><p class=note>Rows are the true class, columns the predicted one; counts of images, shaded by their share of the row (dark teal: right, orange: wrong).</p><div class=cards>";
+    for (chart, title, m) in [
+        ("confusion", r.precision.as_str(), &r.confusion),
+        ("confusion-float", "float", &r.float_confusion),
+    ] {
+        let _ = write!(
+            s,
+            "<div><p class=sub>{}</p>{}</div>",
+            esc(title),
+            heat_map(chart, &r.labels, m, "true", "predicted")
+        );
+    }
+    s +=
+        "</div><h2>Per-class accuracy</h2><table><tr><th>class</th><th>images</th><th>float %</th>";
+    let _ = write!(s, "<th>{} %</th><th>change pp</th></tr>", esc(&r.precision));
+    for c in &r.per_class {
+        let _ = write!(
+            s,
+            "<tr><td>{}</td><td>{}</td><td>{:.1}</td><td>{:.1}</td><td>{:+.1}</td></tr>",
+            esc(&c.label),
+            c.images,
+            c.float_top1,
+            c.quantized_top1,
+            c.quantized_top1 - c.float_top1
+        );
+    }
+    s += "</table>";
+    s
+}
+
+fn logit_error_section(r: &Report) -> String {
+    let mut s = String::from("<h2>Logit error</h2>");
+    let mut one = |chart: &str, name: &str, h: &ErrorHistogram, mean: f64, max: f64| {
+        let _ = write!(
+            s,
+            "<p class=note>{}: dequantized runtime logit minus float logit, every class of every image ({} values); mean |error| {mean:.4}, largest {max:.4}.</p>",
+            esc(name),
+            group(h.counts.iter().sum())
+        );
+        s += &histogram(chart, h.lo, h.hi, &h.counts, "logit error");
+    };
+    one(
+        "logit-error",
+        &r.precision,
+        &r.logit_error_histogram,
+        r.mean_abs_logit_error,
+        r.max_abs_logit_error,
+    );
+    if let Some(h) = &r.fp16 {
+        one(
+            "logit-error-fp16",
+            "all fp16",
+            &h.logit_error_histogram,
+            h.mean_abs_logit_error,
+            h.max_abs_logit_error,
+        );
+    }
+    s
 }
 
 /// Per-layer SQNR of a compare run as a bar chart.

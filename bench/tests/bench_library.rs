@@ -82,6 +82,31 @@ fn report_renders_text_json_and_html() {
 }
 
 #[test]
+fn report_with_compare_carries_the_accuracy_report() {
+    let opts = ReportOptions {
+        runs: 1,
+        warmup: 0,
+        emulate: false,
+        measure_runtime: false,
+        compare: true,
+        ..ReportOptions::default()
+    };
+    let path = models().join("caps/plain.toml");
+    let r = bench_report(&path, &opts).unwrap();
+    let a = r.accuracy.as_ref().expect("compare run included");
+    // The bundled caps validation folder: 4 labels × 100 images
+    // (models/caps/README.md).
+    assert_eq!(a.images, 400);
+    assert_eq!(a.layers.len(), r.footprint.layers.len());
+    let html = r.render_html();
+    for chart in ["confusion", "confusion-float", "sqnr", "logit-error"] {
+        assert!(html.contains(&format!("data-chart='{chart}'")), "{chart}");
+    }
+    assert!(r.render_text().contains("per-layer SQNR"));
+    assert!(serde_json::to_value(&r).unwrap()["accuracy"]["confusion"].is_array());
+}
+
+#[test]
 fn sweep_scales_and_marks_fits() {
     let desc = Description::load(&models().join("caps/plain.toml")).unwrap();
     let targets = vec![

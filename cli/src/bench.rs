@@ -52,8 +52,9 @@ pub struct ReportArgs {
     /// Number of seeded random inputs.
     #[arg(long, default_value_t = 1)]
     inputs: usize,
-    /// Include a compare run (per-layer SQNR) for a description with
-    /// weights, calibration and validation images.
+    /// Include a compare run (accuracy drop, confusion, per-layer SQNR,
+    /// logit error) for a description with weights, calibration and
+    /// validation images.
     #[arg(long)]
     compare: bool,
 }
