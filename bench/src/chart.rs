@@ -297,6 +297,12 @@ pub fn bar_chart(
 /// A histogram as inline SVG: `counts` in equal bins from `lo` to `hi`,
 /// both axes ticked on round numbers.
 pub fn histogram(chart: &str, lo: f64, hi: f64, counts: &[u64], x_unit: &str) -> String {
+    // An empty range (every value equal) is drawn one unit wide around it.
+    let (lo, hi) = if hi > lo {
+        (lo, hi)
+    } else {
+        (lo - 0.5, lo + 0.5)
+    };
     let f = Frame {
         w: 900.0,
         h: 260.0,
@@ -754,5 +760,8 @@ mod tests {
         assert_eq!(svg.matches("<rect").count(), 4);
         assert!(svg.contains("<title>-0.50 to 0: 0</title>"));
         assert!(svg.contains(">-1.0</text>") && svg.contains(">0.2</text>"));
+        // All errors zero: the middle of three bins spans −1/6..1/6.
+        let svg = histogram("h", 0.0, 0.0, &[0, 5, 0], "logit");
+        assert!(svg.contains("<title>-0.17 to 0.17: 5</title>"), "{svg}");
     }
 }
