@@ -575,9 +575,9 @@ pub fn show_text(model: &Model<'_>) -> String {
         };
         sizes[h.output as usize] = t.byte_len();
         let act = match h.act {
-            midge_runtime::Activation::None => "-",
-            midge_runtime::Activation::Relu => "relu",
-            midge_runtime::Activation::Relu6 => "relu6",
+            midge_runtime::repr::Activation::None => "-",
+            midge_runtime::repr::Activation::Relu => "relu",
+            midge_runtime::repr::Activation::Relu6 => "relu6",
         };
         let ins_text: Vec<String> = ins.iter().map(|t| format!("t{t}")).collect();
         let quant = if t.elem == ElemType::I8 {

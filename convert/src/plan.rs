@@ -46,7 +46,7 @@ pub struct Plan {
 /// The (inputs, output) tensor ids of each layer, the step list `lifetimes`
 /// and `plan_layers` take, read from runtime layer headers.
 pub fn steps<'a>(
-    headers: impl IntoIterator<Item = &'a midge_runtime::LayerHeader>,
+    headers: impl IntoIterator<Item = &'a midge_runtime::repr::LayerHeader>,
 ) -> Vec<(Vec<usize>, usize)> {
     headers
         .into_iter()
