@@ -219,3 +219,50 @@ fn a_bad_html_path_is_one_line_and_writes_nothing() {
     assert_eq!(std::fs::read_dir(&dir).unwrap().count(), 0);
     std::fs::remove_dir_all(&dir).ok();
 }
+
+#[test]
+fn emulated_latency_on_the_page_is_the_budgets_instruction_count() {
+    let dir = tmp("emulated");
+    let page = dir.join("r.html");
+    let o = Command::new(env!("CARGO_BIN_EXE_midge"))
+        .arg("assess")
+        .arg(root().join("models/caps/plain.toml"))
+        .args(["--json", "-o"])
+        .arg(dir.join("plain.midge"))
+        .arg("--html")
+        .arg(&page)
+        .output()
+        .expect("run midge");
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    // Under MIDGE_REQUIRE_EMULATOR=1 a missing emulator is already an error
+    // of the binary (exit 2), so this fails rather than skips.
+    assert!(matches!(o.status.code(), Some(0) | Some(4)), "{stderr}");
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).expect("JSON on stdout");
+    let Some(instructions) = v["budget"]["instructions"].as_u64() else {
+        eprintln!("skipped: the emulated run was not possible here: {stderr}");
+        return;
+    };
+    let html = std::fs::read_to_string(&page).unwrap();
+    let grouped: String = {
+        let s = instructions.to_string();
+        s.chars()
+            .enumerate()
+            .flat_map(|(i, c)| {
+                let sep = i > 0 && (s.len() - i) % 3 == 0;
+                sep.then_some('\u{2009}').into_iter().chain([c])
+            })
+            .collect()
+    };
+    assert!(html.contains("<h2>Instructions per layer — m4-80</h2>"));
+    assert!(
+        html.contains(&format!("for one inference: {grouped} instructions")),
+        "page total is not the budget's {instructions}"
+    );
+    let latency = charts(&html)
+        .into_iter()
+        .find(|(n, _)| n == "latency")
+        .expect("latency chart");
+    // One bar per runtime layer: as many as the report's per-layer rows.
+    assert_eq!(latency.1, v["report"]["layers"].as_array().unwrap().len());
+    std::fs::remove_dir_all(&dir).ok();
+}
