@@ -20,6 +20,7 @@ pub mod output;
 pub mod parallel;
 pub mod plan;
 pub mod quantize;
+pub mod show;
 pub mod synth;
 pub mod weights;
 

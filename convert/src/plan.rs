@@ -3,8 +3,8 @@
 //! size with best-fit offsets, then a bounded search for a placement inside
 //! the lower bound when greedy misses it; also reports that lower bound.
 
-/// Offsets inside the workspace are multiples of this many bytes.
-pub const ALIGN: usize = 8;
+/// Offsets inside the workspace are multiples of the layout's alignment.
+pub use midge_runtime::format::ALIGN;
 
 /// One tensor to place: its byte length and the inclusive range of layer
 /// steps during which it must keep its bytes.
