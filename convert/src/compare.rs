@@ -85,6 +85,12 @@ pub struct Report {
     pub workspace_len: usize,
     pub workspace_lower_bound: usize,
     pub model_bytes: usize,
+    /// Pairs rescaled by `--equalize` (empty without it).
+    pub equalized: Vec<crate::equalize::EqualizedPair>,
+    /// Layers whose int8 bias `--bias-correct` shifted (empty without it).
+    pub bias_correction: Vec<crate::bias_correct::BiasRow>,
+    /// What `--calibration-method measured` chose.
+    pub calibration_choice: Option<crate::calibrate_choice::CalibrationChoice>,
 }
 
 fn pct(n: usize, d: usize) -> f64 {
@@ -465,6 +471,9 @@ fn tally(
         workspace_len: q.plan.workspace_len,
         workspace_lower_bound: q.plan.lower_bound,
         model_bytes: q.bytes.len(),
+        equalized: conv.equalized.clone(),
+        bias_correction: crate::bias_correct::rows(graph, &conv.bias_shifts),
+        calibration_choice: conv.calibration_choice.clone(),
     }
 }
 
@@ -596,6 +605,11 @@ impl Report {
                 l.op,
                 l.precision
             );
+        }
+        s += &crate::bias_correct::adjustments_text(&self.equalized, &self.bias_correction);
+        if let Some(c) = &self.calibration_choice {
+            s += "\n  calibration: ";
+            s += &c.to_text();
         }
         s
     }
