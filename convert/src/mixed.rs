@@ -135,7 +135,6 @@ pub fn choose(
     if drop > bound_pp {
         // Layers the table does not name (none in practice): all fp16.
         precisions = vec![Precision::Fp16; n];
-        drop = sens.all_fp16_drop_pp;
     }
     // Then drop every pick the bound does not need, earliest first.
     for k in 0..n {
