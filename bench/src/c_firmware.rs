@@ -15,13 +15,13 @@ use crate::{Error, Result};
 const INSTALL_GCC: &str =
     "apt-get update && apt-get install -y gcc-arm-none-eabi libnewlib-arm-none-eabi make";
 
-fn root() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("..")
-}
-
-/// The example's folder (main.c, startup, linker script, Makefile).
-pub fn example_dir() -> PathBuf {
-    root().join("capi").join("examples").join("mps2")
+/// The example's folder (main.c, startup, linker script, Makefile), unpacked
+/// with the rest of the packed sources (`sources::tree`).
+pub fn example_dir() -> Result<PathBuf> {
+    Ok(crate::sources::tree()?
+        .join("capi")
+        .join("examples")
+        .join("mps2"))
 }
 
 /// The `-mcpu` the example is built with for a Rust thumb target.
@@ -36,15 +36,9 @@ fn cpu_of(triple: &str) -> Result<&'static str> {
     }
 }
 
-/// Why the C example cannot be built here, if it cannot: its source, cargo's
-/// thumb target, arm-none-eabi-gcc (with newlib) or make missing.
+/// Why the C example cannot be built here, if it cannot: cargo's thumb
+/// target, arm-none-eabi-gcc (with newlib) or make missing.
 pub fn unavailable(triple: &str) -> Option<String> {
-    if !example_dir().join("main.c").is_file() {
-        return Some(format!(
-            "{}: C example source not found (a binary built away from its source tree)",
-            example_dir().display()
-        ));
-    }
     if let Err(e) = rust_target_installed(triple) {
         return Some(e.to_string());
     }
@@ -105,12 +99,16 @@ fn build_now(triple: &str, ops: OpSet, model_c: Option<&Path>) -> Result<PathBuf
         return Err(Error::new("C example", why));
     }
     let cpu = cpu_of(triple)?;
+    let root = crate::sources::tree()?;
+    let example = example_dir()?;
     // Own target folder per op set: the library's build script reads MIDGE_OPS.
-    let target = root().join("target").join("c-firmware").join(ops_key(ops));
+    let target = crate::sources::cargo_target()?
+        .join("c-firmware")
+        .join(ops_key(ops));
     let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
     run_step(
         Command::new(cargo)
-            .current_dir(root())
+            .current_dir(&root)
             .args(["build", "--quiet", "-p", "midge-c", "--profile", "c-lib"])
             .args(["--target", triple])
             .env("CARGO_TARGET_DIR", &target)
@@ -123,11 +121,14 @@ fn build_now(triple: &str, ops: OpSet, model_c: Option<&Path>) -> Result<PathBuf
     let lib = target.join(triple).join("c-lib").join("libmidge_c.a");
     let out = match model_c.and_then(Path::parent) {
         Some(dir) => dir.to_path_buf(),
-        None => target.join(triple).join("example"),
+        None => crate::sources::builds()?
+            .join("c-example")
+            .join(triple)
+            .join(ops_key(ops)),
     };
     let mut make = Command::new("make");
     make.arg("-C")
-        .arg(example_dir())
+        .arg(&example)
         .arg("--quiet")
         .arg(format!("CPU={cpu}"))
         .arg(format!("LIB={}", lib.display()))
@@ -135,6 +136,6 @@ fn build_now(triple: &str, ops: OpSet, model_c: Option<&Path>) -> Result<PathBuf
     if let Some(m) = model_c {
         make.arg(format!("MODEL_C={}", m.display()));
     }
-    run_step(&mut make, &format!("make -C {}", example_dir().display()))?;
+    run_step(&mut make, &format!("make -C {}", example.display()))?;
     Ok(out.join("midge-c-example.elf"))
 }

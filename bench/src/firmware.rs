@@ -42,12 +42,10 @@ pub fn may_skip(why: &str) -> Result<()> {
     }
 }
 
-/// The bench/firmware Cargo project.
-pub fn firmware_dir() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("..")
-        .join("bench")
-        .join("firmware")
+/// The bench/firmware Cargo project, unpacked from the sources this
+/// binary carries into the cache folder (`sources::tree`).
+pub fn firmware_dir() -> Result<PathBuf> {
+    Ok(crate::sources::tree()?.join("bench").join("firmware"))
 }
 
 /// `qemu-system-arm --version`'s first line, or how to install it.
@@ -119,8 +117,8 @@ pub struct FirmwareBuild {
 /// The firmware for `triple` linking the op set `ops` (a model's
 /// `Model::op_set`, or `OpSet::ALL`), built in release mode. Builds are
 /// cached per (triple, op set): once per process, and on disk under
-/// `target/firmware/ops/<triple>/<bits>/` while the runtime and firmware
-/// sources are unchanged.
+/// `<cache>/build-<key>/ops/<triple>/<bits>/` (`sources`: the cache folder
+/// and the packed sources' content hash).
 pub fn build(triple: &str, ops: OpSet) -> Result<FirmwareBuild> {
     type Builds = HashMap<(String, u32), Result<FirmwareBuild>>;
     static BUILDS: OnceLock<Mutex<Builds>> = OnceLock::new();
@@ -131,20 +129,9 @@ pub fn build(triple: &str, ops: OpSet) -> Result<FirmwareBuild> {
         .clone()
 }
 
-/// Why the firmware cannot be built here, if it cannot: its source (found
-/// through the source tree this binary was compiled from), cargo, or the
-/// target's standard library is missing.
+/// Why the firmware cannot be built here, if it cannot: cargo or the
+/// target's standard library is missing (each named with how to get it).
 pub fn build_unavailable(triple: &str) -> Option<Error> {
-    build_unavailable_from(&firmware_dir(), triple)
-}
-
-fn build_unavailable_from(dir: &Path, triple: &str) -> Option<Error> {
-    if !dir.join("Cargo.toml").is_file() {
-        return Some(Error::new(
-            dir.display().to_string(),
-            "firmware source not found: this midge binary was built from a source tree that is not here (an installed binary); run it from a midge checkout to measure this",
-        ));
-    }
     let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
     let runs = Command::new(&cargo)
         .arg("--version")
@@ -156,17 +143,10 @@ fn build_unavailable_from(dir: &Path, triple: &str) -> Option<Error> {
     if !runs {
         return Some(Error::new(
             cargo.to_string_lossy().into_owned(),
-            "cargo, needed to build the firmware, cannot be run; install a Rust toolchain (rustup) to measure this",
+            "cargo, needed to build the firmware, cannot be run; install a Rust toolchain with rustup (https://rustup.rs)",
         ));
     }
     rust_target_installed(triple).err()
-}
-
-fn target_dir() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("..")
-        .join("target")
-        .join("firmware")
 }
 
 /// The op set as `MIDGE_OPS` and the cache folder spell it.
@@ -176,48 +156,14 @@ pub fn ops_key(ops: OpSet) -> String {
 
 const ELVES: [&str; 4] = ["harness", "footprint", "baseline", "kernel_match"];
 
-/// A fingerprint of every file the firmware build reads from this
-/// repository (runtime and firmware sources, manifests, lock file, linker
-/// script): path, length, modification time.
-fn sources_fingerprint() -> String {
-    use std::hash::{Hash, Hasher};
-    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("..");
-    let mut files = Vec::new();
-    let mut stack = vec![root.join("runtime").join("src"), firmware_dir()];
-    files.push(root.join("runtime").join("Cargo.toml"));
-    while let Some(dir) = stack.pop() {
-        let Ok(rd) = std::fs::read_dir(&dir) else {
-            continue;
-        };
-        for e in rd.flatten() {
-            let p = e.path();
-            let built = ["rs", "toml", "lock", "x"]
-                .iter()
-                .any(|x| p.extension().is_some_and(|e| e == *x));
-            if p.is_dir() {
-                stack.push(p);
-            } else if built {
-                files.push(p);
-            }
-        }
-    }
-    files.sort();
-    let mut h = std::collections::hash_map::DefaultHasher::new();
-    for f in &files {
-        f.hash(&mut h);
-        if let Ok(m) = std::fs::metadata(f) {
-            m.len().hash(&mut h);
-            m.modified().ok().hash(&mut h);
-        }
-    }
-    format!("{:016x}", h.finish())
-}
-
 fn build_cached(triple: &str, ops: OpSet) -> Result<FirmwareBuild> {
     if let Some(e) = build_unavailable(triple) {
         return Err(e);
     }
-    let cache = target_dir().join("ops").join(triple).join(ops_key(ops));
+    let cache = crate::sources::builds()?
+        .join("ops")
+        .join(triple)
+        .join(ops_key(ops));
     let build = FirmwareBuild {
         triple: triple.to_string(),
         ops,
@@ -229,29 +175,29 @@ fn build_cached(triple: &str, ops: OpSet) -> Result<FirmwareBuild> {
     let place = cache.display().to_string();
     let io = |e: std::io::Error| Error::new(&place, format!("firmware cache: {e}"));
     std::fs::create_dir_all(&cache).map_err(io)?;
+    let target_dir = crate::sources::cargo_target()?.join("firmware");
+    std::fs::create_dir_all(&target_dir).map_err(io)?;
     // One build at a time across processes: the binaries are built at one
-    // place in the shared target folder and copied from there.
-    let lock = std::fs::File::create(target_dir().join("ops").join(".lock")).map_err(io)?;
+    // place in the shared target folder and copied from there. The folder is
+    // keyed by the sources' content hash, so what is there is current.
+    let lock = std::fs::File::create(target_dir.join(".midge-lock")).map_err(io)?;
     lock.lock().map_err(io)?;
-    let stamp = cache.join("sources");
-    let fingerprint = sources_fingerprint();
-    let fresh = std::fs::read_to_string(&stamp).is_ok_and(|s| s == fingerprint)
-        && ELVES.iter().all(|e| cache.join(e).is_file());
-    if !fresh {
-        let bin = cargo_build(triple, ops)?;
+    if !ELVES.iter().all(|e| cache.join(e).is_file()) {
+        let bin = cargo_build(triple, ops, &target_dir)?;
         for e in ELVES {
-            std::fs::copy(bin.join(e), cache.join(e)).map_err(io)?;
+            // Copy under a temporary name, then rename: a binary in the cache is whole.
+            let tmp = cache.join(format!(".{e}.tmp"));
+            std::fs::copy(bin.join(e), &tmp).map_err(io)?;
+            std::fs::rename(&tmp, cache.join(e)).map_err(io)?;
         }
-        std::fs::write(&stamp, sources_fingerprint()).map_err(io)?;
     }
     Ok(build)
 }
 
 /// `cargo build --release` of bench/firmware for `triple` with `MIDGE_OPS`
 /// set to `ops`; returns the folder holding the binaries.
-fn cargo_build(triple: &str, ops: OpSet) -> Result<PathBuf> {
-    let dir = firmware_dir();
-    let target_dir = target_dir();
+fn cargo_build(triple: &str, ops: OpSet, target_dir: &Path) -> Result<PathBuf> {
+    let dir = firmware_dir()?;
     let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
     let out = Command::new(cargo)
         .current_dir(&dir)
@@ -263,7 +209,7 @@ fn cargo_build(triple: &str, ops: OpSet) -> Result<PathBuf> {
             "--target",
             triple,
         ])
-        .env("CARGO_TARGET_DIR", &target_dir)
+        .env("CARGO_TARGET_DIR", target_dir)
         .env("MIDGE_OPS", ops_key(ops))
         .env_remove("RUSTFLAGS")
         .env_remove("CARGO_ENCODED_RUSTFLAGS")
@@ -514,17 +460,6 @@ pub fn parse_report(text: &str, machine: &str, qemu: &str) -> Result<EmulatedRun
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn a_missing_firmware_source_is_named() {
-        let e = build_unavailable_from(
-            Path::new("/nonexistent/bench/firmware"),
-            "thumbv6m-none-eabi",
-        )
-        .expect("no source, no build");
-        assert_eq!(e.place, "/nonexistent/bench/firmware");
-        assert!(e.problem.contains("firmware source not found"), "{e}");
-    }
 
     #[test]
     fn job_block_layout() {

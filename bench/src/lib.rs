@@ -9,6 +9,7 @@ pub mod firmware;
 pub mod footprint;
 pub mod host;
 pub mod report;
+pub mod sources;
 pub mod sweep;
 pub mod target;
 

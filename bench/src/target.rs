@@ -209,8 +209,9 @@ impl Target {
     }
 
     /// A profile given as a file path, or as a name looked up as
-    /// `models/targets/<name>.toml` under the current folder, its ancestors,
-    /// and this source tree.
+    /// `models/targets/<name>.toml` under the current folder and its
+    /// ancestors, then among the profiles this binary carries
+    /// (`sources::profile`, the repository's `models/targets/`).
     pub fn resolve(name_or_path: &str) -> Result<Target> {
         let p = Path::new(name_or_path);
         // Anything that exists is the file meant (a FIFO or folder is refused by `load`).
@@ -226,31 +227,31 @@ impl Target {
             }
             tried.push(candidate.display().to_string());
         }
+        if let Some(text) = crate::sources::profile(name_or_path) {
+            return Target::from_toml_str(text, &format!("built-in profile {name_or_path}"));
+        }
+        let shipped: Vec<&str> = crate::sources::profile_names().collect();
         Err(Error::new(
             name_or_path,
             format!(
-                "no target profile file of that path or name (looked for {})",
-                tried.join(", ")
+                "no target profile file of that path or name (looked for {}; built-in profiles: {})",
+                tried.join(", "),
+                shipped.join(", ")
             ),
         ))
     }
 }
 
-/// Folders searched for named profiles.
+/// Folders searched for named profiles: `models/targets` under the current
+/// folder and each of its ancestors.
 pub fn target_dirs() -> Vec<PathBuf> {
-    let mut dirs = Vec::new();
-    if let Ok(cwd) = std::env::current_dir() {
-        for a in cwd.ancestors() {
-            dirs.push(a.join("models").join("targets"));
-        }
-    }
-    dirs.push(
-        Path::new(env!("CARGO_MANIFEST_DIR"))
-            .join("..")
-            .join("models")
-            .join("targets"),
-    );
-    dirs
+    std::env::current_dir()
+        .map(|cwd| {
+            cwd.ancestors()
+                .map(|a| a.join("models").join("targets"))
+                .collect()
+        })
+        .unwrap_or_default()
 }
 
 #[cfg(test)]
