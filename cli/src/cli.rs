@@ -91,6 +91,9 @@ pub enum MethodArg {
     Percentile,
     /// Clip where the expected squared quantization error is least.
     Mse,
+    /// Try min/max, percentile and MSE on a held-apart part of the
+    /// calibration images and keep the best (reported).
+    Measured,
 }
 
 /// Calibration and precision flags shared by `quantize` and `compare`.
@@ -108,6 +111,14 @@ pub struct ConvertFlags {
     /// Calibration image folder instead of the description's `calibration`.
     #[arg(long, value_name = "DIR")]
     pub calibration: Option<PathBuf>,
+    /// Cross-layer equalization of conv/depthwise pairs before calibration
+    /// (Nagel et al. 2019); the float function is unchanged.
+    #[arg(long)]
+    pub equalize: bool,
+    /// Empirical bias correction of int8 layers from the calibration images
+    /// (Nagel et al. 2019).
+    #[arg(long)]
+    pub bias_correct: bool,
 }
 
 /// `--percentile`: a number of percent in 50..=100.
@@ -132,10 +143,13 @@ impl ConvertFlags {
             method: match self.calibration_method {
                 MethodArg::Minmax => RangeMethod::MinMax,
                 MethodArg::Percentile => RangeMethod::Percentile(self.percentile),
-                MethodArg::Mse => RangeMethod::Mse,
+                MethodArg::Mse | MethodArg::Measured => RangeMethod::Mse,
             },
             calibration: self.calibration.clone(),
             progress: true,
+            equalize: self.equalize,
+            bias_correct: self.bias_correct,
+            choose_calibration: self.calibration_method == MethodArg::Measured,
         }
     }
 }
@@ -326,11 +340,25 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
         int8,
         conv.graph.nodes.len() - int8
     );
-    println!(
-        "calibration: {} images, {}",
-        conv.calibration_images,
-        method_text(opts.method)
+    match &conv.calibration_choice {
+        Some(c) => println!(
+            "calibration: {} images, {}",
+            conv.calibration_images,
+            c.to_text().trim_end()
+        ),
+        None => println!(
+            "calibration: {} images, {}",
+            conv.calibration_images,
+            method_text(opts.method)
+        ),
+    }
+    let adjust = midge_convert::bias_correct::adjustments_text(
+        &conv.equalized,
+        &midge_convert::bias_correct::rows(&conv.graph, &conv.bias_shifts),
     );
+    if !adjust.is_empty() {
+        print!("{adjust}");
+    }
     println!(
         "memory plan: workspace {} bytes (lower bound {} bytes, {:.1} % above)",
         q.plan.workspace_len,
