@@ -191,6 +191,27 @@ pub struct CompareArgs {
     /// description's `validation`.
     #[arg(long, value_name = "DIR")]
     pub images: Option<PathBuf>,
+    /// Per-layer sensitivity: top-1 drop and logit SQNR with only this
+    /// layer int8 (the rest fp16) and with only this layer fp16 (the rest int8).
+    #[arg(long)]
+    pub sensitivity: bool,
+    /// Only these folded layers in the sensitivity table (comma-separated).
+    #[arg(
+        long,
+        value_delimiter = ',',
+        value_name = "NAMES",
+        requires = "sensitivity"
+    )]
+    pub layers: Vec<String>,
+    /// Choose the fewest layers to keep in fp16 so the drop stays within
+    /// --max-drop and write that description here (exit 3, nothing written,
+    /// when even all-fp16 misses the bound).
+    #[arg(long, value_name = "FILE", requires = "max_drop")]
+    pub mixed_description: Option<PathBuf>,
+    /// With --mixed-description: do not count each mix's instructions on the
+    /// emulated core of the description's target.
+    #[arg(long, requires = "mixed_description")]
+    pub no_emulate: bool,
 }
 
 #[derive(clap::Args, Debug)]
@@ -447,9 +468,7 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
             "report": report,
             "budget": ev.budget,
         });
-        let text = serde_json::to_string_pretty(&value)
-            .map_err(|e| Error::new("report", format!("cannot write JSON: {e}")))?;
-        println!("{text}");
+        println!("{}", json_text(&value)?);
     } else {
         println!(
             "wrote {} ({} bytes; workspace {} bytes, lower bound {} bytes)\n",
@@ -480,15 +499,88 @@ fn cmd_compare(a: &CompareArgs) -> Result<i32> {
         also_fp16: a.also_fp16,
         images: a.images.clone(),
     };
+    if a.sensitivity || a.mixed_description.is_some() {
+        return compare_sensitivity(a, &opts);
+    }
     let report = compare::compare(&a.description, &opts)?;
     if a.json {
-        let text = serde_json::to_string_pretty(&report)
-            .map_err(|e| Error::new("report", format!("cannot write JSON: {e}")))?;
-        println!("{text}");
+        println!("{}", json_text(&serde_json::json!(report))?);
     } else {
         print!("{}", report.to_text());
     }
     Ok(drop_status(report.drop_pp, a.max_drop))
+}
+
+fn json_text(value: &serde_json::Value) -> Result<String> {
+    serde_json::to_string_pretty(value)
+        .map_err(|e| Error::new("report", format!("cannot write JSON: {e}")))
+}
+
+/// `compare --sensitivity` and `--mixed-description`: the report, the
+/// per-layer table and the mixed-precision search on one conversion.
+fn compare_sensitivity(a: &CompareArgs, opts: &CompareOptions) -> Result<i32> {
+    use midge_convert::{mixed, sensitivity};
+    if let Some(dest) = &a.mixed_description {
+        if let Some(d) = a.max_drop {
+            mixed::check_bound(d)?;
+        }
+        output::check_destinations(&[dest], &[&a.description])?;
+    }
+    let (conv, dir) = compare::prepare(&a.description, opts)?;
+    let which = sensitivity::select(&conv, if a.sensitivity { &a.layers } else { &[] })?;
+    let report = compare::evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)?;
+    let sens = sensitivity::measure(&conv, &dir, &which)?;
+    let plan = match (&a.mixed_description, a.max_drop) {
+        (Some(_), Some(bound)) => {
+            let target = match (&conv.desc.target, a.no_emulate) {
+                (Some(path), false) => Some(midge_bench::target::Target::load(path)?),
+                _ => None,
+            };
+            let mut instructions =
+                |bytes: &[u8]| crate::bench::instructions(bytes, target.as_ref());
+            Some(mixed::choose(&conv, &dir, &sens, bound, &mut instructions)?)
+        }
+        _ => None,
+    };
+    if let (Some(dest), Some(p)) = (&a.mixed_description, &plan) {
+        if p.met {
+            mixed::write_description(&conv, &a.description, dest, p)?;
+        }
+    }
+    if a.json {
+        let value = serde_json::json!({
+            "report": report,
+            "sensitivity": sens,
+            "mixed": plan,
+        });
+        println!("{}", json_text(&value)?);
+    } else {
+        print!("{}", report.to_text());
+        println!();
+        print!("{}", sens.to_text());
+        if let Some(p) = &plan {
+            println!();
+            print!("{}", p.to_text());
+        }
+    }
+    match (&plan, &a.mixed_description) {
+        (Some(p), Some(dest)) if p.met => {
+            if !a.json {
+                println!("wrote {}", escape_path(dest));
+            }
+            Ok(0)
+        }
+        (Some(p), _) => {
+            eprintln!(
+                "midge: {}: even all-fp16 drops {:.2} pp, more than --max-drop {}; no description written",
+                escape_path(&a.description),
+                p.all_fp16_drop_pp,
+                p.bound_pp
+            );
+            Ok(EXIT_DROP_EXCEEDED)
+        }
+        (None, _) => Ok(drop_status(report.drop_pp, a.max_drop)),
+    }
 }
 
 fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {

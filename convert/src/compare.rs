@@ -219,6 +219,13 @@ fn precision_name(graph: &FloatGraph) -> String {
 
 /// Quantize the description (in memory) and evaluate it. See [`evaluate`].
 pub fn compare(desc_path: &Path, opts: &CompareOptions) -> Result<Report> {
+    let (conv, dir) = prepare(desc_path, opts)?;
+    evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)
+}
+
+/// The conversion `compare` evaluates and the labelled folder it reads
+/// (`--images`, else the description's `validation`).
+pub fn prepare(desc_path: &Path, opts: &CompareOptions) -> Result<(Conversion, PathBuf)> {
     let conv = quantize_description(desc_path, &opts.quantize)?;
     let dir = opts
         .images
@@ -230,7 +237,7 @@ pub fn compare(desc_path: &Path, opts: &CompareOptions) -> Result<Report> {
                 "no validation images: set `validation` in the description or pass a folder",
             )
         })?;
-    evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)
+    Ok((conv, dir))
 }
 
 /// Logit error of one image: Σ|x − x̂| (in element order) and max |x − x̂|.
