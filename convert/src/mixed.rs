@@ -52,15 +52,15 @@ pub struct Plan {
 }
 
 /// Check a `--max-drop` bound for the search: a number of percentage points
-/// in 0..=100.
+/// in −100..=100 (a negative bound asks the quantized model to beat float).
 pub fn check_bound(pp: f64) -> Result<()> {
-    if pp.is_finite() && (0.0..=100.0).contains(&pp) {
+    if pp.is_finite() && (-100.0..=100.0).contains(&pp) {
         Ok(())
     } else {
         Err(Error::new(
             "--max-drop",
             format!(
-                "expected percentage points in 0..=100 for the mixed-precision search, found {pp}"
+                "expected percentage points in -100..=100 for the mixed-precision search, found {pp}"
             ),
         ))
     }
