@@ -66,6 +66,9 @@ pub fn check_bound(pp: f64) -> Result<()> {
     }
 }
 
+/// Counts a model file's instructions on the emulated core, or says why not.
+pub type InstructionCounter<'a> = dyn FnMut(&[u8]) -> (Option<u64>, String) + 'a;
+
 /// Search the mix for `conv` on the labelled folder `dir`. `instructions`
 /// measures a model file's instructions (or says why not).
 pub fn choose(
@@ -73,7 +76,7 @@ pub fn choose(
     dir: &Path,
     sens: &Sensitivity,
     bound_pp: f64,
-    instructions: &mut dyn FnMut(&[u8]) -> (Option<u64>, String),
+    instructions: &mut InstructionCounter<'_>,
 ) -> Result<Plan> {
     check_bound(bound_pp)?;
     let names: Vec<&str> = conv.graph.nodes.iter().map(|n| n.name.as_str()).collect();
