@@ -160,6 +160,39 @@ fn pixels_int8() {
     assert_eq!(as_i8(&y), [31, -96, -118, -120]);
 }
 
+// Images with more than 256 pixels per channel take the per-channel table;
+// every byte must still follow the FORMAT.md formula
+// q = clamp(zp + ⌊((p·256 − offset)·m + 2^(s−1)) / 2^s⌋), worked here in i64.
+#[test]
+fn pixels_int8_table_matches_formula() {
+    let (h, w, c) = (20u16, 20u16, 3usize);
+    let params = [0, 3 << 28, 38, 32832, 1 << 30, 37, -5000, 1_500_000_000, 40];
+    let l = layer(
+        header(Op::Pixels, Window::default()),
+        Weights::None,
+        Bias::None,
+        Params::I32(&params),
+    );
+    let ta = rec(h, w, c as u16, ElemType::U8, 1.0 / 255.0, 0);
+    let to = i8t(h, w, c as u16, -3);
+    let x: Vec<u8> = (0..h as usize * w as usize * c)
+        .map(|i| (i * 37 % 256) as u8)
+        .collect();
+    let y = run2(&l, &ta, &Buf::from_bytes(&x), None, &to);
+    let want: Vec<i8> = x
+        .iter()
+        .enumerate()
+        .map(|(i, &p)| {
+            let prm = &params[3 * (i % c)..];
+            let acc = p as i64 * 256 - prm[0] as i64;
+            let s = prm[2] as u32;
+            let r = (acc * prm[1] as i64 + (1i64 << (s - 1))) >> s;
+            (r - 3).clamp(-128, 127) as i8
+        })
+        .collect();
+    assert_eq!(as_i8(&y), want);
+}
+
 #[test]
 fn pixels_fp16() {
     // ch0 [a 0.25, b −1]: 51·0.25 − 1 = 11.75; ch1 [a 2^−8, b −0.5]: 255/256 − 0.5 = 0.49609375

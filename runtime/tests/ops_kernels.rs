@@ -444,3 +444,110 @@ fn axis_range_equals_taps() {
         check(o, k, s, d, p, len);
     }
 }
+
+/// The 3×3 depthwise row driver with the portable row kernel against
+/// depthwise_ref: horizontal stride 1 and 2, any vertical stride and
+/// dilation, padding up to 3 (whole padded rows), widths beyond one strip,
+/// channel counts 1..=70 (not multiples of 4), extreme values and zero
+/// points, biases near the i32 ends (wrapping sums).
+#[test]
+fn depthwise3x3_equals_reference() {
+    use midge_runtime::kernels::depthwise::{self as dw, STRIP};
+    let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0933);
+    for i in 0..600 {
+        let win = window(
+            3,
+            3,
+            rng.gen_range(1..=3),
+            rng.gen_range(1..=2),
+            rng.gen_range(1..=3),
+            1,
+            [0; 4].map(|_| rng.gen_range(0..=3)),
+        );
+        assert!(dw::fits(&win));
+        let iw = if i % 9 == 0 {
+            rng.gen_range(STRIP as u16..=2 * STRIP as u16 + 7)
+        } else {
+            rng.gen_range(1..=14)
+        };
+        let (ih, c) = (
+            rng.gen_range(1..=9),
+            rng.gen_range(1..=if i % 4 == 0 { 70 } else { 13 }),
+        );
+        let Some((oh, ow)) = win.output_hw(ih, iw) else {
+            continue;
+        };
+        let (xs, ys) = (Shape::new(ih, iw, c), Shape::new(oh, ow, c));
+        let extreme = i % 3 == 2;
+        let val = |rng: &mut ChaCha8Rng| -> i8 {
+            match (extreme, rng.gen::<bool>()) {
+                (true, true) => 127,
+                (true, false) => -128,
+                _ => rng.gen(),
+            }
+        };
+        let x: Vec<i8> = (0..xs.elems()).map(|_| val(&mut rng)).collect();
+        let w: Vec<i8> = (0..9 * c as usize).map(|_| val(&mut rng)).collect();
+        let (mut b, mut q) = (Vec::new(), Vec::new());
+        let mut a = int8_arith(&mut rng, &mut b, &mut q, c as usize);
+        if extreme {
+            a.zp_in = if rng.gen() { 127 } else { -128 };
+        }
+        let b2: Vec<i32>;
+        if i % 7 == 4 {
+            b2 = (0..c)
+                .map(|_| {
+                    if rng.gen() {
+                        i32::MAX - 100
+                    } else {
+                        i32::MIN + 100
+                    }
+                })
+                .collect();
+            a.bias = &b2;
+        }
+        let (mut rows, mut slow) = (vec![0i8; ys.elems()], vec![1i8; ys.elems()]);
+        dw::depthwise3x3::<dw::Portable>(&a, &x, xs, &w, &win, &mut rows, ys).unwrap();
+        kernels::depthwise_ref(&a, &x, xs, &w, &win, &mut slow, ys).unwrap();
+        assert_eq!(rows, slow, "case {i}: {win:?} {xs:?} {ys:?}");
+    }
+}
+
+// The 32-bit form of the int8 add (`AddI8::split_shift`) against the i64
+// formula of FORMAT.md (`AddI8::apply`) on every pair of int8 inputs, for
+// random constants including the extreme multipliers, shifts and zero points.
+#[test]
+fn add_split_shift_equals_formula() {
+    use midge_runtime::kernels::int8::{self, AddI8};
+    let mut rng = ChaCha8Rng::seed_from_u64(0xadd_0032);
+    let all: Vec<(i8, i8)> = (-128..=127i32)
+        .flat_map(|a| (-128..=127i32).map(move |b| (a as i8, b as i8)))
+        .collect();
+    let (xa, xb): (Vec<i8>, Vec<i8>) = all.iter().copied().unzip();
+    for case in 0..24 {
+        let pick = |rng: &mut ChaCha8Rng, lo: i32, hi: i32| match case % 4 {
+            0 => lo,
+            1 => hi,
+            _ => rng.gen_range(lo..=hi),
+        };
+        let p = AddI8 {
+            zp_a: pick(&mut rng, -128, 127),
+            zp_b: pick(&mut rng, -128, 127),
+            zp_out: pick(&mut rng, -128, 127),
+            ma: pick(&mut rng, 0, i32::MAX),
+            mb: rng.gen_range(0..=i32::MAX),
+            rshift: if case < 8 {
+                [10, 31][case % 2]
+            } else {
+                rng.gen_range(10..=31)
+            },
+            clamp: [-128, 127],
+        };
+        assert!(p.split_shift().is_some());
+        let mut y = vec![0i8; all.len()];
+        int8::add(&p, &xa, &xb, &mut y).unwrap();
+        for ((&qa, &qb), &got) in xa.iter().zip(&xb).zip(&y) {
+            assert_eq!(got, p.apply(qa, qb), "case {case}: {p:?} {qa} {qb}");
+        }
+    }
+}

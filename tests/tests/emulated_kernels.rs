@@ -1,6 +1,8 @@
 //! The int8 conv2d tile kernel of each emulated core against the portable
 //! tile kernel and the reference loop nest: bench/firmware's `kernel_match`
-//! runs 1 200 random layer cases under QEMU and must report no mismatch.
+//! runs 1 200 random layer cases, and 1 100 random 3×3 depthwise cases
+//! through the row driver (`kernels::depthwise`), under QEMU and must
+//! report no mismatch.
 //! On the Cortex-M4 build the DSP kernel is the one under test; on the
 //! Cortex-M0+ build (no DSP) the portable kernel meets the reference.
 //! Skips with a printed reason only when qemu-system-arm or a Rust thumb
@@ -41,6 +43,11 @@ fn kernel_match(target: &str, want_dsp: bool) {
         want_dsp as u8
     );
     assert_eq!(last, want, "{target}: {text}");
+    let dw = format!(
+        "depthwise3x3-match dsp={} cases=1100 mismatches=0",
+        want_dsp as u8
+    );
+    assert!(text.lines().any(|l| l == dw), "{target}: {text}");
     assert!(out.status.success(), "{target}: {text}");
 }
 

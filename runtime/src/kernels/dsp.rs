@@ -227,3 +227,126 @@ impl MicroKernel for Dsp {
         Ok(())
     }
 }
+
+// ---------------------------------------------------------------------------
+// Depthwise 3×3 row kernel (see `kernels::depthwise` for the row-pair layout).
+// ---------------------------------------------------------------------------
+
+use super::depthwise::{row_fits, RowKernel, RP};
+
+/// The DSP row kernel of `depthwise3x3`: two output pixels per pass, per
+/// slot row one dual multiply-accumulate per pixel for taps 0 and 1 and a
+/// 16×16 multiply-accumulate for tap 2; equals `depthwise::Portable` on
+/// every input (all sums wrap modulo 2^32).
+pub struct DwRow;
+
+impl RowKernel for DwRow {
+    fn row(plane: &mut [u32], w: &[u32; 5], n: usize, stride2: bool) -> Result<(), Error> {
+        // The facts the asm blocks rely on, checked here in safe code: `n`
+        // even and at most STRIP = RP − 2, and the plane PLANE = 4·RP words.
+        row_fits(plane, n)?;
+        let pairs = n / 2;
+        if pairs == 0 {
+            return Ok(());
+        }
+        let p = plane.as_mut_ptr();
+        let [w0, w1, w2, w3, w4] = *w;
+        // SAFETY: the loop runs `pairs` ≥ 1 times and advances `p` by 8
+        // bytes (2 words) per pass, so on pass q (0-based) it reads words
+        // r·RP + 2q + {0, 1, 2, 3} for r < 3 (at most 2·RP + n + 1 ≤
+        // 3·RP − 1 since n ≤ RP − 2) and writes words 3·RP + 2q + {0, 1}
+        // (at most 3·RP + n − 1 < 4·RP): all inside `plane` (≥ 4·RP words,
+        // checked by `row_fits`), which is borrowed mutably, so nothing else
+        // reads or writes it. `p` is word-aligned (a `u32` slice) as the
+        // double-word loads and stores need. No stack; the flags are
+        // clobbered (`subs`).
+        unsafe {
+            if stride2 {
+                asm!(
+                    "2:",
+                    "ldrd {t0}, {t1}, [{p}], #8",
+                    "smuad {a0}, {t0}, {w0}",
+                    "smuad {a1}, {t1}, {w0}",
+                    "smlabb {a0}, {t1}, {w3}, {a0}",
+                    "ldr {t0}, [{p}]",
+                    "smlabb {a1}, {t0}, {w3}, {a1}",
+                    "ldrd {t0}, {t1}, [{p}, #{r1}]",
+                    "smlad {a0}, {t0}, {w1}, {a0}",
+                    "smlad {a1}, {t1}, {w1}, {a1}",
+                    "smlabt {a0}, {t1}, {w3}, {a0}",
+                    "ldr {t0}, [{p}, #{r1e}]",
+                    "smlabt {a1}, {t0}, {w3}, {a1}",
+                    "ldrd {t0}, {t1}, [{p}, #{r2}]",
+                    "smlad {a0}, {t0}, {w2}, {a0}",
+                    "smlad {a1}, {t1}, {w2}, {a1}",
+                    "smlabb {a0}, {t1}, {w4}, {a0}",
+                    "ldr {t0}, [{p}, #{r2e}]",
+                    "smlabb {a1}, {t0}, {w4}, {a1}",
+                    "strd {a0}, {a1}, [{p}, #{acc}]",
+                    "subs {n}, {n}, #1",
+                    "bne 2b",
+                    p = inout(reg) p => _,
+                    n = inout(reg) pairs => _,
+                    w0 = in(reg) w0,
+                    w1 = in(reg) w1,
+                    w2 = in(reg) w2,
+                    w3 = in(reg) w3,
+                    w4 = in(reg) w4,
+                    a0 = out(reg) _,
+                    a1 = out(reg) _,
+                    t0 = out(reg) _,
+                    t1 = out(reg) _,
+                    r1 = const 4 * RP - 8,
+                    r1e = const 4 * RP,
+                    r2 = const 8 * RP - 8,
+                    r2e = const 8 * RP,
+                    acc = const 12 * RP - 8,
+                    options(nostack),
+                );
+            } else {
+                asm!(
+                    "2:",
+                    "ldrd {t0}, {t1}, [{p}], #8",
+                    "smuad {a0}, {t0}, {w0}",
+                    "smuad {a1}, {t1}, {w0}",
+                    "ldrd {t0}, {t1}, [{p}]",
+                    "smlabb {a0}, {t0}, {w3}, {a0}",
+                    "smlabb {a1}, {t1}, {w3}, {a1}",
+                    "ldrd {t0}, {t1}, [{p}, #{r1}]",
+                    "smlad {a0}, {t0}, {w1}, {a0}",
+                    "smlad {a1}, {t1}, {w1}, {a1}",
+                    "ldrd {t0}, {t1}, [{p}, #{r1e}]",
+                    "smlabt {a0}, {t0}, {w3}, {a0}",
+                    "smlabt {a1}, {t1}, {w3}, {a1}",
+                    "ldrd {t0}, {t1}, [{p}, #{r2}]",
+                    "smlad {a0}, {t0}, {w2}, {a0}",
+                    "smlad {a1}, {t1}, {w2}, {a1}",
+                    "ldrd {t0}, {t1}, [{p}, #{r2e}]",
+                    "smlabb {a0}, {t0}, {w4}, {a0}",
+                    "smlabb {a1}, {t1}, {w4}, {a1}",
+                    "strd {a0}, {a1}, [{p}, #{acc}]",
+                    "subs {n}, {n}, #1",
+                    "bne 2b",
+                    p = inout(reg) p => _,
+                    n = inout(reg) pairs => _,
+                    w0 = in(reg) w0,
+                    w1 = in(reg) w1,
+                    w2 = in(reg) w2,
+                    w3 = in(reg) w3,
+                    w4 = in(reg) w4,
+                    a0 = out(reg) _,
+                    a1 = out(reg) _,
+                    t0 = out(reg) _,
+                    t1 = out(reg) _,
+                    r1 = const 4 * RP - 8,
+                    r1e = const 4 * RP,
+                    r2 = const 8 * RP - 8,
+                    r2e = const 8 * RP,
+                    acc = const 12 * RP - 8,
+                    options(nostack),
+                );
+            }
+        }
+        Ok(())
+    }
+}

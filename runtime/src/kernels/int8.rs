@@ -4,7 +4,7 @@
 
 use super::{fault, Arith, Pool};
 use crate::error::Error;
-use crate::requant::{requantize, saturate_i32, Rq};
+use crate::requant::{saturate_i32, Rq};
 
 /// `v` clamped to the inclusive `[lo, hi]` and then to the int8 range (so a
 /// bad clamp can never wrap).
@@ -164,13 +164,34 @@ pub fn pixels(
     if c == 0 || params.len() != 3 * c || x.len() != y.len() || !x.len().is_multiple_of(c) {
         return Err(fault("pixels lengths do not match the channel count"));
     }
-    for (x_px, y_px) in x.chunks_exact(c).zip(y.chunks_exact_mut(c)) {
-        for ((&p, y), prm) in x_px.iter().zip(y_px.iter_mut()).zip(params.chunks_exact(3)) {
-            let acc = (p as i32 * 256).wrapping_sub(prm[0]);
-            *y = clamp_i8(
-                zp_out.saturating_add(requantize(acc, prm[1], prm[2])),
-                clamp,
-            );
+    // A u8 input has 256 values, so with more pixels than that each
+    // channel's map is worked out once into a table (256 requantizations
+    // instead of one per pixel) and then looked up: the same formula, so
+    // the same bytes. Smaller images map each pixel directly.
+    let use_table = x.len() / c > 256;
+    let mut table = [0i8; 256];
+    for (ci, prm) in params.chunks_exact(3).enumerate() {
+        let rq = Rq::new(prm[1], prm[2]);
+        let map = |v: u8| {
+            let acc = (v as i32 * 256).wrapping_sub(prm[0]);
+            clamp_i8(zp_out.saturating_add(rq.apply(acc)), clamp)
+        };
+        let pairs = x
+            .iter()
+            .skip(ci)
+            .step_by(c)
+            .zip(y.iter_mut().skip(ci).step_by(c));
+        if use_table {
+            for (v, t) in table.iter_mut().enumerate() {
+                *t = map(v as u8);
+            }
+            for (&p, y) in pairs {
+                *y = table[p as usize];
+            }
+        } else {
+            for (&p, y) in pairs {
+                *y = map(p);
+            }
         }
     }
     Ok(())
@@ -189,6 +210,19 @@ pub struct AddI8 {
 }
 
 impl AddI8 {
+    /// The shift when `apply` can take its 32-bit form: zero points in the
+    /// int8 range (so |q − zp| ≤ 255) and rshift in 10..=31. Then
+    /// |sum| ≤ 2·255·(2^31 − 1) + 2^30 < 2^40, so `sum >> rshift` fits in
+    /// 30 bits (no saturation) and equals bits rshift..rshift + 31 of the
+    /// sum, taken from its two 32-bit halves. The converter's shifts for
+    /// sums of tensors of similar scale are about 30.
+    #[inline]
+    pub fn split_shift(&self) -> Option<u32> {
+        let int8 = |z: i32| (-128..=127).contains(&z);
+        let s = self.rshift;
+        (int8(self.zp_a) && int8(self.zp_b) && (10..=31).contains(&s)).then_some(s as u32)
+    }
+
     /// `clamp(zp_out + floor(((qa−zpa)·ma + (qb−zpb)·mb + 2^(rshift−1)) / 2^rshift))`
     /// in i64 (ties toward +∞, as `requantize`). Exact for checked layers
     /// (|q − zp| ≤ 255, multipliers < 2^31, so each product < 2^39); the
@@ -212,8 +246,26 @@ pub fn add(p: &AddI8, a: &[i8], b: &[i8], y: &mut [i8]) -> Result<(), Error> {
     if a.len() != y.len() || b.len() != y.len() {
         return Err(fault("add inputs and output differ in length"));
     }
-    for ((y, &qa), &qb) in y.iter_mut().zip(a).zip(b) {
-        *y = p.apply(qa, qb);
+    let pairs = y.iter_mut().zip(a).zip(b);
+    match p.split_shift() {
+        Some(s) => {
+            let (zp_a, zp_b, ma, mb) = (p.zp_a, p.zp_b, p.ma as i64, p.mb as i64);
+            let round = 1i64 << (s - 1);
+            for ((y, &qa), &qb) in pairs {
+                let da = (qa as i32 - zp_a) as i64;
+                let db = (qb as i32 - zp_b) as i64;
+                let sum = da * ma + db * mb + round;
+                // Bits s..s + 31 of the sum: its quotient by 2^s (see
+                // `split_shift` for why it fits i32 and needs no saturation).
+                let r = ((sum as u32) >> s) | (((sum >> 32) as u32) << (32 - s));
+                *y = clamp_i8(p.zp_out.saturating_add(r as i32), p.clamp);
+            }
+        }
+        None => {
+            for ((y, &qa), &qb) in pairs {
+                *y = p.apply(qa, qb);
+            }
+        }
     }
     Ok(())
 }

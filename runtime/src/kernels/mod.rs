@@ -12,6 +12,7 @@
 //! and pooling work on up to 32 channels per pass, and the in-bounds taps of
 //! a pixel are found once per axis (`axis_range`) instead of per tap.
 
+pub mod depthwise;
 #[cfg(midge_dsp)]
 pub mod dsp;
 pub mod fp16;

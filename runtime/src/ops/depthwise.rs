@@ -1,5 +1,5 @@
 //! depthwise conv2d (channel multiplier 1): weights `[kh][kw][c]`, one bias and
-//! (int8) one requant pair per channel. Kernels: int8 `kernels::tile::depthwise_selected`,
+//! (int8) one requant pair per channel. Kernels: int8 `kernels::depthwise::depthwise_selected`,
 //! fp16 `kernels::depthwise_fast`; oracle `kernels::depthwise_ref`.
 
 use super::{
@@ -47,7 +47,7 @@ impl OpRules for Depthwise {
                 let (w, ar) = weighted::int8_arith(&io)?;
                 let (x, y) = (as_i8(io.xa)?, as_i8_mut(io.y)?);
                 if FAST {
-                    kernels::tile::depthwise_selected(&ar, x, xs, w, &win, y, ys)
+                    kernels::depthwise::depthwise_selected(&ar, x, xs, w, &win, y, ys)
                 } else {
                     kernels::depthwise_ref(&ar, x, xs, w, &win, y, ys)
                 }

@@ -14,7 +14,7 @@ use core::fmt::Write;
 use cortex_m_rt::entry;
 use cortex_m_semihosting::{debug, hio};
 use midge_runtime::kernels::int8::Int8Arith;
-use midge_runtime::kernels::{conv2d_ref, depthwise_ref, tile};
+use midge_runtime::kernels::{conv2d_ref, depthwise, depthwise_ref, tile};
 use midge_runtime::repr::{Shape, Window};
 use panic_halt as _;
 
@@ -195,6 +195,13 @@ fn main() -> ! {
         }
         cases += 1;
     }
+    let dw = depthwise3x3_cases(&mut rng, &mut out, &mut x, &mut w, &mut y_sel, &mut y_port, &mut y_ref);
+    let _ = writeln!(
+        out,
+        "depthwise3x3-match dsp={} cases={DW_CASES} mismatches={dw}",
+        tile::DSP as u8
+    );
+    mismatches += dw;
     let _ = writeln!(
         out,
         "kernel-match dsp={} cases={cases} mismatches={mismatches}",
@@ -205,4 +212,101 @@ fn main() -> ! {
     } else {
         debug::EXIT_FAILURE
     })
+}
+
+/// Random 3×3 depthwise cases for `depthwise::depthwise3x3` (the check asks
+/// for at least 1 000).
+const DW_CASES: u32 = 1100;
+
+/// `DW_CASES` random 3×3 depthwise layers through the row driver with this
+/// target's row kernel and with the portable one, every 3rd also through
+/// `depthwise_ref`: horizontal stride 1 and 2, vertical strides 1–3 and
+/// dilations 1–2, padding 0–3, widths beyond one strip, channel counts
+/// 1..=45 (most not multiples of 4), extreme values and zero points, biases
+/// near the i32 ends. Returns the number of mismatching cases.
+#[allow(clippy::too_many_arguments)]
+fn depthwise3x3_cases(
+    rng: &mut Rng,
+    out: &mut impl Write,
+    x: &mut [i8],
+    w: &mut [i8],
+    y_sel: &mut [i8],
+    y_port: &mut [i8],
+    y_ref: &mut [i8],
+) -> u32 {
+    let mut bias = [0i32; MAX_C];
+    let mut rq = [0i32; 2 * MAX_C];
+    let (mut cases, mut mismatches) = (0u32, 0u32);
+    while cases < DW_CASES {
+        let r = |rng: &mut Rng, lo, hi| rng.range(lo, hi) as u16;
+        let win = Window::new(
+            (3, 3),
+            (r(rng, 1, 3), r(rng, 1, 2)),
+            (r(rng, 1, 2), 1),
+            [0; 4].map(|_| r(rng, 0, 3)),
+        );
+        let wide = rng.next().is_multiple_of(8);
+        let strip = depthwise::STRIP as i32;
+        let (ih, iw, c) = if wide {
+            (r(rng, 1, 3), r(rng, strip - 4, 2 * strip + 7), r(rng, 1, 6))
+        } else {
+            (r(rng, 1, 9), r(rng, 1, 12), r(rng, 1, MAX_C as i32))
+        };
+        let Some((oh, ow)) = win.output_hw(ih, iw) else {
+            continue;
+        };
+        let (xs, ys) = (Shape::new(ih, iw, c), Shape::new(oh, ow, c));
+        let (n_x, n_w, n_y) = (xs.elems(), 9 * c as usize, ys.elems());
+        if n_x > x.len() || n_w > w.len() || n_y > y_sel.len() {
+            continue;
+        }
+        let extreme = rng.next().is_multiple_of(3);
+        for v in x.iter_mut().take(n_x) {
+            *v = rng.value(extreme);
+        }
+        for v in w.iter_mut().take(n_w) {
+            *v = rng.value(extreme);
+        }
+        let wrap = rng.next().is_multiple_of(7);
+        for b in bias.iter_mut() {
+            *b = match (wrap, rng.next() & 1) {
+                (true, 0) => i32::MAX - 1000,
+                (true, _) => i32::MIN + 1000,
+                _ => rng.range(-20000, 20000),
+            };
+        }
+        for p in rq.chunks_exact_mut(2) {
+            p[0] = (1 << 30) + (rng.next() >> 2) as i32;
+            p[1] = rng.range(28, 44);
+        }
+        let lo = rng.range(-128, 0);
+        let a = Int8Arith {
+            zp_in: rng.value(extreme),
+            zp_out: rng.range(-128, 127),
+            bias: &bias[..c as usize],
+            requant: &rq[..2 * c as usize],
+            clamp: [lo, rng.range(lo, 127)],
+        };
+        let (x, w) = (&x[..n_x], &w[..n_w]);
+        let sel = depthwise::depthwise3x3::<depthwise::Selected>(
+            &a, x, xs, w, &win, &mut y_sel[..n_y], ys,
+        );
+        let port = depthwise::depthwise3x3::<depthwise::Portable>(
+            &a, x, xs, w, &win, &mut y_port[..n_y], ys,
+        );
+        let mut same = sel.is_ok() && port.is_ok() && y_sel[..n_y] == y_port[..n_y];
+        if cases.is_multiple_of(3) {
+            let oracle = depthwise_ref(&a, x, xs, w, &win, &mut y_ref[..n_y], ys);
+            same &= oracle.is_ok() && y_ref[..n_y] == y_port[..n_y];
+        }
+        if !same {
+            mismatches += 1;
+            let _ = writeln!(
+                out,
+                "mismatch depthwise3x3 case {cases}: {win:?} in {ih}x{iw}x{c}"
+            );
+        }
+        cases += 1;
+    }
+    mismatches
 }
