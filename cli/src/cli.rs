@@ -212,6 +212,10 @@ pub struct CompareArgs {
     /// emulated core of the description's target.
     #[arg(long, requires = "mixed_description")]
     pub no_emulate: bool,
+    /// Also write the report (and the sensitivity charts) as a
+    /// self-contained HTML page.
+    #[arg(long, value_name = "FILE")]
+    pub html: Option<PathBuf>,
 }
 
 #[derive(clap::Args, Debug)]
@@ -502,13 +506,29 @@ fn cmd_compare(a: &CompareArgs) -> Result<i32> {
     if a.sensitivity || a.mixed_description.is_some() {
         return compare_sensitivity(a, &opts);
     }
-    let report = compare::compare(&a.description, &opts)?;
+    if let Some(html) = &a.html {
+        output::check_destinations(&[html], &[&a.description])?;
+    }
+    let (conv, dir) = compare::prepare(&a.description, &opts)?;
+    let report = compare::evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)?;
+    write_html(a, &conv, &report)?;
     if a.json {
         println!("{}", json_text(&serde_json::json!(report))?);
     } else {
         print!("{}", report.to_text());
     }
     Ok(drop_status(report.drop_pp, a.max_drop))
+}
+
+/// `compare --html`: the page, written all or nothing.
+fn write_html(
+    a: &CompareArgs,
+    conv: &quantize::Conversion,
+    report: &compare::Report,
+) -> Result<()> {
+    let Some(path) = &a.html else { return Ok(()) };
+    let page = midge_bench::report::accuracy_html(report, None, None);
+    output::write_outputs(&[(path, page.as_bytes())], &conv.inputs(&a.description))
 }
 
 fn json_text(value: &serde_json::Value) -> Result<String> {
@@ -520,12 +540,12 @@ fn json_text(value: &serde_json::Value) -> Result<String> {
 /// per-layer table and the mixed-precision search on one conversion.
 fn compare_sensitivity(a: &CompareArgs, opts: &CompareOptions) -> Result<i32> {
     use midge_convert::{mixed, sensitivity};
-    if let Some(dest) = &a.mixed_description {
-        if let Some(d) = a.max_drop {
-            mixed::check_bound(d)?;
-        }
-        output::check_destinations(&[dest], &[&a.description])?;
+    if let (Some(_), Some(d)) = (&a.mixed_description, a.max_drop) {
+        mixed::check_bound(d)?;
     }
+    let mut outs: Vec<&Path> = a.mixed_description.iter().map(|p| p.as_path()).collect();
+    outs.extend(a.html.as_deref());
+    output::check_destinations(&outs, &[&a.description])?;
     let (conv, dir) = compare::prepare(&a.description, opts)?;
     let which = sensitivity::select(&conv, if a.sensitivity { &a.layers } else { &[] })?;
     let report = compare::evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)?;
@@ -542,11 +562,20 @@ fn compare_sensitivity(a: &CompareArgs, opts: &CompareOptions) -> Result<i32> {
         }
         _ => None,
     };
+    // The description (when the bound is met) and the page, all or nothing.
+    let mut files: Vec<(&Path, Vec<u8>)> = Vec::new();
     if let (Some(dest), Some(p)) = (&a.mixed_description, &plan) {
         if p.met {
-            mixed::write_description(&conv, &a.description, dest, p)?;
+            let text = mixed::description_text(&conv, &a.description, dest, &p.precisions)?;
+            files.push((dest, text.into_bytes()));
         }
     }
+    if let Some(path) = &a.html {
+        let page = midge_bench::report::accuracy_html(&report, Some(&sens), plan.as_ref());
+        files.push((path, page.into_bytes()));
+    }
+    let files: Vec<(&Path, &[u8])> = files.iter().map(|(p, b)| (*p, b.as_slice())).collect();
+    output::write_outputs(&files, &conv.inputs(&a.description))?;
     if a.json {
         let value = serde_json::json!({
             "report": report,

@@ -1,7 +1,8 @@
 //! `midge compare` accuracy tools end to end on the bundled int8 hard case
 //! (models/caps/hard.toml, constructed on purpose; 12 validation images
 //! per class to stay fast): --equalize, --sensitivity, and the automatic
-//! mixed precision of --max-drop with --mixed-description, whose written
+//! mixed precision of --max-drop with --mixed-description (and the --html
+//! page), whose written
 //! description is compared again; refusals are one line, exit 2 or 3, and
 //! nothing written.
 
@@ -113,6 +114,7 @@ fn mixed_description_meets_the_bound_when_compared_again() {
     let dir = scratch("cli-acc-mix");
     let val = few_images(&dir, 12);
     let dest = dir.join("out").join("hard-mixed.toml");
+    let page = dir.join("out").join("hard.html");
     std::fs::create_dir_all(dest.parent().unwrap()).unwrap();
     let v = json(&midge(&[
         "compare",
@@ -125,7 +127,19 @@ fn mixed_description_meets_the_bound_when_compared_again() {
         p(&dest),
         "--no-emulate",
         "--json",
+        "--html",
+        p(&page),
     ]));
+    let html = std::fs::read_to_string(&page).unwrap();
+    for w in [
+        "<svg",
+        "only this layer int8",
+        "only this layer fp16",
+        "b0_pw",
+        "Mixed precision",
+    ] {
+        assert!(html.contains(w), "{w:?} not in the HTML page");
+    }
     let plain_drop = v["report"]["drop_pp"].as_f64().unwrap();
     assert!(
         plain_drop > 0.5,

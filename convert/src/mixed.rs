@@ -217,13 +217,6 @@ impl Plan {
     }
 }
 
-/// Write the description of `plan` (see [`description_text`]) to `dest`
-/// through `output::write_outputs` (all or nothing; never over an input).
-pub fn write_description(conv: &Conversion, source: &Path, dest: &Path, plan: &Plan) -> Result<()> {
-    let text = description_text(conv, source, dest, &plan.precisions)?;
-    crate::output::write_outputs(&[(dest, text.as_bytes())], &conv.inputs(source))
-}
-
 /// The text of a description equal to `conv`'s (read from `source`, its
 /// file) with every folded layer's `precision` set as `precisions` says,
 /// to be written to `dest`. Relative paths are kept when `dest` is in the
