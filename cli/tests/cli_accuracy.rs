@@ -202,6 +202,25 @@ fn refusals_are_one_line_and_write_nothing() {
         "b0_pw,nosuch",
     ]);
     one_line(&o, 2, &["--layers", "nosuch", "b0_pw"]);
+    // A known subset gives exactly those rows.
+    let v = json(&midge(&[
+        "compare",
+        p(&hard()),
+        "--images",
+        p(&val),
+        "--sensitivity",
+        "--layers",
+        "fc,b0_pw",
+        "--json",
+    ]));
+    let mut rows: Vec<&str> = v["sensitivity"]["rows"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|r| r["layer"].as_str().unwrap())
+        .collect();
+    rows.sort();
+    assert_eq!(rows, ["b0_pw", "fc"]);
     // A bound even all-fp16 misses: exit 3, no description.
     let dest = dir.join("never.toml");
     let o = midge(&[
