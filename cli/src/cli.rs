@@ -513,7 +513,9 @@ fn cmd_compare(a: &CompareArgs) -> Result<i32> {
     let report = compare::evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)?;
     write_html(a, &conv, &report)?;
     if a.json {
-        println!("{}", json_text(&serde_json::json!(report))?);
+        let text = serde_json::to_string_pretty(&report)
+            .map_err(|e| Error::new("report", format!("cannot write JSON: {e}")))?;
+        println!("{text}");
     } else {
         print!("{}", report.to_text());
     }
