@@ -25,6 +25,10 @@ pub const CANDIDATES: [RangeMethod; 4] = [
     RangeMethod::Mse,
 ];
 
+/// A tensor takes another method only when that raises the held-apart
+/// SQNR by more than this (smaller gains on a few images are noise).
+pub const PER_TENSOR_MARGIN_DB: f64 = 0.5;
+
 /// Every `HOLD`-th calibration image (indices ≡ HOLD − 1) is held apart.
 pub const HOLD: usize = 4;
 
@@ -146,7 +150,7 @@ pub fn choose(
             let mut trial = ranges.clone();
             trial[t] = r[t];
             let db = score(graph, &trial, &held_px, &float)?;
-            if better(db, best_db) {
+            if better(db.map(|v| v - PER_TENSOR_MARGIN_DB), best_db) {
                 best_db = db;
                 pick = Some((k, r[t]));
             }
