@@ -260,3 +260,48 @@ fn refusals_are_one_line_and_write_nothing() {
     one_line(&o, 2, &["--max-drop", "500"]);
     assert!(!dest.exists());
 }
+
+#[test]
+fn measured_calibration_reports_its_choice() {
+    let dir = scratch("cli-acc-cal");
+    let val = few_images(&dir, 3);
+    let v = json(&midge(&[
+        "compare",
+        p(&hard()),
+        "--images",
+        p(&val),
+        "--calibration-method",
+        "measured",
+        "--json",
+    ]));
+    let c = &v["calibration_choice"];
+    // 100 calibration images (models/caps/README.md), one in four held apart.
+    assert_eq!(c["held_images"], 25, "{c}");
+    assert_eq!(c["fitted_images"], 75, "{c}");
+    let per = c["per_method_db"].as_array().unwrap();
+    assert_eq!(per.len(), 4, "{c}");
+    let names: Vec<&str> = per.iter().map(|m| m[0].as_str().unwrap()).collect();
+    assert!(names.contains(&c["model_method"].as_str().unwrap()), "{c}");
+    // The kept choice scores at least as well as every whole-model method
+    // on the held-apart images (it starts from the best and only accepts gains).
+    let kept = c["final_db"].as_f64().unwrap();
+    for m in per {
+        assert!(kept >= m[1].as_f64().unwrap(), "{c}");
+    }
+    let out = dir.join("h.midge");
+    let o = midge(&[
+        "quantize",
+        p(&hard()),
+        "-o",
+        p(&out),
+        "--calibration-method",
+        "measured",
+    ]);
+    assert!(o.status.success(), "{}", text(&o.stderr));
+    let s = text(&o.stdout);
+    assert!(
+        s.contains("range method by measurement") && s.contains("kept:"),
+        "{s}"
+    );
+    assert!(out.exists());
+}
