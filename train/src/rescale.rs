@@ -229,6 +229,82 @@ pub fn float_gap(a: &Path, b: &Path, set: &GreySet) -> Result<f64> {
 mod tests {
     use super::*;
 
+    const DESC: &str = r#"
+name = "t"
+labels = ["a", "b"]
+[input]
+height = 4
+width = 4
+channels = 2
+[[layer]]
+name = "dw"
+op = "depthwise"
+kernel = 3
+padding = 1
+bias = false
+[[layer]]
+name = "bn"
+op = "batchnorm"
+[[layer]]
+op = "relu"
+[[layer]]
+name = "pw"
+op = "conv2d"
+out_channels = 3
+kernel = 1
+bias = false
+[[layer]]
+name = "pw2"
+op = "conv2d"
+out_channels = 2
+kernel = 1
+bias = false
+[[layer]]
+op = "global_avgpool"
+"#;
+
+    fn tensor(v: &[f32], shape: &[usize]) -> Tensor {
+        Tensor::from_vec(v.to_vec(), shape, &Device::Cpu).unwrap()
+    }
+
+    #[test]
+    fn batchnorm_times_s_and_consumer_input_divided_by_s() {
+        let desc = Description::from_toml_str(DESC, Path::new("t.toml")).unwrap();
+        let mut w = HashMap::new();
+        w.insert("bn.weight".to_string(), tensor(&[1.0, 2.0], &[2]));
+        w.insert("bn.bias".to_string(), tensor(&[0.5, -0.5], &[2]));
+        w.insert(
+            "pw.weight".to_string(),
+            tensor(&[1.0, 1.0, 2.0, 2.0, 3.0, 3.0], &[3, 2, 1, 1]),
+        );
+        // k = 2, 2 decades: s = [0.1, 10].
+        let done = rescale(&desc, &mut w, &[("bn".into(), "pw".into())], 2, 2.0).unwrap();
+        assert_eq!(done.len(), 1);
+        let v = |k: &str| w[k].flatten_all().unwrap().to_vec1::<f32>().unwrap();
+        let close = |a: &[f32], b: &[f32]| a.iter().zip(b).all(|(x, y)| (x - y).abs() < 1e-5);
+        assert!(close(&v("bn.weight"), &[0.1, 20.0]), "{:?}", v("bn.weight"));
+        assert!(close(&v("bn.bias"), &[0.05, -5.0]), "{:?}", v("bn.bias"));
+        assert!(
+            close(&v("pw.weight"), &[10.0, 0.1, 20.0, 0.2, 30.0, 0.3]),
+            "{:?}",
+            v("pw.weight")
+        );
+    }
+
+    #[test]
+    fn a_conv_in_between_is_refused() {
+        let desc = Description::from_toml_str(DESC, Path::new("t.toml")).unwrap();
+        let mut w = HashMap::new();
+        let e = rescale(&desc, &mut w, &[("bn".into(), "pw2".into())], 2, 2.0)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("pw") && e.contains("lies between"), "{e}");
+        let e = rescale(&desc, &mut w, &[("bn".into(), "nosuch".into())], 2, 2.0)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("no layer named nosuch"), "{e}");
+    }
+
     #[test]
     fn scales_span_the_decades() {
         // k = 5, 2 decades: 0.1, 10^−0.5, 1, 10^0.5, 10, then again.
