@@ -551,7 +551,9 @@ fn compare_sensitivity(a: &CompareArgs, opts: &CompareOptions) -> Result<i32> {
     let (conv, dir) = compare::prepare(&a.description, opts)?;
     let which = sensitivity::select(&conv, if a.sensitivity { &a.layers } else { &[] })?;
     let report = compare::evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)?;
-    let sens = sensitivity::measure(&conv, &dir, &which)?;
+    // Only the search asked for: no table when no mix can meet the bound.
+    let skip = if a.sensitivity { None } else { a.max_drop };
+    let sens = sensitivity::measure(&conv, &dir, &which, skip)?;
     let plan = match (&a.mixed_description, a.max_drop) {
         (Some(_), Some(bound)) => {
             let target = match (&conv.desc.target, a.no_emulate) {

@@ -82,12 +82,22 @@ pub fn select(conv: &Conversion, only: &[String]) -> Result<Vec<usize>> {
 
 /// Measure the folded layers `which` (node indices, see [`select`]) of
 /// `conv` on the labelled folder `dir` (two model evaluations per layer,
-/// plus all-int8 and all-fp16).
-pub fn measure(conv: &Conversion, dir: &Path, which: &[usize]) -> Result<Sensitivity> {
+/// plus all-int8 and all-fp16). With `skip_rows_above`, no layer is
+/// measured when all-fp16 already drops more than that (no mix can meet it).
+pub fn measure(
+    conv: &Conversion,
+    dir: &Path,
+    which: &[usize],
+    skip_rows_above: Option<f64>,
+) -> Result<Sensitivity> {
     let n = conv.graph.nodes.len();
     let all = |p: Precision| vec![p; n];
     let int8 = evaluate_mix(conv, &all(Precision::Int8), dir)?;
     let fp16 = evaluate_mix(conv, &all(Precision::Fp16), dir)?;
+    let which = match skip_rows_above {
+        Some(bound) if fp16.drop_pp > bound => &[],
+        _ => which,
+    };
     let mut rows = Vec::with_capacity(which.len());
     for &k in which {
         let node = &conv.graph.nodes[k];
