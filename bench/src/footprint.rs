@@ -2,7 +2,10 @@
 //! runtime's own code measured from firmware ELFs, RAM by workspace, input,
 //! stack and static data, and the per-layer table with the memory timeline.
 
-use midge_runtime::{Bias, Model, OpSet, Params, Weights};
+use midge_runtime::{
+    repr::{Bias, Params, Weights},
+    Model, OpSet,
+};
 use serde::Serialize;
 
 use crate::firmware;

@@ -2,22 +2,20 @@
 //! calls for every subcommand (`quantize`, `compare`, `classify`, `show`,
 //! `budget`, `assess`, `draft`, and `report`/`sweep` in `bench.rs`).
 
-use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 use clap::{Parser, Subcommand, ValueEnum};
 use midge_runtime::embed::AlignedBytes;
-use midge_runtime::{ElemType, Model};
+use midge_runtime::Model;
 
 use midge_convert::c_source;
 use midge_convert::calibrate::RangeMethod;
-use midge_convert::compare::{self, elem_name, op_name, CompareOptions};
+use midge_convert::compare::{self, CompareOptions};
 use midge_convert::error::{escape, escape_path, Error, Result};
 use midge_convert::files::{parse_model, read_model};
 use midge_convert::firmware_module;
 use midge_convert::graph::Precision;
 use midge_convert::output;
-use midge_convert::plan;
 use midge_convert::quantize::{self, QuantizeOptions};
 
 /// Exit status for bad input (missing file, parse error, ...).
@@ -269,6 +267,9 @@ pub struct ClassifyArgs {
 pub struct ShowArgs {
     /// Model file (.midge).
     pub model: PathBuf,
+    /// Print JSON instead of the tables.
+    #[arg(long)]
+    pub json: bool,
 }
 
 /// Run a parsed command line; `Ok(status)` with what to print already
@@ -628,139 +629,16 @@ fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {
     Ok(0)
 }
 
-/// The text `midge show` prints.
-pub fn show_text(model: &Model<'_>) -> String {
-    let mut s = String::new();
-    let labels: Vec<String> = model.labels().map(|l| escape(l).into_owned()).collect();
-    let _ = writeln!(
-        s,
-        "model {} — {} bytes, {} layers, {} tensors",
-        escape(model.name()),
-        model.bytes().len(),
-        model.layer_count(),
-        model.tensor_count()
-    );
-    let _ = writeln!(s, "labels: {}", labels.join(", "));
-    let sec = model.sections();
-    let _ = writeln!(
-        s,
-        "file: header {} B, tensor table {} B, layer table {} B, weights {} B, biases {} B, params {} B, strings {} B, padding {} B",
-        sec.header, sec.tensor_table, sec.layer_table, sec.weights, sec.biases, sec.params, sec.strings, sec.padding
-    );
-    let _ = writeln!(s);
-    let _ = writeln!(
-        s,
-        "  {:>3}  {:<15} {:<6} {:>9}  {:>4} {:<14} {:<5} {:>11} {:>5} {:>8} {:>7} {:>10}",
-        "#",
-        "op",
-        "act",
-        "inputs",
-        "out",
-        "shape HxWxC",
-        "type",
-        "scale",
-        "zp",
-        "offset",
-        "bytes",
-        "MACs"
-    );
-    let mut sizes = vec![0usize; model.tensor_count()];
-    let mut steps = Vec::new();
-    for i in 0..model.layer_count() {
-        let Some(l) = model.layer(i) else { continue };
-        let h = l.header;
-        let ins: Vec<usize> = h.inputs[..h.op.arity()]
-            .iter()
-            .map(|&t| t as usize)
-            .collect();
-        steps.push((ins.clone(), h.output as usize));
-        let Some(t) = model.tensor(h.output as usize) else {
-            continue;
-        };
-        sizes[h.output as usize] = t.byte_len();
-        let act = match h.act {
-            midge_runtime::Activation::None => "-",
-            midge_runtime::Activation::Relu => "relu",
-            midge_runtime::Activation::Relu6 => "relu6",
-        };
-        let ins_text: Vec<String> = ins.iter().map(|t| format!("t{t}")).collect();
-        let quant = if t.elem == ElemType::I8 {
-            (
-                format!("{:.5e}", t.quant.scale),
-                t.quant.zero_point.to_string(),
-            )
-        } else {
-            ("-".into(), "-".into())
-        };
-        let win = if h.op.has_window() {
-            format!(" k{}x{} s{}", h.window.kh, h.window.kw, h.window.stride_h)
-        } else {
-            String::new()
-        };
-        let _ = writeln!(
-            s,
-            "  {:>3}  {:<15} {:<6} {:>9}  {:>4} {:<14} {:<5} {:>11} {:>5} {:>8} {:>7} {:>10}{}",
-            i,
-            op_name(h.op),
-            act,
-            ins_text.join(","),
-            format!("t{}", h.output),
-            format!("{}x{}x{}", t.shape.h, t.shape.w, t.shape.c),
-            elem_name(t.elem),
-            quant.0,
-            quant.1,
-            t.offset,
-            t.byte_len(),
-            model.layer_macs(i),
-            win
-        );
-    }
-    let inp = model.input();
-    let out = model.output();
-    let _ = writeln!(s);
-    let _ = writeln!(
-        s,
-        "input t0: {}x{}x{} {} (scale {}, passed by the caller)",
-        inp.shape.h,
-        inp.shape.w,
-        inp.shape.c,
-        elem_name(inp.elem),
-        inp.quant.scale
-    );
-    let _ = writeln!(
-        s,
-        "output t{}: {}x{}x{} {}",
-        model.output_id(),
-        out.shape.h,
-        out.shape.w,
-        out.shape.c,
-        elem_name(out.elem)
-    );
-    let lt = plan::lifetimes(&sizes, &steps, model.output_id(), &[0]);
-    let _ = writeln!(
-        s,
-        "memory plan: workspace {} bytes, lower bound {} bytes (max over layers of the live tensor bytes)",
-        model.workspace_len(),
-        plan::lower_bound(&lt)
-    );
-    for (t, l) in lt.iter().enumerate() {
-        if let (Some(l), Some(rec)) = (l, model.tensor(t)) {
-            let _ = writeln!(
-                s,
-                "  t{t:<3} [{:>7}, {:>7})  live layers {}..={}",
-                rec.offset,
-                rec.offset as usize + rec.byte_len(),
-                l.first,
-                l.last
-            );
-        }
-    }
-    s
-}
-
 fn cmd_show(a: &ShowArgs) -> Result<i32> {
     let bytes = read_model(&a.model)?;
     let model = parse_model(&bytes, &a.model)?;
-    print!("{}", show_text(&model));
+    let summary = midge_convert::show::Summary::of(&model);
+    if a.json {
+        let text = serde_json::to_string_pretty(&summary)
+            .map_err(|e| Error::new("show", format!("cannot write JSON: {e}")))?;
+        println!("{text}");
+    } else {
+        print!("{}", summary.to_text());
+    }
     Ok(0)
 }

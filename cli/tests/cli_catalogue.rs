@@ -519,7 +519,10 @@ fn budget_with(d: &Path, key_line: &str) -> Vec<String> {
 /// 1×1 max pool of stride 65535 down to one value.
 fn huge_workspace_model() -> Vec<u8> {
     use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
-    use midge_runtime::{Activation, ElemType, LayerHeader, Op, Padding, Quant, Shape, Window};
+    use midge_runtime::{
+        repr::{Activation, LayerHeader, Padding, Window},
+        ElemType, Op, Quant, Shape,
+    };
     let t = |h, w, elem, offset| midge_runtime::TensorRecord {
         shape: Shape::new(h, w, 1),
         elem,

@@ -68,6 +68,45 @@ fn quantize_show_classify() {
         assert!(s.contains(word), "{word} missing in\n{s}");
     }
 
+    // The same summary as JSON, checked against the file and the runtime.
+    let o = midge(&["show", p(&out), "--json"]);
+    assert!(o.status.success(), "{}", text(&o.stderr));
+    let j: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    let bytes = std::fs::read(&out).unwrap();
+    let aligned = midge_runtime::embed::AlignedBytes::from_slice(&bytes);
+    let model = midge_runtime::Model::parse(&aligned).unwrap();
+    assert_eq!(j["file_bytes"], bytes.len());
+    assert_eq!(j["layers"].as_array().unwrap().len(), model.layer_count());
+    assert_eq!(j["workspace_len"], model.workspace_len());
+    let ops: Vec<&str> = j["layers"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|l| l["op"].as_str().unwrap())
+        .collect();
+    assert_eq!(ops.first(), Some(&"pixels"));
+    assert!(
+        ops.contains(&"depthwise") && ops.contains(&"add"),
+        "{ops:?}"
+    );
+    let sec = &j["sections"];
+    let sum: u64 = [
+        "header",
+        "tensor_table",
+        "layer_table",
+        "weights",
+        "biases",
+        "params",
+        "strings",
+        "padding",
+    ]
+    .iter()
+    .map(|k| sec[k].as_u64().unwrap())
+    .sum();
+    assert_eq!(sum, bytes.len() as u64, "sections add up to the file");
+    let lb = j["lower_bound"].as_u64().unwrap();
+    assert!(lb > 0 && lb <= model.workspace_len() as u64);
+
     let img = dir.join("val").join("dot").join("v0.png");
     let o = midge(&["classify", p(&out), p(&img)]);
     assert!(o.status.success(), "{}", text(&o.stderr));

@@ -15,7 +15,7 @@ use serde::Serialize;
 use crate::float_ref;
 use crate::graph::{FloatGraph, FloatOp, Precision};
 use crate::quantize::quantize_weights;
-use midge_runtime::Activation;
+use midge_runtime::repr::Activation;
 
 /// One corrected layer, for the report.
 #[derive(Clone, Debug, PartialEq, Serialize)]

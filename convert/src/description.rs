@@ -6,7 +6,10 @@ use std::collections::{BTreeSet, HashMap};
 use std::fmt;
 use std::path::{Path, PathBuf};
 
-use midge_runtime::{Padding, Shape, Window};
+use midge_runtime::{
+    repr::{Padding, Window},
+    Shape,
+};
 use serde::de::{self, Deserializer, SeqAccess, Visitor};
 use serde::ser::{SerializeSeq, Serializer};
 use serde::{Deserialize, Serialize};

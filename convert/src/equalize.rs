@@ -14,7 +14,7 @@
 use serde::Serialize;
 
 use crate::graph::{FloatGraph, FloatOp};
-use midge_runtime::Activation;
+use midge_runtime::repr::Activation;
 
 /// One equalized pair, for the report.
 #[derive(Clone, Debug, PartialEq, Serialize)]

@@ -4,7 +4,10 @@
 
 use std::path::Path;
 
-use midge_runtime::{Activation, Shape, Window};
+use midge_runtime::{
+    repr::{Activation, Window},
+    Shape,
+};
 
 use crate::description::{Description, LayerInfo, LayerKind};
 use crate::weights::TensorMap;

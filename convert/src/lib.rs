@@ -25,6 +25,7 @@ pub mod parallel;
 pub mod plan;
 pub mod quantize;
 pub mod sensitivity;
+pub mod show;
 pub mod synth;
 pub mod weights;
 

@@ -3,8 +3,8 @@
 //! size with best-fit offsets, then a bounded search for a placement inside
 //! the lower bound when greedy misses it; also reports that lower bound.
 
-/// Offsets inside the workspace are multiples of this many bytes.
-pub const ALIGN: usize = 8;
+/// Offsets inside the workspace are multiples of the layout's alignment.
+pub use midge_runtime::format::ALIGN;
 
 /// One tensor to place: its byte length and the inclusive range of layer
 /// steps during which it must keep its bytes.
@@ -46,7 +46,7 @@ pub struct Plan {
 /// The (inputs, output) tensor ids of each layer, the step list `lifetimes`
 /// and `plan_layers` take, read from runtime layer headers.
 pub fn steps<'a>(
-    headers: impl IntoIterator<Item = &'a midge_runtime::LayerHeader>,
+    headers: impl IntoIterator<Item = &'a midge_runtime::repr::LayerHeader>,
 ) -> Vec<(Vec<usize>, usize)> {
     headers
         .into_iter()

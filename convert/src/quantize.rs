@@ -36,7 +36,8 @@ use midge_runtime::format::{scale_in_range, MAX_LAYERS, SCALE_MAX, SCALE_MIN};
 use midge_runtime::requant::requant_from_real;
 use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
 use midge_runtime::{
-    Activation, ElemType, LayerHeader, Op, Quant, Requant, Shape, TensorRecord, Window,
+    repr::{Activation, LayerHeader, Requant, Window},
+    ElemType, Op, Quant, Shape, TensorRecord,
 };
 use serde::Serialize;
 

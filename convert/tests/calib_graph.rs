@@ -8,7 +8,7 @@ use midge_convert::calibrate::RangeMethod;
 use midge_convert::float_ref;
 use midge_convert::images;
 use midge_convert::quantize::{calibrate_graph, image_spec, load_with_precision};
-use midge_runtime::Activation;
+use midge_runtime::repr::Activation;
 use quant_support::*;
 
 #[test]

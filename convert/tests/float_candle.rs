@@ -651,7 +651,7 @@ out_features = 2
     let (g, ours) = check_against_candle(&d, &pt, &px);
     let folded = g.fold().unwrap();
     assert_eq!(folded.nodes.len(), 3);
-    assert_eq!(folded.nodes[0].act, midge_runtime::Activation::Relu);
+    assert_eq!(folded.nodes[0].act, midge_runtime::repr::Activation::Relu);
     let f = float_ref::run(&folded, &px);
     assert_eq!(f.last(), ours.last(), "max commutes with relu exactly");
 }

@@ -12,8 +12,14 @@ pub struct Aligned<T: ?Sized> {
 /// Embeds the file at `$path` (as `include_bytes!` resolves it) at an
 /// 8-byte aligned address and evaluates to its `&'static [u8]`.
 ///
-/// ```ignore
-/// static MODEL: &[u8] = midge_runtime::embed_model!("../models/caps.midge");
+/// ```
+/// // Usually a path relative to the source file: embed_model!("../model.midge").
+/// static MODEL: &[u8] = midge_runtime::embed_model!(concat!(
+///     env!("CARGO_MANIFEST_DIR"),
+///     "/fixtures/digits.midge"
+/// ));
+/// assert_eq!(MODEL.as_ptr() as usize % 8, 0);
+/// assert!(midge_runtime::Model::parse(MODEL).is_ok());
 /// ```
 #[macro_export]
 macro_rules! embed_model {

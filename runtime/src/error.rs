@@ -5,6 +5,17 @@ use core::fmt;
 
 use crate::repr::{ElemType, Op};
 
+/// Printed (`Display`) as one line naming the part of the file and what was
+/// expected; `Copy`, no allocation, so firmware can return or log it.
+///
+/// ```
+/// use midge_runtime::{embed::Aligned, Error, Model};
+///
+/// let bytes = Aligned { bytes: *b"not a model file, just some text" };
+/// let err = Model::parse(&bytes.bytes).unwrap_err();
+/// assert_eq!(err, Error::BadMagic);
+/// assert!(!err.to_string().contains('\n'));
+/// ```
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Error {
     /// The buffer ends before a structure does.

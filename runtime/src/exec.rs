@@ -50,6 +50,22 @@ fn f16_key(v: f16) -> u16 {
 /// value and that raw value; the lowest index wins a tie, fp16 NaNs are
 /// skipped. `None` for an empty, u8, all-NaN or wrongly sized output.
 /// Integer comparisons only, so it runs on cores without an FPU.
+///
+/// ```
+/// use midge_runtime::{top1, ElemType, Logit, Quant, Shape, TensorRecord};
+///
+/// let out = TensorRecord {
+///     shape: Shape::new(1, 1, 4),
+///     elem: ElemType::I8,
+///     quant: Quant { scale: 0.1, zero_point: 0 },
+///     offset: 0,
+/// };
+/// let logits = [-3i8, 90, 90, 7];
+/// let bytes = logits.map(|v| v as u8);
+/// // The lowest index wins a tie.
+/// assert_eq!(top1(&out, &bytes), Some((1, Logit::I8(90))));
+/// assert_eq!(top1(&out, &bytes[..3]), None); // wrong length
+/// ```
 pub fn top1(out: &TensorRecord, bytes: &[u8]) -> Option<(usize, Logit)> {
     if out.byte_len() != bytes.len() {
         return None;

@@ -10,7 +10,9 @@ use crate::repr::{Activation, ElemType, LayerHeader, Op, Quant, Shape, TensorRec
 pub const MAGIC: [u8; 8] = *b"MIDGE\0\r\n";
 /// The format version this runtime reads and writes.
 pub const VERSION: u16 = 1;
-/// Every section and every blob starts at a multiple of this, counted from file start.
+/// Every section and every blob starts at a multiple of this, counted from
+/// file start; every tensor's workspace offset, the workspace length's
+/// rounding and the workspace buffer's address are multiples of it too.
 pub const ALIGN: usize = 8;
 
 /// Most layers a model may have (FORMAT.md, "Limits"): 2^15, far beyond
@@ -629,11 +631,6 @@ pub struct LayerRecord {
     pub params: Span,
 }
 
-/// Whether `op` reads a sliding window (conv2d, depthwise, max/avg pool).
-pub const fn has_window(op: Op) -> bool {
-    op.has_window()
-}
-
 impl LayerRecord {
     /// Reads one record and checks each field on its own: op and activation
     /// values, reserved words zero, second input 0 unless the op is `Add`,
@@ -655,7 +652,7 @@ impl LayerRecord {
             ));
         }
         let window = view.window();
-        if !has_window(op) && window != Window::default() {
+        if !op.has_window() && window != Window::default() {
             return Err(Error::Layer {
                 index,
                 problem: "window fields must be zero for an op without a window",

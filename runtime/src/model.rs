@@ -13,7 +13,8 @@ use crate::ops;
 use crate::opset::{OpSet, ALL_OPS};
 use crate::repr::{Bias, LayerRef, Op, Params, TensorRecord, Weights};
 
-/// Per-layer hooks called by `Model::run_observed` (tracing, timing, dumps).
+/// Per-layer hooks called by `Model::run_observed` (tracing, timing, dumps);
+/// both default to doing nothing. See `Model::run_observed` for an example.
 pub trait Observer {
     /// Called before layer `index` runs.
     fn before_layer(&mut self, index: usize) {
@@ -101,6 +102,24 @@ impl<'a> Model<'a> {
     /// this format version. Bytes past the header's file length are ignored.
     /// After `parse` succeeds, `run` fails only for wrong buffer lengths or
     /// alignment. Links every op; see `parse_with_ops` for firmware.
+    ///
+    /// ```
+    /// # static MODEL: &[u8] = midge_runtime::embed_model!(concat!(
+    /// #     env!("CARGO_MANIFEST_DIR"),
+    /// #     "/fixtures/digits.midge"
+    /// # ));
+    /// use midge_runtime::{Error, Model};
+    ///
+    /// let model = Model::parse(MODEL)?;
+    /// assert_eq!((model.name(), model.label_count()), ("digits", 10));
+    /// // A damaged copy is refused with an error, never a panic.
+    /// let mut copy = midge_runtime::embed::Aligned { bytes: [0u8; 16384] };
+    /// let copy = &mut copy.bytes[..MODEL.len()];
+    /// copy.copy_from_slice(MODEL);
+    /// copy[100] ^= 1;
+    /// assert!(matches!(Model::parse(copy), Err(Error::CrcMismatch { .. })));
+    /// # Ok::<(), Error>(())
+    /// ```
     pub fn parse(bytes: &'a [u8]) -> Result<Model<'a>, Error> {
         Model::parse_with_ops(bytes)
     }
@@ -109,6 +128,36 @@ impl<'a> Model<'a> {
 impl<'a, const OPS: u32> Model<'a, OPS> {
     /// `parse` for a build that links only the op set `OPS`: a layer whose
     /// (op, output type) is outside it is refused with `Error::NotLinked`.
+    /// `midge quantize --rust-module` writes a model's own set as a `const`.
+    ///
+    /// ```
+    /// # static MODEL: &[u8] = midge_runtime::embed_model!(concat!(
+    /// #     env!("CARGO_MANIFEST_DIR"),
+    /// #     "/fixtures/digits.midge"
+    /// # ));
+    /// use midge_runtime::{ElemType, Error, Model, Op, OpSet};
+    ///
+    /// // The digits model's ops: camera bytes to int8, conv2d, max pool, dense.
+    /// const OPS: u32 = OpSet::EMPTY
+    ///     .with(Op::Pixels, ElemType::I8)
+    ///     .with(Op::Conv2d, ElemType::I8)
+    ///     .with(Op::MaxPool, ElemType::I8)
+    ///     .with(Op::Dense, ElemType::I8)
+    ///     .bits();
+    /// let model = Model::<OPS>::parse_with_ops(MODEL)?;
+    /// assert_eq!(model.op_set().bits(), OPS);
+    /// // Without max pool the file cannot run, and says which layer needs it.
+    /// const NO_POOL: u32 = OpSet::EMPTY
+    ///     .with(Op::Pixels, ElemType::I8)
+    ///     .with(Op::Conv2d, ElemType::I8)
+    ///     .with(Op::Dense, ElemType::I8)
+    ///     .bits();
+    /// assert!(matches!(
+    ///     Model::<NO_POOL>::parse_with_ops(MODEL),
+    ///     Err(Error::NotLinked { layer: 3, .. })
+    /// ));
+    /// # Ok::<(), Error>(())
+    /// ```
     pub fn parse_with_ops(bytes: &'a [u8]) -> Result<Model<'a, OPS>, Error> {
         if !is_aligned(bytes, ALIGN) {
             return Err(Error::Misaligned {
@@ -626,6 +675,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     // ----------------------------------------------------------------- API
 
     /// The validated file bytes (exactly the header's file length).
+    #[doc(hidden)]
     pub fn bytes(&self) -> &'a [u8] {
         self.bytes
     }
@@ -682,14 +732,17 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     }
 
     /// Id of the output tensor.
+    #[doc(hidden)]
     pub fn output_id(&self) -> usize {
         self.info.output as usize
     }
 
+    #[doc(hidden)]
     pub fn tensor_count(&self) -> usize {
         self.info.tensor_count as usize
     }
 
+    #[doc(hidden)]
     pub fn tensor(&self, i: usize) -> Option<TensorRecord> {
         self.tensor_checked(i).ok()
     }
@@ -699,6 +752,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     }
 
     /// Layer `i` with its weights, bias and params viewed in place.
+    #[doc(hidden)]
     pub fn layer(&self, i: usize) -> Option<LayerRef<'a>> {
         self.load_layer(i).ok().map(|l| l.layer)
     }
@@ -724,6 +778,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     /// Learned parameters of layer `i`: weight elements plus bias elements.
     /// Requantization and pixel/add parameters are derived, not learned, and
     /// are not counted (their bytes show in `sections().params`).
+    #[doc(hidden)]
     pub fn layer_params(&self, i: usize) -> u64 {
         let Some(layer) = self.layer(i) else {
             return 0;
@@ -777,11 +832,59 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     /// `workspace` (8-byte aligned, at least `workspace_len()` bytes; bytes
     /// past that are not touched). Returns the output tensor's bytes inside
     /// the workspace.
+    ///
+    /// ```
+    /// # static MODEL: &[u8] = midge_runtime::embed_model!(concat!(
+    /// #     env!("CARGO_MANIFEST_DIR"),
+    /// #     "/fixtures/digits.midge"
+    /// # ));
+    /// use midge_runtime::{embed::Aligned, Error, Model};
+    ///
+    /// let model = Model::parse(MODEL)?;
+    /// let mut workspace = Aligned { bytes: [0u8; 2560] };
+    /// let image = [0u8; 64]; // 8×8 grey bytes: `model.input().byte_len()`
+    /// let output = model.run(&image, &mut workspace.bytes)?;
+    /// assert_eq!(output.len(), 10); // ten int8 logits
+    /// // A wrongly sized input is an error.
+    /// assert!(matches!(
+    ///     model.run(&image[..63], &mut workspace.bytes),
+    ///     Err(Error::InputLength { expected: 64, found: 63 })
+    /// ));
+    /// # Ok::<(), Error>(())
+    /// ```
     pub fn run<'w>(&self, input: &[u8], workspace: &'w mut [u8]) -> Result<&'w [u8], Error> {
         self.run_observed(input, workspace, &mut ())
     }
 
     /// `run`, calling `observer` around every layer.
+    ///
+    /// ```
+    /// # static MODEL: &[u8] = midge_runtime::embed_model!(concat!(
+    /// #     env!("CARGO_MANIFEST_DIR"),
+    /// #     "/fixtures/digits.midge"
+    /// # ));
+    /// use midge_runtime::{embed::Aligned, Model, Observer, TensorRecord};
+    ///
+    /// /// Remembers the largest int8 value each layer wrote.
+    /// struct Peaks([i8; 8]);
+    /// impl Observer for Peaks {
+    ///     fn after_layer(&mut self, index: usize, _out: &TensorRecord, bytes: &[u8]) {
+    ///         let peak = bytes.iter().map(|&b| b as i8).max().unwrap_or(i8::MIN);
+    ///         if let Some(p) = self.0.get_mut(index) {
+    ///             *p = peak;
+    ///         }
+    ///     }
+    /// }
+    ///
+    /// let model = Model::parse(MODEL)?;
+    /// let mut workspace = Aligned { bytes: [0u8; 2560] };
+    /// let mut peaks = Peaks([i8::MIN; 8]);
+    /// let out = model.run_observed(&[128u8; 64], &mut workspace.bytes, &mut peaks)?;
+    /// // The last layer's peak is the largest logit.
+    /// let last = model.layer_count() - 1;
+    /// assert_eq!(peaks.0[last], out.iter().map(|&b| b as i8).max().unwrap());
+    /// # Ok::<(), midge_runtime::Error>(())
+    /// ```
     pub fn run_observed<'w, O: Observer>(
         &self,
         input: &[u8],

@@ -181,7 +181,7 @@ pub enum Weights<'a> {
     F16(&'a [half::f16]),
 }
 
-/// Bias per output channel: int32 at scale s_in·s_w[c] with the input
+/// Bias per output channel: int32 at scale `s_in·s_w[c]` with the input
 /// zero-point term already folded in (int8), or f32 (fp16 layers).
 #[derive(Clone, Copy, Debug)]
 pub enum Bias<'a> {

@@ -7,8 +7,8 @@ use half::f16;
 use midge_runtime::exec::{check_layer, run_layer};
 use midge_runtime::kernels::fp16::round_half_away;
 use midge_runtime::kernels::int8::div_round_half_away;
+use midge_runtime::repr::*;
 use midge_runtime::requant::{requant_from_real, requantize};
-use midge_runtime::*;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 

@@ -7,7 +7,8 @@ use midge_runtime::embed::AlignedBytes;
 use midge_runtime::format::{field, MAGIC, SECTIONS_START, VERSION};
 use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
 use midge_runtime::{
-    Activation, ElemType, Error, LayerHeader, Model, Op, Quant, Shape, TensorRecord, Window,
+    repr::{Activation, LayerHeader, Window},
+    ElemType, Error, Model, Op, Quant, Shape, TensorRecord,
 };
 
 #[rustfmt::skip]

@@ -5,7 +5,7 @@
 //! every expected size is also re-derived from the relationship it names.
 
 use midge_runtime::geometry::output_len;
-use midge_runtime::{Padding, Window};
+use midge_runtime::repr::{Padding, Window};
 
 fn win(k: u16, s: u16, d: u16, p: u16) -> Window {
     Window::new((k, k), (s, s), (d, d), [p; 4])

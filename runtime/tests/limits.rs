@@ -10,8 +10,8 @@ use midge_runtime::embed::AlignedBytes;
 use midge_runtime::format::{field, MAX_LAYERS, SCALE_MAX, SCALE_MIN};
 use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
 use midge_runtime::{
-    Activation, ElemType, Error, LayerHeader, Model, Op, Padding, Quant, Shape, TensorRecord,
-    Window,
+    repr::{Activation, LayerHeader, Padding, Window},
+    ElemType, Error, Model, Op, Quant, Shape, TensorRecord,
 };
 
 fn rec(c: u16, elem: ElemType, scale: f32, offset: u32) -> TensorRecord {

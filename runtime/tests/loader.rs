@@ -8,8 +8,8 @@ use midge_runtime::embed::AlignedBytes;
 use midge_runtime::format::field;
 use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
 use midge_runtime::{
-    Activation, ElemType, Error, LayerHeader, Model, Observer, Op, OpSet, Padding, Quant, Shape,
-    TensorRecord, Window,
+    repr::{Activation, LayerHeader, Padding, Window},
+    ElemType, Error, Model, Observer, Op, OpSet, Quant, Shape, TensorRecord,
 };
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;

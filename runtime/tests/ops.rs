@@ -5,6 +5,7 @@
 
 use half::f16;
 use midge_runtime::exec::{check_layer, run_layer, run_layer_reference, top1, Logit};
+use midge_runtime::repr::*;
 use midge_runtime::*;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;

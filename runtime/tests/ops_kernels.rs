@@ -113,6 +113,8 @@ fn conv2d_fast_equals_reference() {
 #[test]
 fn tile_conv2d_equals_reference() {
     let mut rng = ChaCha8Rng::seed_from_u64(0x5eed_0409);
+    // Windows longer than one panel (several panels per pixel pair).
+    let mut long = 0;
     for i in 0..400 {
         let (mut win, mut xs, mut oh, mut ow) =
             random_shape(&mut rng, if i % 4 == 0 { 70 } else { 7 }, false);
@@ -166,7 +168,9 @@ fn tile_conv2d_equals_reference() {
         tile::conv2d::<tile::Portable>(&a, &x, xs, &w, &win, &mut tiled, ys).unwrap();
         kernels::conv2d_ref(&a, &x, xs, &w, &win, &mut slow, ys).unwrap();
         assert_eq!(tiled, slow, "int8 {win:?} {xs:?} {ys:?}");
+        long += usize::from(n_w / oc.max(1) as usize > tile::PANEL_K);
     }
+    assert!(long >= 5, "only {long} cases span several panels");
 }
 
 /// The depthwise driver with the portable 4-channel tap kernel against

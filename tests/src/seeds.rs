@@ -4,7 +4,8 @@
 
 use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
 use midge_runtime::{
-    Activation, ElemType, LayerHeader, Op, Padding, Quant, Shape, TensorRecord, Window,
+    repr::{Activation, LayerHeader, Padding, Window},
+    ElemType, Op, Quant, Shape, TensorRecord,
 };
 
 use ElemType::{F16, I8, U8};

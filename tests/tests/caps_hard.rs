@@ -13,7 +13,7 @@ use midge_convert::equalize;
 use midge_convert::float_ref;
 use midge_convert::graph::{FloatGraph, FloatOp, Node};
 use midge_convert::quantize::{calibration_pixels, load_with_precision, QuantizeOptions};
-use midge_runtime::Activation;
+use midge_runtime::repr::Activation;
 
 fn model(name: &str) -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))

@@ -14,7 +14,7 @@ use midge_convert::quantize::{activation_quant, quantize_graph, quantize_weights
 use midge_runtime::crc::crc32;
 use midge_runtime::embed::AlignedBytes;
 use midge_runtime::format::field;
-use midge_runtime::{Activation, Error, Model, Shape};
+use midge_runtime::{repr::Activation, Error, Model, Shape};
 use midge_tests::mutate::Map;
 use midge_tests::seeds::dense_with;
 

@@ -7,7 +7,7 @@
 //! chains (2,000 layers took over two minutes to parse at opt-level 1).
 
 use midge_runtime::write::ModelSpec;
-use midge_runtime::{ElemType, Error, Op, Padding};
+use midge_runtime::{repr::Padding, ElemType, Error, Op};
 use midge_tests::seeds::{self, bare, pack, pixels_f16, tensor};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;

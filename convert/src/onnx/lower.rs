@@ -6,7 +6,7 @@
 
 use std::collections::{HashMap, HashSet};
 
-use midge_runtime::Padding;
+use midge_runtime::repr::Padding;
 
 use super::proto::{self, NodeProto};
 use super::{tensor_values, Const, OnnxModel, Values};

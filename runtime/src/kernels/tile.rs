@@ -66,8 +66,8 @@ pub trait MicroKernel {
 pub const MAX_MR: usize = 4;
 /// Largest `MicroKernel::NR` the driver's panel holds.
 pub const MAX_NR: usize = 2;
-/// Largest window (kh·kw·in_c values) the driver packs; longer windows go
-/// to `conv2d_fast`. 3×3×64.
+/// Window values (kh·kw·in_c) of one panel; longer windows run in several
+/// panels (so no other conv2d kernel is linked on DSP targets). 3×3×64.
 pub const PANEL_K: usize = 576;
 /// Output channels whose requantization constants are worked out at once.
 const OCB: usize = 64;
@@ -138,12 +138,30 @@ fn put_run<K: MicroKernel>(src: &[i8], k0: usize, panel: &mut [u32], j: usize) {
     }
 }
 
-/// The im2col gather: the window of output pixel `at` as pixel `j` of the
-/// panel, padded taps holding `pad`. Tap row `ky` starts at window value
-/// `ky·pitch` (`pitch` ≥ kw·in_c; with `pitch` > kw·in_c the values after
-/// each row meet zero weights, see `conv2d`). A run that ends its row then
-/// reads on to the next group boundary when the input allows, so it packs
-/// in whole groups.
+/// `put_run` of the part of the values `src` (window values `k0..`) that
+/// falls in the panel's range `kc..kc + PANEL_K`, shifted down by `kc`.
+#[inline]
+fn put_clipped<K: MicroKernel>(src: &[i8], k0: usize, kc: usize, panel: &mut [u32], j: usize) {
+    if kc == 0 && k0 + src.len() <= PANEL_K {
+        // The first panel of a window that fits it: nothing to clip.
+        return put_run::<K>(src, k0, panel, j);
+    }
+    let lo = kc.saturating_sub(k0).min(src.len());
+    let hi = kc.saturating_add(PANEL_K).saturating_sub(k0).min(src.len());
+    // When not empty, k0 + lo ≥ kc: either lo = kc − k0, or k0 ≥ kc.
+    if let Some(part) = src.get(lo..hi).filter(|p| !p.is_empty()) {
+        put_run::<K>(part, (k0 + lo).saturating_sub(kc), panel, j);
+    }
+}
+
+/// The im2col gather: window values `kc..kc + PANEL_K` of output pixel `at`
+/// as pixel `j` of the panel (value `k` at panel value `k − kc`), padded
+/// taps holding `pad`. Tap row `ky` starts at window value `ky·pitch`
+/// (`pitch` ≥ kw·in_c; with `pitch` > kw·in_c the values after each row
+/// meet zero weights, see `conv2d`). A run that ends its row then reads on
+/// to the next group boundary when the input allows, so it packs in whole
+/// groups.
+#[allow(clippy::too_many_arguments)]
 #[inline(never)]
 fn gather_panel<K: MicroKernel>(
     x: &[i8],
@@ -151,6 +169,7 @@ fn gather_panel<K: MicroKernel>(
     win: &Window,
     at: &Px,
     pitch: usize,
+    kc: usize,
     panel: &mut [u32],
     j: usize,
 ) -> Result<(), Error> {
@@ -183,13 +202,13 @@ fn gather_panel<K: MicroKernel>(
                 Some(src) => src,
                 None => part(x, at_x, n).ok_or(fault("conv2d input too short"))?,
             };
-            put_run::<K>(src, k0, panel, j);
+            put_clipped::<K>(src, k0, kc, panel, j);
         } else {
             for kx in kx0..kx1 {
                 let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
                 let src =
                     part(x, (iy * at.iw + ix) * ic, ic).ok_or(fault("conv2d input too short"))?;
-                put_run::<K>(src, ky * pitch + kx * ic, panel, j);
+                put_clipped::<K>(src, ky * pitch + kx * ic, kc, panel, j);
             }
         }
     }
@@ -304,9 +323,10 @@ pub fn conv2d_selected(
 /// for each block of up to `OCB` output channels (requantization constants
 /// worked out once per block), for each `NR` output pixels, gather and
 /// pack their windows once, then run every `MR` output channels over the
-/// whole window; the `K mod 4` last values are summed here. The same
-/// wrapping i32 sums as `conv2d_ref`, so the result is its bit for bit.
-/// Windows longer than `PANEL_K` go to `conv2d_fast`.
+/// whole window; the `K mod 4` last values are summed here. Windows longer
+/// than `PANEL_K` go in panels of `PANEL_K` values, each adding to the
+/// accumulators the one before left. The same wrapping i32 sums as
+/// `conv2d_ref`, so the result is its bit for bit.
 pub fn conv2d<K: MicroKernel>(
     a: &Int8Arith<'_>,
     x: &[i8],
@@ -322,10 +342,8 @@ pub fn conv2d<K: MicroKernel>(
         return Err(fault("conv2d weight length does not match the window"));
     }
     let k_len = win.kh as usize * win.kw as usize * ic;
-    let (mr, nr) = (K::MR, K::NR);
-    if k_len == 0 || k_len > PANEL_K || mr == 0 || nr == 0 || mr > MAX_MR || nr > MAX_NR {
-        return conv2d_fast(a, x, xs, w, win, y, ys);
-    }
+    let nr = K::NR;
+    const { assert!(K::MR > 0 && K::NR > 0 && K::MR <= MAX_MR && K::NR <= MAX_NR) };
     let pointwise = is_pointwise(win) && xs.h == ys.h && xs.w == ys.w;
     let (ih, iw) = (xs.h as usize, xs.w as usize);
     let ow = ys.w as usize;
@@ -351,6 +369,7 @@ pub fn conv2d<K: MicroKernel>(
         && OCB.min(oc) * k_whole <= WBUF;
     let padded = !pointwise
         && !whole
+        && k_len <= PANEL_K
         && pitch != row_len
         && win.kh as usize * pitch <= PANEL_K
         && OCB.min(oc) * win.kh as usize * pitch <= WBUF;
@@ -364,10 +383,6 @@ pub fn conv2d<K: MicroKernel>(
     };
     let mut wbuf = [0i8; WBUF];
     let mut panel_buf = [0u32; PANEL_K / 2 * MAX_NR];
-    let panel_len = k_pan.div_ceil(4) * 2 * nr;
-    let panel = panel_buf
-        .get_mut(..panel_len)
-        .ok_or(fault("conv2d panel"))?;
     let mut rq = [Rq::default(); OCB];
     let mut bias = [0i32; OCB];
     let mut accs: Accs = [[0; OCB]; MAX_NR];
@@ -391,33 +406,37 @@ pub fn conv2d<K: MicroKernel>(
         } else {
             wb
         };
+        let g = Gather {
+            x,
+            pad: a.zp_in,
+            win,
+            ih,
+            iw,
+            ic,
+            ow,
+            pointwise,
+            whole,
+            pitch,
+            k_pan,
+        };
+        let kn = k_pan.min(PANEL_K);
         for p0 in (0..npx).step_by(nr) {
             let np = nr.min(npx - p0);
-            for j in 0..nr {
-                // A missing last pixel repeats the one before (not written).
-                let p = p0 + j.min(np - 1);
-                if pointwise {
-                    let src = part(x, p * ic, ic).ok_or(fault("conv2d input too short"))?;
-                    put_run::<K>(src, 0, panel, j);
-                } else {
-                    let (oy, ox) = (p / ow, p % ow);
-                    let (kh, kw) = (win.kh as usize, win.kw as usize);
-                    let at = Px {
-                        oy,
-                        ox,
-                        ry: axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, ih),
-                        rx: axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, iw),
-                        iw,
-                        c: ic,
-                    };
-                    if whole {
-                        gather_whole::<K>(x, a.zp_in, win, &at, k_pan, panel, j)?;
-                    } else {
-                        gather_panel::<K>(x, a.zp_in, win, &at, pitch, panel, j)?;
-                    }
-                }
+            let panel = panel_buf
+                .get_mut(..kn.div_ceil(4) * 2 * nr)
+                .ok_or(fault("conv2d panel"))?;
+            g.pixels::<K>(0, kn, p0, np, panel)?;
+            channels::<K>(
+                wb,
+                k_pan,
+                kn,
+                panel,
+                bias.get(..nb).unwrap_or(&[]),
+                &mut accs,
+            )?;
+            if k_pan > PANEL_K {
+                more_panels::<K>(&g, wb, nb, p0, np, &mut panel_buf, &mut accs)?;
             }
-            channels::<K>(wb, k_pan, panel, bias.get(..nb).unwrap_or(&[]), &mut accs)?;
             for (j, acc) in accs.iter().take(np).enumerate() {
                 let at = (p0 + j) * oc + o0;
                 let y_px = part_mut(y, at, nb).ok_or(fault("conv2d output too short"))?;
@@ -446,7 +465,96 @@ fn part_mut<T>(s: &mut [T], at: usize, n: usize) -> Option<&mut [T]> {
 /// Accumulators of one block of output channels (one row per pixel).
 type Accs = [[i32; OCB]; MAX_NR];
 
-/// `accs[j][o] = bias[o] + Σ_k w[o·k_len + k] · x_j[k]` for the
+/// What the gather of one output pixel's window needs (see `conv2d`).
+struct Gather<'a> {
+    x: &'a [i8],
+    pad: i8,
+    win: &'a Window,
+    ih: usize,
+    iw: usize,
+    ic: usize,
+    ow: usize,
+    pointwise: bool,
+    whole: bool,
+    pitch: usize,
+    k_pan: usize,
+}
+
+impl Gather<'_> {
+    /// Window values `kc..kc + kn` of the pixels `p0..p0 + NR` (a missing
+    /// last pixel repeats the one before; it is not written) into `panel`.
+    #[inline(never)]
+    fn pixels<K: MicroKernel>(
+        &self,
+        kc: usize,
+        kn: usize,
+        p0: usize,
+        np: usize,
+        panel: &mut [u32],
+    ) -> Result<(), Error> {
+        let (win, ic) = (self.win, self.ic);
+        for j in 0..K::NR {
+            let p = p0 + j.min(np.saturating_sub(1));
+            if self.pointwise {
+                let src = part(self.x, p * ic + kc, kn).ok_or(fault("conv2d input too short"))?;
+                put_run::<K>(src, 0, panel, j);
+                continue;
+            }
+            let (oy, ox) = (p / self.ow.max(1), p % self.ow.max(1));
+            let (kh, kw) = (win.kh as usize, win.kw as usize);
+            let at = Px {
+                oy,
+                ox,
+                ry: axis_range(oy, kh, win.stride_h, win.dil_h, win.pad_top, self.ih),
+                rx: axis_range(ox, kw, win.stride_w, win.dil_w, win.pad_left, self.iw),
+                iw: self.iw,
+                c: ic,
+            };
+            if self.whole {
+                gather_whole::<K>(self.x, self.pad, win, &at, self.k_pan, panel, j)?;
+            } else {
+                gather_panel::<K>(self.x, self.pad, win, &at, self.pitch, kc, panel, j)?;
+            }
+        }
+        Ok(())
+    }
+}
+
+/// The panels after the first of a window longer than `PANEL_K` (pixels
+/// `p0..p0 + np`): each gathered, run from zero and added to `accs`
+/// (wrapping sums in any order are the same).
+#[allow(clippy::too_many_arguments)]
+#[inline(never)]
+fn more_panels<K: MicroKernel>(
+    g: &Gather<'_>,
+    wb: &[i8],
+    nb: usize,
+    p0: usize,
+    np: usize,
+    panel_buf: &mut [u32],
+    accs: &mut Accs,
+) -> Result<(), Error> {
+    let zeros = [0i32; OCB];
+    let zeros = zeros.get(..nb).ok_or(fault("conv2d block"))?;
+    let mut more: Accs = [[0; OCB]; MAX_NR];
+    for kc in (PANEL_K..g.k_pan).step_by(PANEL_K) {
+        let kn = PANEL_K.min(g.k_pan - kc);
+        let panel = panel_buf
+            .get_mut(..kn.div_ceil(4) * 2 * K::NR)
+            .ok_or(fault("conv2d panel"))?;
+        g.pixels::<K>(kc, kn, p0, np, panel)?;
+        let wc = wb.get(kc..).ok_or(fault("conv2d weights too short"))?;
+        channels::<K>(wc, g.k_pan, kn, panel, zeros, &mut more)?;
+        for (row, add) in accs.iter_mut().zip(&more) {
+            for (s, &v) in row.iter_mut().zip(add).take(nb) {
+                *s = s.wrapping_add(v);
+            }
+        }
+    }
+    Ok(())
+}
+
+/// `accs[j][o] = bias[o] + Σ_{k < k_len} w[o·w_stride + k] · x_j[k]` for the
 /// `bias.len()` channels of a block and the `NR` pixels of `panel`: `MR`
 /// channels at a time through `K::run` over the whole groups, the last
 /// `k_len mod 4` values here. The last channels, fewer than `MR`, run one
@@ -455,6 +563,7 @@ type Accs = [[i32; OCB]; MAX_NR];
 #[inline(never)]
 fn channels<K: MicroKernel>(
     w: &[i8],
+    w_stride: usize,
     k_len: usize,
     panel: &[u32],
     bias: &[i32],
@@ -463,19 +572,15 @@ fn channels<K: MicroKernel>(
     let mr = K::MR;
     let nb = bias.len();
     let full = nb / mr * mr;
-    let w = w
-        .get(..nb * k_len)
-        .ok_or(fault("conv2d weights too short"))?;
-    for (t, (wt, b)) in w
-        .chunks_exact(mr * k_len)
-        .zip(bias.chunks_exact(mr))
-        .enumerate()
-    {
-        one_tile::<K>(wt, k_len, k_len, panel, b, t * mr, mr, accs)?;
+    for (t, b) in bias.chunks_exact(mr).enumerate() {
+        let wt = w
+            .get(t * mr * w_stride..)
+            .ok_or(fault("conv2d weights too short"))?;
+        one_tile::<K>(wt, k_len, w_stride, panel, b, t * mr, mr, accs)?;
     }
     for o in full..nb {
         let wt = w
-            .get(o * k_len..)
+            .get(o * w_stride..)
             .ok_or(fault("conv2d weights too short"))?;
         let b = bias.get(o..o + 1).ok_or(fault("conv2d bias"))?;
         one_tile::<K>(wt, k_len, 0, panel, b, o, 1, accs)?;

@@ -1,6 +1,6 @@
 //! On-target kernel equality: random int8 conv2d and depthwise layers (odd
-//! channel counts, windows not a multiple of 4 long, windows of up to 405
-//! values, odd channel counts whose row-padded weight copy does not fit,
+//! channel counts, windows not a multiple of 4 long, windows of up to 810
+//! values (two panels), odd channel counts whose row-padded weight copy does not fit,
 //! first layers with 1–3 input channels, padding, strides, dilation, pointwise,
 //! extreme values and zero points, wrapping sums)
 //! through the micro-kernel drivers with this target's kernel and with the
@@ -20,11 +20,12 @@ use panic_halt as _;
 
 /// Random cases run (the check asks for at least 1 000).
 const CASES: u32 = 1200;
-/// Most input channels (a 3×3 window of 405 values).
-const MAX_C: usize = 45;
+/// Most input channels (a 3×3 window of 810 values: two panels of the
+/// tile driver, whose panel holds `tile::PANEL_K` = 576).
+const MAX_C: usize = 90;
 const MAX_X: usize = 7 * 7 * MAX_C;
-/// Weight bound: 20 output channels × 3×3×21, or 9 × 3×3×45.
-const MAX_W: usize = 20 * 3 * 3 * 21;
+/// Weight bound: 20 output channels × 3×3×21, or 9 × 3×3×90.
+const MAX_W: usize = 9 * 3 * 3 * MAX_C;
 /// Output bound: 7 + 2 + 2 padded rows and columns with a 1×1 window.
 const MAX_Y: usize = 11 * 11 * MAX_C;
 
@@ -105,6 +106,12 @@ fn main() -> ! {
             r(&mut rng, 17, 20)
         } else {
             r(&mut rng, 1, 9)
+        };
+        // Many channels: a 3×3 window, so the window spans two panels.
+        let win = if ic > 64 && !pointwise {
+            Window::new((3, 3), (win.stride_h, win.stride_w), (1, 1), [1; 4])
+        } else {
+            win
         };
         let Some((oh, ow)) = win.output_hw(ih, iw) else {
             continue;
