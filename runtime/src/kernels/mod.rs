@@ -5,7 +5,9 @@
 //! Each loop nest has a straightforward reference form (`reference`, the
 //! oracles) and a fast form that the tests check against it byte for byte;
 //! int8 conv2d and depthwise on cores with the DSP extension go through the
-//! micro-kernel drivers (`tile`, kernels in `dsp`) instead. The fast forms
+//! micro-kernel drivers (`tile`, kernels in `dsp`; 3×3 depthwise with long
+//! stride-1 rows through the row driver in `depthwise`) instead, so there
+//! int8 never links `conv2d_fast`. The fast forms
 //! here: conv2d and dense are matrix-vector products over four output
 //! channels at a time (conv2d gathers each pixel's window into a stack
 //! patch first), depthwise

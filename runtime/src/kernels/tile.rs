@@ -3,7 +3,8 @@
 //! kernel), the one im2col gather into a packed panel, the generic conv2d
 //! and depthwise drivers, and the portable kernel (safe Rust, wrapping i32
 //! sums: the oracle the DSP kernels are tested against on the device).
-//! Targets without DSP keep `conv2d_fast` / `depthwise_fast`.
+//! Targets without DSP keep `conv2d_fast` / `depthwise_fast`. Windows
+//! longer than one panel (`PANEL_K` values) run in several panels.
 //!
 //! Panel layout (what the dual 16-bit multiply-accumulate wants): the K
 //! window values of each pixel in groups of four, `x0 x1 x2 x3` stored as
