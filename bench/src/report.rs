@@ -663,6 +663,58 @@ pub fn sweep_html(name: &str, rows: &[SweepRow]) -> String {
     page(&format!("midge sweep — {name}"), "sweep", &body)
 }
 
+/// HTML page of `midge compare --html`: the accuracy-drop report, and when
+/// measured, per-layer sensitivity charts and the mixed-precision steps.
+pub fn accuracy_html(
+    report: &midge_convert::compare::Report,
+    sens: Option<&midge_convert::sensitivity::Sensitivity>,
+    plan: Option<&midge_convert::mixed::Plan>,
+) -> String {
+    let mut body = format!(
+        "<h1>Accuracy of {}</h1><p class=sub>{} images: float top-1 {:.2} %, {} top-1 {:.2} %, drop {:.2} pp</p>",
+        esc(&report.model),
+        report.images,
+        report.float_top1,
+        esc(&report.precision),
+        report.quantized_top1,
+        report.drop_pp
+    );
+    if let Some(sens) = sens {
+        let labels: Vec<String> = sens.rows.iter().map(|r| r.layer.clone()).collect();
+        let all = vec![(sens.all_int8_drop_pp, "all int8".to_string())];
+        type Pick = fn(&midge_convert::sensitivity::SensitivityRow) -> f64;
+        let charts: [(&str, Pick); 2] = [
+            ("Drop with only this layer int8 (the rest fp16)", |r| {
+                r.alone_int8_drop_pp
+            }),
+            ("Drop with only this layer fp16 (the rest int8)", |r| {
+                r.kept_fp16_drop_pp
+            }),
+        ];
+        for ((title, pick), chart) in charts.into_iter().zip(["sens-int8", "sens-fp16"]) {
+            let _ = write!(
+                body,
+                "<h2>{title}</h2><p class=note>Top-1 drop in pp against the float32 reference, most sensitive layer first; gains are drawn as 0.</p>"
+            );
+            let values: Vec<f64> = sens.rows.iter().map(pick).collect();
+            body += &bar_chart(chart, &labels, &values, "pp", Some(0), &all);
+        }
+        body += "<h2>Sensitivity table</h2><pre>";
+        body += &esc(&sens.to_text());
+        body += "</pre>";
+    }
+    if let Some(plan) = plan {
+        body += "<h2>Mixed precision</h2><pre>";
+        body += &esc(&plan.to_text());
+        body += "</pre>";
+    }
+    body += &accuracy_sections(report);
+    body += "<h2>Report</h2><pre>";
+    body += &esc(&report.to_text());
+    body += "</pre>";
+    page(&format!("midge compare — {}", report.model), "compare", &body)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

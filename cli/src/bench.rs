@@ -204,3 +204,26 @@ pub fn cmd_budget(a: &BudgetArgs) -> Result<i32> {
         midge_bench::budget::EXIT_DOES_NOT_FIT
     })
 }
+
+/// Instructions of one inference of a model file on `target`'s emulated
+/// core (for `compare --mixed-description`), or why they were not counted.
+pub fn instructions(model: &[u8], target: Option<&Target>) -> (Option<u64>, String) {
+    let Some(target) = target else {
+        return (
+            None,
+            "--no-emulate, or no target in the description".to_string(),
+        );
+    };
+    let opts = BudgetOptions {
+        measure_runtime: false,
+        emulate: true,
+        ..BudgetOptions::default()
+    };
+    match midge_bench::budget::evaluate(model, target, &opts) {
+        Ok(ev) => match ev.budget.instructions {
+            Some(i) => (Some(i), format!("emulated {}", target.name)),
+            None => (None, "the emulated run reported no layers".to_string()),
+        },
+        Err(e) => (None, e.to_string()),
+    }
+}

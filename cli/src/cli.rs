@@ -89,6 +89,9 @@ pub enum MethodArg {
     Percentile,
     /// Clip where the expected squared quantization error is least.
     Mse,
+    /// Try min/max, percentile and MSE on a held-apart part of the
+    /// calibration images and keep the best (reported).
+    Measured,
 }
 
 /// Calibration and precision flags shared by `quantize` and `compare`.
@@ -106,6 +109,14 @@ pub struct ConvertFlags {
     /// Calibration image folder instead of the description's `calibration`.
     #[arg(long, value_name = "DIR")]
     pub calibration: Option<PathBuf>,
+    /// Cross-layer equalization of conv/depthwise pairs before calibration
+    /// (Nagel et al. 2019); the float function is unchanged.
+    #[arg(long)]
+    pub equalize: bool,
+    /// Empirical bias correction of int8 layers from the calibration images
+    /// (Nagel et al. 2019).
+    #[arg(long)]
+    pub bias_correct: bool,
 }
 
 /// `--percentile`: a number of percent in 50..=100.
@@ -130,10 +141,13 @@ impl ConvertFlags {
             method: match self.calibration_method {
                 MethodArg::Minmax => RangeMethod::MinMax,
                 MethodArg::Percentile => RangeMethod::Percentile(self.percentile),
-                MethodArg::Mse => RangeMethod::Mse,
+                MethodArg::Mse | MethodArg::Measured => RangeMethod::Mse,
             },
             calibration: self.calibration.clone(),
             progress: true,
+            equalize: self.equalize,
+            bias_correct: self.bias_correct,
+            choose_calibration: self.calibration_method == MethodArg::Measured,
         }
     }
 }
@@ -175,6 +189,31 @@ pub struct CompareArgs {
     /// description's `validation`.
     #[arg(long, value_name = "DIR")]
     pub images: Option<PathBuf>,
+    /// Per-layer sensitivity: top-1 drop and logit SQNR with only this
+    /// layer int8 (the rest fp16) and with only this layer fp16 (the rest int8).
+    #[arg(long)]
+    pub sensitivity: bool,
+    /// Only these folded layers in the sensitivity table (comma-separated).
+    #[arg(
+        long,
+        value_delimiter = ',',
+        value_name = "NAMES",
+        requires = "sensitivity"
+    )]
+    pub layers: Vec<String>,
+    /// Choose the fewest layers to keep in fp16 so the drop stays within
+    /// --max-drop and write that description here (exit 3, nothing written,
+    /// when even all-fp16 misses the bound).
+    #[arg(long, value_name = "FILE", requires = "max_drop")]
+    pub mixed_description: Option<PathBuf>,
+    /// With --mixed-description: do not count each mix's instructions on the
+    /// emulated core of the description's target.
+    #[arg(long, requires = "mixed_description")]
+    pub no_emulate: bool,
+    /// Also write the report (and the sensitivity charts) as a
+    /// self-contained HTML page.
+    #[arg(long, value_name = "FILE")]
+    pub html: Option<PathBuf>,
 }
 
 #[derive(clap::Args, Debug)]
@@ -331,11 +370,25 @@ fn cmd_quantize(a: &QuantizeArgs) -> Result<i32> {
         int8,
         conv.graph.nodes.len() - int8
     );
-    println!(
-        "calibration: {} images, {}",
-        conv.calibration_images,
-        method_text(opts.method)
+    match &conv.calibration_choice {
+        Some(c) => println!(
+            "calibration: {} images, {}",
+            conv.calibration_images,
+            c.to_text().trim_end()
+        ),
+        None => println!(
+            "calibration: {} images, {}",
+            conv.calibration_images,
+            method_text(opts.method)
+        ),
+    }
+    let adjust = midge_convert::bias_correct::adjustments_text(
+        &conv.equalized,
+        &midge_convert::bias_correct::rows(&conv.graph, &conv.bias_shifts),
     );
+    if !adjust.is_empty() {
+        print!("{adjust}");
+    }
     println!(
         "memory plan: workspace {} bytes (lower bound {} bytes, {:.1} % above)",
         q.plan.workspace_len,
@@ -434,9 +487,7 @@ fn cmd_assess(a: &AssessArgs) -> Result<i32> {
             "report": report,
             "budget": ev.budget,
         });
-        let text = serde_json::to_string_pretty(&value)
-            .map_err(|e| Error::new("report", format!("cannot write JSON: {e}")))?;
-        println!("{text}");
+        println!("{}", json_text(&value)?);
     } else {
         println!(
             "wrote {} ({} bytes; workspace {} bytes, lower bound {} bytes)\n",
@@ -502,7 +553,15 @@ fn cmd_compare(a: &CompareArgs) -> Result<i32> {
         also_fp16: a.also_fp16,
         images: a.images.clone(),
     };
-    let report = compare::compare(&a.description, &opts)?;
+    if a.sensitivity || a.mixed_description.is_some() {
+        return compare_sensitivity(a, &opts);
+    }
+    if let Some(html) = &a.html {
+        output::check_destinations(&[html], &[&a.description])?;
+    }
+    let (conv, dir) = compare::prepare(&a.description, &opts)?;
+    let report = compare::evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)?;
+    write_html(a, &conv, &report)?;
     if a.json {
         let text = serde_json::to_string_pretty(&report)
             .map_err(|e| Error::new("report", format!("cannot write JSON: {e}")))?;
@@ -511,6 +570,100 @@ fn cmd_compare(a: &CompareArgs) -> Result<i32> {
         print!("{}", report.to_text());
     }
     Ok(drop_status(report.drop_pp, a.max_drop))
+}
+
+/// `compare --html`: the page, written all or nothing.
+fn write_html(
+    a: &CompareArgs,
+    conv: &quantize::Conversion,
+    report: &compare::Report,
+) -> Result<()> {
+    let Some(path) = &a.html else { return Ok(()) };
+    let page = midge_bench::report::accuracy_html(report, None, None);
+    output::write_outputs(&[(path, page.as_bytes())], &conv.inputs(&a.description))
+}
+
+fn json_text(value: &serde_json::Value) -> Result<String> {
+    serde_json::to_string_pretty(value)
+        .map_err(|e| Error::new("report", format!("cannot write JSON: {e}")))
+}
+
+/// `compare --sensitivity` and `--mixed-description`: the report, the
+/// per-layer table and the mixed-precision search on one conversion.
+fn compare_sensitivity(a: &CompareArgs, opts: &CompareOptions) -> Result<i32> {
+    use midge_convert::{mixed, sensitivity};
+    if let (Some(_), Some(d)) = (&a.mixed_description, a.max_drop) {
+        mixed::check_bound(d)?;
+    }
+    let mut outs: Vec<&Path> = a.mixed_description.iter().map(|p| p.as_path()).collect();
+    outs.extend(a.html.as_deref());
+    output::check_destinations(&outs, &[&a.description])?;
+    let (conv, dir) = compare::prepare(&a.description, opts)?;
+    let which = sensitivity::select(&conv, if a.sensitivity { &a.layers } else { &[] })?;
+    let report = compare::evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)?;
+    // Only the search asked for: no table when no mix can meet the bound.
+    let skip = if a.sensitivity { None } else { a.max_drop };
+    let sens = sensitivity::measure(&conv, &dir, &which, skip)?;
+    let plan = match (&a.mixed_description, a.max_drop) {
+        (Some(_), Some(bound)) => {
+            let target = match (&conv.desc.target, a.no_emulate) {
+                (Some(path), false) => Some(midge_bench::target::Target::load(path)?),
+                _ => None,
+            };
+            let mut instructions =
+                |bytes: &[u8]| crate::bench::instructions(bytes, target.as_ref());
+            Some(mixed::choose(&conv, &dir, &sens, bound, &mut instructions)?)
+        }
+        _ => None,
+    };
+    // The description (when the bound is met) and the page, all or nothing.
+    let mut files: Vec<(&Path, Vec<u8>)> = Vec::new();
+    if let (Some(dest), Some(p)) = (&a.mixed_description, &plan) {
+        if p.met {
+            let text = mixed::description_text(&conv, &a.description, dest, &p.precisions)?;
+            files.push((dest, text.into_bytes()));
+        }
+    }
+    if let Some(path) = &a.html {
+        let page = midge_bench::report::accuracy_html(&report, Some(&sens), plan.as_ref());
+        files.push((path, page.into_bytes()));
+    }
+    let files: Vec<(&Path, &[u8])> = files.iter().map(|(p, b)| (*p, b.as_slice())).collect();
+    output::write_outputs(&files, &conv.inputs(&a.description))?;
+    if a.json {
+        let value = serde_json::json!({
+            "report": report,
+            "sensitivity": sens,
+            "mixed": plan,
+        });
+        println!("{}", json_text(&value)?);
+    } else {
+        print!("{}", report.to_text());
+        println!();
+        print!("{}", sens.to_text());
+        if let Some(p) = &plan {
+            println!();
+            print!("{}", p.to_text());
+        }
+    }
+    match (&plan, &a.mixed_description) {
+        (Some(p), Some(dest)) if p.met => {
+            if !a.json {
+                println!("wrote {}", escape_path(dest));
+            }
+            Ok(0)
+        }
+        (Some(p), _) => {
+            eprintln!(
+                "midge: {}: even all-fp16 drops {:.2} pp, more than --max-drop {}; no description written",
+                escape_path(&a.description),
+                p.all_fp16_drop_pp,
+                p.bound_pp
+            );
+            Ok(EXIT_DROP_EXCEEDED)
+        }
+        (None, _) => Ok(drop_status(report.drop_pp, a.max_drop)),
+    }
 }
 
 fn cmd_classify(a: &ClassifyArgs) -> Result<i32> {

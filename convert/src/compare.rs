@@ -125,6 +125,12 @@ pub struct Report {
     pub workspace_len: usize,
     pub workspace_lower_bound: usize,
     pub model_bytes: usize,
+    /// Pairs rescaled by `--equalize` (empty without it).
+    pub equalized: Vec<crate::equalize::EqualizedPair>,
+    /// Layers whose int8 bias `--bias-correct` shifted (empty without it).
+    pub bias_correction: Vec<crate::bias_correct::BiasRow>,
+    /// What `--calibration-method measured` chose.
+    pub calibration_choice: Option<crate::calibrate_choice::CalibrationChoice>,
 }
 
 fn pct(n: usize, d: usize) -> f64 {
@@ -253,6 +259,13 @@ fn precision_name(graph: &FloatGraph) -> String {
 
 /// Quantize the description (in memory) and evaluate it. See [`evaluate`].
 pub fn compare(desc_path: &Path, opts: &CompareOptions) -> Result<Report> {
+    let (conv, dir) = prepare(desc_path, opts)?;
+    evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)
+}
+
+/// The conversion `compare` evaluates and the labelled folder it reads
+/// (`--images`, else the description's `validation`).
+pub fn prepare(desc_path: &Path, opts: &CompareOptions) -> Result<(Conversion, PathBuf)> {
     let conv = quantize_description(desc_path, &opts.quantize)?;
     let dir = opts
         .images
@@ -264,7 +277,7 @@ pub fn compare(desc_path: &Path, opts: &CompareOptions) -> Result<Report> {
                 "no validation images: set `validation` in the description or pass a folder",
             )
         })?;
-    evaluate(&conv, &dir, opts.also_fp16, opts.quantize.progress)
+    Ok((conv, dir))
 }
 
 /// Logit error of one image: Σ|x − x̂| (in element order) and max |x − x̂|.
@@ -517,6 +530,9 @@ fn tally(
         workspace_len: q.plan.workspace_len,
         workspace_lower_bound: q.plan.lower_bound,
         model_bytes: q.bytes.len(),
+        equalized: conv.equalized.clone(),
+        bias_correction: crate::bias_correct::rows(graph, &conv.bias_shifts),
+        calibration_choice: conv.calibration_choice.clone(),
     }
 }
 
@@ -648,6 +664,11 @@ impl Report {
                 l.op,
                 l.precision
             );
+        }
+        s += &crate::bias_correct::adjustments_text(&self.equalized, &self.bias_correction);
+        if let Some(c) = &self.calibration_choice {
+            s += "\n  calibration: ";
+            s += &c.to_text();
         }
         s
     }

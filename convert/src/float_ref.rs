@@ -103,6 +103,12 @@ pub fn logits(graph: &FloatGraph, pixels: &[u8]) -> Vec<f32> {
     run(graph, pixels).pop().unwrap_or_default()
 }
 
+/// One node on the tensors computed so far (indexed by tensor id; only its
+/// inputs are read). Bias correction probes layers with it.
+pub fn eval_node(graph: &FloatGraph, node: &Node, tensors: &[Vec<f32>]) -> Vec<f32> {
+    eval(graph, node, tensors)
+}
+
 fn eval(graph: &FloatGraph, node: &Node, tensors: &[Vec<f32>]) -> Vec<f32> {
     let x = &tensors[node.inputs[0]];
     let xs = graph.tensor_shape(node.inputs[0]);

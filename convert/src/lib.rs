@@ -2,12 +2,15 @@
 //! runs the float reference, calibrates, quantizes, plans memory, writes the
 //! flat layout through midge-runtime, and measures the accuracy drop.
 
+pub mod bias_correct;
 pub mod c_source;
 pub mod calibrate;
+pub mod calibrate_choice;
 pub mod classify;
 pub mod compare;
 pub mod description;
 pub mod draft;
+pub mod equalize;
 pub mod error;
 pub mod files;
 pub mod firmware_module;
@@ -15,11 +18,13 @@ pub mod float_ref;
 pub mod graph;
 pub mod images;
 pub mod limits;
+pub mod mixed;
 pub mod onnx;
 pub mod output;
 pub mod parallel;
 pub mod plan;
 pub mod quantize;
+pub mod sensitivity;
 pub mod show;
 pub mod synth;
 pub mod weights;

@@ -733,6 +733,13 @@ pub struct QuantizeOptions {
     pub calibration: Option<PathBuf>,
     /// Draw progress bars (only when stderr is a terminal).
     pub progress: bool,
+    /// Cross-layer equalization before calibration (`crate::equalize`).
+    pub equalize: bool,
+    /// Empirical bias correction of int8 layers (`crate::bias_correct`).
+    pub bias_correct: bool,
+    /// Choose the range method by measurement (`crate::calibrate_choice`)
+    /// instead of `method`.
+    pub choose_calibration: bool,
 }
 
 impl Default for QuantizeOptions {
@@ -742,6 +749,9 @@ impl Default for QuantizeOptions {
             method: RangeMethod::Percentile(99.99),
             calibration: None,
             progress: false,
+            equalize: false,
+            bias_correct: false,
+            choose_calibration: false,
         }
     }
 }
@@ -758,6 +768,29 @@ pub struct Conversion {
     /// Non-fatal findings (unused weight tensors, ...).
     pub warnings: Vec<String>,
     pub calibration_images: usize,
+    /// Pairs equalized (`--equalize`), in graph order.
+    pub equalized: Vec<crate::equalize::EqualizedPair>,
+    /// Bias shifts of int8 layers' lowering per node (`--bias-correct`;
+    /// all `None` without it).
+    pub bias_shifts: crate::bias_correct::Shifts,
+    /// What calibration by measurement chose (when asked for).
+    pub calibration_choice: Option<crate::calibrate_choice::CalibrationChoice>,
+}
+
+impl Conversion {
+    /// The same conversion with new per-node precisions (same ranges, same
+    /// bias shifts on the layers that stay int8), quantized again.
+    pub fn with_precisions(&self, precisions: &[Precision]) -> Result<Conversion> {
+        let mut c = self.clone();
+        for (n, p) in c.graph.nodes.iter_mut().zip(precisions) {
+            n.precision = *p;
+        }
+        c.quantized = quantize_graph(
+            &crate::bias_correct::corrected(&c.graph, &c.bias_shifts),
+            &c.ranges,
+        )?;
+        Ok(c)
+    }
 }
 
 impl Conversion {
@@ -815,6 +848,12 @@ pub fn calibrate_graph(
     method: RangeMethod,
     progress: bool,
 ) -> Result<(Vec<Range>, usize)> {
+    calibrate_pixels(graph, &calibration_pixels(desc, dir)?, method, progress)
+}
+
+/// The images of calibration folder `dir` (flat or labelled), each with its
+/// file, held at once (checked against `limits::MAX_CALIBRATION_BYTES`).
+pub fn calibration_pixels(desc: &Description, dir: &Path) -> Result<Vec<(PathBuf, Vec<u8>)>> {
     let spec = image_spec(desc);
     let files = images::all_images(dir)?;
     let held = (files.len() as u64)
@@ -825,12 +864,21 @@ pub fn calibrate_graph(
         held,
         crate::limits::MAX_CALIBRATION_BYTES,
     )?;
-    let pixels: Vec<Vec<u8>> = files
-        .iter()
-        .map(|f| images::load_image(f, &spec))
-        .collect::<Result<_>>()?;
+    files
+        .into_iter()
+        .map(|f| images::load_image(&f, &spec).map(|p| (f, p)))
+        .collect()
+}
+
+/// Calibrate `graph` on images already loaded (see [`calibration_pixels`]).
+pub fn calibrate_pixels(
+    graph: &FloatGraph,
+    pixels: &[(PathBuf, Vec<u8>)],
+    method: RangeMethod,
+    progress: bool,
+) -> Result<(Vec<Range>, usize)> {
     let stats = calibrate::collect(pixels.len(), method, progress, |i| {
-        float_ref::run_finite(graph, &pixels[i]).map_err(|e| e.error(&files[i]))
+        float_ref::run_finite(graph, &pixels[i].1).map_err(|e| e.error(&pixels[i].0))
     })?;
     Ok((
         stats.iter().map(|s| s.range(method)).collect(),
@@ -841,7 +889,7 @@ pub fn calibrate_graph(
 /// The whole conversion the CLI's `quantize` runs: load, calibrate,
 /// quantize, plan, emit (nothing is written to disk).
 pub fn quantize_description(path: &Path, opts: &QuantizeOptions) -> Result<Conversion> {
-    let (mut desc, graph, warnings) = load_with_precision(path, opts.precision)?;
+    let (mut desc, mut graph, warnings) = load_with_precision(path, opts.precision)?;
     // Before calibration, which costs time and memory per layer.
     check_layer_count(&path.display().to_string(), graph.nodes.len() + 1)?;
     let dir = opts
@@ -854,10 +902,33 @@ pub fn quantize_description(path: &Path, opts: &QuantizeOptions) -> Result<Conve
                 "no calibration images: set `calibration` in the description or pass a folder",
             )
         })?;
-    let (mut ranges, n) = calibrate_graph(&graph, &desc, &dir, opts.method, opts.progress)?;
+    let equalized = if opts.equalize {
+        crate::equalize::equalize(&mut graph)
+    } else {
+        Vec::new()
+    };
+    let pixels = calibration_pixels(&desc, &dir)?;
+    let (mut ranges, n, calibration_choice) = if opts.choose_calibration {
+        let (r, c) = crate::calibrate_choice::choose(&graph, &pixels, opts.progress)?;
+        (r, pixels.len(), Some(c))
+    } else {
+        let (r, n) = calibrate_pixels(&graph, &pixels, opts.method, opts.progress)?;
+        (r, n, None)
+    };
     // Ranges an ONNX model's QuantizeLinear/DequantizeLinear pairs give.
     crate::onnx::qdq::apply(&mut desc, &graph, &mut ranges)?;
-    let quantized = quantize_graph(&graph, &ranges)?;
+    let bias_shifts = if opts.bias_correct {
+        let means = crate::bias_correct::tensor_means(pixels.len(), |i| {
+            float_ref::run_finite(&graph, &pixels[i].1).map_err(|e| e.error(&pixels[i].0))
+        })?;
+        crate::bias_correct::shifts(&graph, &means)
+    } else {
+        vec![None; graph.nodes.len()]
+    };
+    let quantized = quantize_graph(
+        &crate::bias_correct::corrected(&graph, &bias_shifts),
+        &ranges,
+    )?;
     Ok(Conversion {
         desc,
         graph,
@@ -865,6 +936,9 @@ pub fn quantize_description(path: &Path, opts: &QuantizeOptions) -> Result<Conve
         quantized,
         warnings,
         calibration_images: n,
+        equalized,
+        bias_shifts,
+        calibration_choice,
     })
 }
 

@@ -7,3 +7,4 @@ pub mod digits;
 pub mod fit;
 pub mod images;
 pub mod net;
+pub mod rescale;

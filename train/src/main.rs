@@ -64,6 +64,26 @@ enum Command {
         #[arg(long, default_value = "models/digits/digits.csv.gz")]
         digits: PathBuf,
     },
+    /// Write a function-preserving per-channel rescale of a model's weights
+    /// (the int8 hard case): producer channel c times s_c, consumer input
+    /// channel c divided by s_c; prints float top-1 and the logit gap of both.
+    Rescale {
+        /// The description whose `weights` are read.
+        #[arg(long)]
+        model: PathBuf,
+        /// The description whose `weights` path is written (same layers).
+        #[arg(long)]
+        to: PathBuf,
+        /// PRODUCER:CONSUMER layer names, e.g. b0_dw_bn:b0_pw (repeatable).
+        #[arg(long = "pair", required = true)]
+        pairs: Vec<String>,
+        /// Scales repeat every K channels.
+        #[arg(long, default_value_t = 5)]
+        cycle: usize,
+        /// The scales span this many powers of ten, centred on 1.
+        #[arg(long, default_value_t = 2.0)]
+        decades: f64,
+    },
     /// Top-1 of the converter's float reference on the description's
     /// validation images, reading its committed weights (no training).
     Check {
@@ -130,6 +150,59 @@ fn run_fit(
     Ok(())
 }
 
+fn run_rescale(
+    model: PathBuf,
+    to: PathBuf,
+    pairs: Vec<String>,
+    cycle: usize,
+    decades: f64,
+) -> Result<()> {
+    let pairs = pairs
+        .iter()
+        .map(|p| {
+            p.split_once(':')
+                .map(|(a, b)| (a.to_string(), b.to_string()))
+                .ok_or_else(|| {
+                    Error::new("--pair", format!("expected PRODUCER:CONSUMER, found {p}"))
+                })
+        })
+        .collect::<Result<Vec<_>>>()?;
+    let src = Description::load(&model)?;
+    let dst = Description::load(&to)?;
+    let weight_path = |d: &Description, p: &PathBuf| {
+        d.weights
+            .clone()
+            .ok_or_else(|| Error::new(p.display().to_string(), "no `weights` key"))
+    };
+    let (input, output) = (weight_path(&src, &model)?, weight_path(&dst, &to)?);
+    if input == output {
+        return Err(Error::new(
+            to.display().to_string(),
+            "`weights` is the file it is made from: expected another path",
+        ));
+    }
+    let done = midge_train::rescale::rescale_file(&src, &input, &output, &pairs, cycle, decades)?;
+    println!("wrote {}", output.display());
+    for p in &done {
+        let s: Vec<String> = p.scales.iter().map(|v| format!("{v:.3}")).collect();
+        println!("  {} → {}: s = [{}]", p.producer, p.consumer, s.join(", "));
+    }
+    let val = fit::validation_set(&dst)?;
+    println!(
+        "converter float reference top-1: {:.2} % ({}), {:.2} % ({})",
+        100.0 * fit::reference_accuracy(&model, &val)?,
+        model.display(),
+        100.0 * fit::reference_accuracy(&to, &val)?,
+        to.display()
+    );
+    println!(
+        "largest relative logit difference over {} images: {:.2e}",
+        val.len(),
+        midge_train::rescale::float_gap(&model, &to, &val)?
+    );
+    Ok(())
+}
+
 fn main() -> ExitCode {
     // One compute thread unless the caller says otherwise: these models are
     // too small to gain from candle's thread pool on a busy 2-core machine
@@ -179,6 +252,13 @@ fn main() -> ExitCode {
                 }
                 Ok(())
             }),
+        Command::Rescale {
+            model,
+            to,
+            pairs,
+            cycle,
+            decades,
+        } => run_rescale(model, to, pairs, cycle, decades),
         Command::Fit {
             model,
             data,
