@@ -167,7 +167,8 @@ pub struct Evaluation {
 /// Flash and RAM bills of a model file on `target`, and the verdict.
 pub fn evaluate(model_bytes: &[u8], target: &Target, opts: &BudgetOptions) -> Result<Evaluation> {
     let aligned = AlignedBytes::from_slice(model_bytes);
-    let model = Model::parse(&aligned).map_err(|e| Error::new("model", e.to_string()))?;
+    let model = Model::parse(&aligned)
+        .map_err(|e| Error::runtime("model", "not a valid midge model", e))?;
     let fp = footprint::model_footprint(&model);
     let ops = model.op_set();
     let s = &fp.sections;

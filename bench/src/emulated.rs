@@ -67,7 +67,8 @@ pub fn emulated_latency(
     timeout: Duration,
 ) -> Result<EmulatedReport> {
     let aligned = AlignedBytes::from_slice(model_bytes);
-    let model = Model::parse(&aligned).map_err(|e| Error::new("model", e.to_string()))?;
+    let model = Model::parse(&aligned)
+        .map_err(|e| Error::runtime("model", "not a valid midge model", e))?;
     let build = firmware::build(&target.rust_target, model.op_set())?;
     let refs: Vec<&[u8]> = inputs.iter().map(|v| v.as_slice()).collect();
     let job = firmware::job_block(&aligned, &refs, model.workspace_len())?;
@@ -77,7 +78,7 @@ pub fn emulated_latency(
     for (k, inp) in inputs.iter().enumerate() {
         let out = model
             .run(inp, &mut ws)
-            .map_err(|e| Error::new(format!("input {k}"), e.to_string()))?;
+            .map_err(|e| Error::runtime(format!("input {k}"), "the runtime failed", e))?;
         host.push(out.to_vec());
     }
     let instr = run.layer_instructions(0);

@@ -54,12 +54,7 @@ pub fn qemu_version() -> Result<String> {
         .arg("--version")
         .stdin(Stdio::null())
         .output()
-        .map_err(|_| {
-            Error::new(
-                "qemu-system-arm",
-                format!("not installed; install with `{INSTALL_QEMU}`"),
-            )
-        })?;
+        .map_err(|_| Error::missing("qemu-system-arm", format!("install with `{INSTALL_QEMU}`")))?;
     Ok(String::from_utf8_lossy(&out.stdout)
         .lines()
         .next()
@@ -90,9 +85,9 @@ pub fn rust_target_installed(triple: &str) -> Result<()> {
     if ok {
         Ok(())
     } else {
-        Err(Error::new(
-            triple,
-            format!("Rust target not installed; install with `rustup target add {triple}`"),
+        Err(Error::missing(
+            format!("Rust target {triple}"),
+            format!("install with `rustup target add {triple}`"),
         ))
     }
 }
@@ -141,9 +136,9 @@ pub fn build_unavailable(triple: &str) -> Option<Error> {
         .status()
         .is_ok_and(|s| s.success());
     if !runs {
-        return Some(Error::new(
+        return Some(Error::missing(
             cargo.to_string_lossy().into_owned(),
-            "cargo, needed to build the firmware, cannot be run; install a Rust toolchain with rustup (https://rustup.rs)",
+            "cargo builds the firmware; install a Rust toolchain with rustup (https://rustup.rs)",
         ));
     }
     rust_target_installed(triple).err()
@@ -173,7 +168,7 @@ fn build_cached(triple: &str, ops: OpSet) -> Result<FirmwareBuild> {
         kernel_match: cache.join(ELVES[3]),
     };
     let place = cache.display().to_string();
-    let io = |e: std::io::Error| Error::new(&place, format!("firmware cache: {e}"));
+    let io = |e: std::io::Error| Error::io(&place, "firmware cache", &e);
     std::fs::create_dir_all(&cache).map_err(io)?;
     let target_dir = crate::sources::cargo_target()?.join("firmware");
     std::fs::create_dir_all(&target_dir).map_err(io)?;
@@ -306,7 +301,7 @@ pub fn run(machine: &str, harness: &Path, job: &[u8], timeout: Duration) -> Resu
         .to_string_lossy()
         .replace(['(', ')', ' '], "");
     std::fs::write(&job_file, job)
-        .map_err(|e| Error::new(&job_file, format!("cannot write job block: {e}")))?;
+        .map_err(|e| Error::io(&job_file, "cannot write job block", &e))?;
     let result = run_qemu(machine, harness, &job_file, timeout);
     let _ = std::fs::remove_file(&job_file);
     let stdout = result?;
@@ -338,9 +333,9 @@ fn run_qemu(machine: &str, harness: &Path, job_file: &str, timeout: Duration) ->
         .stderr(Stdio::piped())
         .spawn()
         .map_err(|e| {
-            Error::new(
-                &place,
-                format!("cannot start: {e}; install with `{INSTALL_QEMU}`"),
+            Error::missing(
+                format!("{place} (qemu-system-arm: {e})"),
+                format!("install with `{INSTALL_QEMU}`"),
             )
         })?;
     // Drain stdout on a thread so a chatty harness cannot block on a full pipe.

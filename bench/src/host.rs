@@ -88,7 +88,8 @@ pub fn host_latency(
     warmup: usize,
 ) -> Result<HostLatency> {
     let aligned = AlignedBytes::from_slice(model_bytes);
-    let model = Model::parse(&aligned).map_err(|e| Error::new("model", e.to_string()))?;
+    let model = Model::parse(&aligned)
+        .map_err(|e| Error::runtime("model", "not a valid midge model", e))?;
     let mut ws = midge_convert::compare::host_workspace(&model, "model")?;
     let n = model.layer_count();
     let mut watch = Stopwatch {
@@ -97,8 +98,9 @@ pub fn host_latency(
     };
     let mut totals = Vec::new();
     let mut outputs = vec![Vec::new(); inputs.len()];
-    let run_err =
-        |k: usize, e: midge_runtime::Error| Error::new(format!("input {k}"), e.to_string());
+    let run_err = |k: usize, e: midge_runtime::Error| {
+        Error::runtime(format!("input {k}"), "the runtime failed", e)
+    };
     for _ in 0..warmup {
         for (k, inp) in inputs.iter().enumerate() {
             model.run(inp, &mut ws).map_err(|e| run_err(k, e))?;

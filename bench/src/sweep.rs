@@ -123,7 +123,8 @@ fn build_variant(
         }
     };
     let aligned = AlignedBytes::from_slice(&bytes);
-    let model = Model::parse(&aligned).map_err(|e| Error::new("sweep", e.to_string()))?;
+    let model = Model::parse(&aligned)
+        .map_err(|e| Error::runtime("sweep", "not a valid midge model", e))?;
     let fp = model_footprint(&model);
     row.params = fp.params;
     row.macs = fp.macs;

@@ -491,7 +491,7 @@ mod tests {
         assert_eq!(a, b);
         assert!(collect(0, RangeMethod::MinMax, false, |_| Ok(vec![])).is_err());
         let e = collect(1, RangeMethod::Percentile(20.0), false, |_| Ok(vec![])).unwrap_err();
-        assert!(e.problem.contains("20"));
+        assert!(e.problem().contains("20"));
         // Non-finite samples are refused, not dropped.
         for bad in [f32::NAN, f32::INFINITY, f32::NEG_INFINITY] {
             let e = collect(2, RangeMethod::Mse, false, |i| {
@@ -502,7 +502,7 @@ mod tests {
             })
             .unwrap_err();
             assert!(
-                e.problem.contains("sample 1") && e.problem.contains("t1"),
+                e.problem().contains("sample 1") && e.problem().contains("t1"),
                 "{e}"
             );
         }

@@ -64,7 +64,7 @@ fn not_regular(place: &str, t: &FileType, what: &str) -> Error {
 pub fn read(path: &Path, cap: &FileCap) -> Result<Vec<u8>> {
     let place = path.display().to_string();
     let what = cap.what;
-    let cannot = |e: std::io::Error| Error::new(&place, format!("cannot read {what}: {e}"));
+    let cannot = |e: std::io::Error| Error::io(&place, format!("cannot read {what}"), &e);
     // Checked before opening (a socket cannot be opened at all) and again
     // on the open file (the path may have been replaced in between).
     let meta = fs::metadata(path).map_err(cannot)?;
@@ -119,7 +119,7 @@ pub struct Entry {
 /// than `limits::MAX_IMAGES`.
 pub fn list_folder(dir: &Path) -> Result<Vec<Entry>> {
     let place = dir.display().to_string();
-    let cannot = |e: std::io::Error| Error::new(&place, format!("cannot list folder: {e}"));
+    let cannot = |e: std::io::Error| Error::io(&place, "cannot list folder", &e);
     let meta = fs::metadata(dir).map_err(cannot)?;
     if !meta.is_dir() {
         return Err(Error::new(
@@ -169,8 +169,7 @@ pub fn read_model(path: &Path) -> Result<AlignedBytes> {
     let place = path.display().to_string();
     let raw = read(path, &limits::MODEL_FILE)?;
     let bytes = AlignedBytes::from_slice(&raw);
-    Model::parse(&bytes)
-        .map_err(|e| Error::new(&place, format!("not a valid midge model: {e}")))?;
+    Model::parse(&bytes).map_err(|e| Error::runtime(&place, "not a valid midge model", e))?;
     Ok(bytes)
 }
 
@@ -210,13 +209,13 @@ mod tests {
         let e = read(&p, &CAP).unwrap_err();
         assert!(e.to_string().contains("limit of 8"), "{e}");
         let e = read(&d, &CAP).unwrap_err();
-        assert!(e.problem.contains("a folder"), "{e}");
+        assert!(e.problem().contains("a folder"), "{e}");
         #[cfg(unix)]
         {
             // /dev/zero never ends and /dev/null is empty: both refused.
             for dev in ["/dev/zero", "/dev/null"] {
                 let e = read(Path::new(dev), &CAP).unwrap_err();
-                assert!(e.problem.contains("character device"), "{e}");
+                assert!(e.problem().contains("character device"), "{e}");
             }
             let link = d.join("link");
             std::os::unix::fs::symlink(&p, &link).unwrap();

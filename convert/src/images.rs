@@ -33,7 +33,7 @@ pub fn load_image(path: &Path, spec: &ImageSpec) -> Result<Vec<u8>> {
     let reader = || {
         image::ImageReader::new(Cursor::new(&bytes[..]))
             .with_guessed_format()
-            .map_err(|e| Error::new(&place, format!("cannot read: {e}")))
+            .map_err(|e| Error::io(&place, "cannot read", &e))
     };
     let unreadable = |e: image::ImageError| {
         Error::new(&place, format!("not a readable PNG/JPEG/BMP image: {e}"))
@@ -275,9 +275,9 @@ mod tests {
             resize: false,
         };
         let e = load_image(&p, &spec).unwrap_err();
-        assert!(e.place.contains("big.png"));
+        assert!(e.place().contains("big.png"));
         assert!(
-            e.problem.contains("8×8") && e.problem.contains("4×4"),
+            e.problem().contains("8×8") && e.problem().contains("4×4"),
             "{e}"
         );
         // A flat image stays flat under bilinear resizing.
@@ -322,7 +322,7 @@ mod tests {
         assert_eq!(load_folder(&d.join("ok"), &spec).unwrap().len(), 2);
         fs::write(d.join("bad").join("notes.txt"), b"hello").unwrap();
         let e = load_folder(&d.join("bad"), &spec).unwrap_err();
-        assert!(e.place.contains("notes.txt"), "{e}");
+        assert!(e.place().contains("notes.txt"), "{e}");
         fs::create_dir_all(d.join("empty")).unwrap();
         assert!(folder_images(&d.join("empty")).is_err());
         let labels: Vec<String> = ["ok", "bad", "gone"]
@@ -332,7 +332,9 @@ mod tests {
         fs::create_dir_all(d.join("odd")).unwrap();
         let e = labelled_folder(&d, &labels).unwrap_err();
         assert!(
-            e.problem.contains("gone") && e.problem.contains("odd") && e.problem.contains("empty"),
+            e.problem().contains("gone")
+                && e.problem().contains("odd")
+                && e.problem().contains("empty"),
             "{e}"
         );
         fs::remove_dir_all(d.join("odd")).unwrap();

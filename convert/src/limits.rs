@@ -266,13 +266,13 @@ mod tests {
     fn check_names_key_value_and_limit() {
         assert!(check("m.toml", "labels", 3, 3).is_ok());
         let e = check("m.toml", "labels", 4, 3).unwrap_err();
-        assert_eq!(e.place, "m.toml: labels");
+        assert_eq!(e.place(), "m.toml: labels");
         assert_eq!(
-            e.problem,
+            e.problem(),
             "is 4, above midge's limit of 3 (README, \"Limits\")"
         );
         let e = check_opt("w", "bytes", None, 9).unwrap_err();
-        assert!(e.problem.contains("2^64"), "{e}");
+        assert!(e.problem().contains("2^64"), "{e}");
         assert_eq!(f32_bytes(&[usize::MAX, 2]), None);
         assert_eq!(f32_bytes(&[3, 5]), Some(60));
     }

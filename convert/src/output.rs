@@ -89,7 +89,7 @@ fn write_temp(path: &Path, bytes: &[u8]) -> Result<PathBuf> {
                 if e.kind() == std::io::ErrorKind::AlreadyExists {
                     continue;
                 }
-                return Err(Error::new(place, format!("cannot write: {e}")));
+                return Err(Error::io(place, "cannot write", &e));
             }
         };
         let result = f.write_all(bytes).and_then(|()| f.sync_all());
@@ -97,7 +97,7 @@ fn write_temp(path: &Path, bytes: &[u8]) -> Result<PathBuf> {
             Ok(()) => Ok(tmp),
             Err(e) => {
                 remove_ours(&tmp);
-                Err(Error::new(place, format!("cannot write: {e}")))
+                Err(Error::io(place, "cannot write", &e))
             }
         };
     }
@@ -325,11 +325,11 @@ mod tests {
         // Refused before any temporary: the same file twice, an input, a folder.
         let same = d.join(".").join("a.bin");
         let e = write_all_atomic(&[(&a, b"1"), (&same, b"2")]).unwrap_err();
-        assert!(e.problem.contains("same file"), "{e}");
+        assert!(e.problem().contains("same file"), "{e}");
         let e = write_outputs(&[(&b, b"1")], &[&d.join(".").join("b.bin")]).unwrap_err();
-        assert!(e.problem.contains("is the input"), "{e}");
+        assert!(e.problem().contains("is the input"), "{e}");
         let e = write_all_atomic(&[(&a, b"1"), (&d, b"2")]).unwrap_err();
-        assert!(e.problem.contains("a folder"), "{e}");
+        assert!(e.problem().contains("a folder"), "{e}");
         assert_eq!(fs::read(&a).unwrap(), b"old a");
         // Success replaces both and leaves no backup or temporary.
         write_all_atomic(&[(&a, b"new a"), (&b, b"new b")]).unwrap();
@@ -362,7 +362,7 @@ mod tests {
         fs::create_dir(&occupied).unwrap();
         fs::write(occupied.join("x"), b"x").unwrap();
         let e = write_checked(&[(&a, b"new"), (&fresh, b"new"), (&occupied, b"new")]).unwrap_err();
-        assert!(e.problem.contains("cannot move"), "{e}");
+        assert!(e.problem().contains("cannot move"), "{e}");
         assert_eq!(fs::read(&a).unwrap(), b"old a");
         assert!(!fresh.exists());
         assert_eq!(fs::read(occupied.join("x")).unwrap(), b"x");
@@ -432,7 +432,7 @@ mod tests {
         // be created, so neither file may appear.
         let bad = d.join("missing-folder").join("b.bin");
         let err = write_all_atomic(&[(&good, b"1"), (&bad, b"2")]).unwrap_err();
-        assert!(err.place.contains("b.bin"));
+        assert!(err.place().contains("b.bin"));
         assert!(!good.exists());
         assert_eq!(fs::read_dir(&d).unwrap().count(), 0);
         // A rename onto an existing folder fails after the temporaries exist.
@@ -440,7 +440,7 @@ mod tests {
         fs::create_dir(&dir_target).unwrap();
         fs::write(dir_target.join("x"), b"x").unwrap();
         let err = write_all_atomic(&[(&good, b"1"), (&dir_target, b"2")]).unwrap_err();
-        assert!(err.place.contains("occupied"));
+        assert!(err.place().contains("occupied"));
         assert!(!good.exists());
         assert_eq!(fs::read_dir(&d).unwrap().count(), 1);
         fs::remove_dir_all(&d).unwrap();

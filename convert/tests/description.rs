@@ -314,7 +314,7 @@ fn load_reads_a_file_and_reports_missing_ones() {
     assert_eq!(d.weights, Some(dir.join("weights.safetensors")));
     let e = Description::load(&dir.join("absent.toml")).unwrap_err();
     assert!(
-        e.place.ends_with("absent.toml") && e.problem.contains("cannot read"),
+        e.place().ends_with("absent.toml") && e.problem().contains("cannot read"),
         "{e}"
     );
     std::fs::remove_dir_all(&dir).unwrap();

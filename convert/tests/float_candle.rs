@@ -354,7 +354,7 @@ fn conv2d_random_geometry_matches_candle() {
         );
         let d = match Description::from_toml_str(&text, Path::new("case.toml")) {
             Ok(d) => d,
-            Err(e) if e.problem.contains("does not fit") => continue,
+            Err(e) if e.problem().contains("does not fit") => continue,
             Err(e) => panic!("{e}"),
         };
         let pt = random_tensors(&d, &mut rng);

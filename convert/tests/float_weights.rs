@@ -60,9 +60,9 @@ fn other_dtypes_are_rejected_by_name_when_needed() {
     let bytes = st(&[("steps", Dtype::I64, vec![], 5i64.to_le_bytes().to_vec())]);
     let m = TensorMap::from_bytes(&bytes, "w.safetensors").unwrap();
     let e = m.require("steps", &[]).unwrap_err();
-    assert_eq!(e.place, "w.safetensors: steps");
+    assert_eq!(e.place(), "w.safetensors: steps");
     assert!(
-        e.problem.contains("I64") && e.problem.contains("F32, F16 or BF16"),
+        e.problem().contains("I64") && e.problem().contains("F32, F16 or BF16"),
         "{e}"
     );
     let mut t = desc_tensors();
@@ -70,7 +70,7 @@ fn other_dtypes_are_rejected_by_name_when_needed() {
     t.push(("fc.weight", Dtype::I32, vec![2, 8], vec![0; 64]));
     let e = check(&t).unwrap_err();
     assert!(
-        e.place.ends_with("fc.weight") && e.problem.contains("I32"),
+        e.place().ends_with("fc.weight") && e.problem().contains("I32"),
         "{e}"
     );
 }
@@ -84,16 +84,16 @@ fn nan_and_inf_are_rejected_with_index() {
         f32_bytes(&[0.0, 1.0, f32::NAN, 2.0]),
     )]);
     let e = TensorMap::from_bytes(&bytes, "w.safetensors").unwrap_err();
-    assert_eq!(e.place, "w.safetensors: fc.weight");
+    assert_eq!(e.place(), "w.safetensors: fc.weight");
     assert!(
-        e.problem.contains("NaN") && e.problem.contains("index 2"),
+        e.problem().contains("NaN") && e.problem().contains("index 2"),
         "{e}"
     );
     // 0x7C00 is +∞ in binary16 (IEEE 754-2008).
     let bytes = st(&[("h", Dtype::F16, vec![1], u16_bytes(&[0x7C00]))]);
     let e = TensorMap::from_bytes(&bytes, "w.safetensors").unwrap_err();
     assert!(
-        e.problem.contains("inf") && e.problem.contains("index 0"),
+        e.problem().contains("inf") && e.problem().contains("index 0"),
         "{e}"
     );
 }
@@ -102,14 +102,14 @@ fn nan_and_inf_are_rejected_with_index() {
 fn damaged_files_are_errors() {
     let good = st(&[("a", Dtype::F32, vec![4], f32_bytes(&[1.0, 2.0, 3.0, 4.0]))]);
     let e = TensorMap::from_bytes(&good[..good.len() - 3], "cut.safetensors").unwrap_err();
-    assert_eq!(e.place, "cut.safetensors");
-    assert!(e.problem.contains("truncated"), "{e}");
+    assert_eq!(e.place(), "cut.safetensors");
+    assert!(e.problem().contains("truncated"), "{e}");
     let e = TensorMap::from_bytes(b"name = \"not weights\"\n", "x.safetensors").unwrap_err();
-    assert!(e.problem.contains("safetensors"), "{e}");
+    assert!(e.problem().contains("safetensors"), "{e}");
     let e = TensorMap::from_bytes(b"", "empty.safetensors").unwrap_err();
-    assert!(e.problem.contains("safetensors"), "{e}");
+    assert!(e.problem().contains("safetensors"), "{e}");
     let e = TensorMap::load(std::path::Path::new("/nonexistent/w.safetensors")).unwrap_err();
-    assert!(e.problem.contains("cannot read"), "{e}");
+    assert!(e.problem().contains("cannot read"), "{e}");
 }
 
 const DESC: &str = r#"
@@ -176,7 +176,7 @@ fn missing_and_misshapen_tensors_are_named() {
     t.retain(|x| x.0 != "bn.running_var");
     let e = check(&t).unwrap_err();
     assert!(
-        e.problem.contains("\"bn.running_var\"") && e.problem.contains("missing"),
+        e.problem().contains("\"bn.running_var\"") && e.problem().contains("missing"),
         "{e}"
     );
 
@@ -184,9 +184,9 @@ fn missing_and_misshapen_tensors_are_named() {
     t.retain(|x| x.0 != "fc.weight");
     t.push(("fc.weight", Dtype::F32, vec![2, 9], f32_bytes(&[0.0; 18])));
     let e = check(&t).unwrap_err();
-    assert_eq!(e.place, "w.safetensors: fc.weight");
+    assert_eq!(e.place(), "w.safetensors: fc.weight");
     assert!(
-        e.problem.contains("[2, 8]") && e.problem.contains("[2, 9]"),
+        e.problem().contains("[2, 8]") && e.problem().contains("[2, 9]"),
         "{e}"
     );
 }
@@ -224,6 +224,6 @@ fn load_graph_reads_files_and_folds() {
     // No weights key → error naming the description.
     std::fs::write(&dpath, DESC.replace("weights = \"w.safetensors\"\n", "")).unwrap();
     let e = load_graph(&dpath).unwrap_err();
-    assert!(e.problem.contains("weights"), "{e}");
+    assert!(e.problem().contains("weights"), "{e}");
     std::fs::remove_dir_all(&dir).unwrap();
 }

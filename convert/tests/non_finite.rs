@@ -28,9 +28,12 @@ fn evaluation_names_the_layer_and_the_validation_image() {
     };
     weight.iter_mut().for_each(|w| *w = 3.0e38);
     let e = evaluate(&conv, &dir.join("val"), false, false).unwrap_err();
-    assert!(e.place.contains("val") && e.place.ends_with(".png"), "{e}");
     assert!(
-        e.problem.contains("layer head") && e.problem.contains("inf"),
+        e.place().contains("val") && e.place().ends_with(".png"),
+        "{e}"
+    );
+    assert!(
+        e.problem().contains("layer head") && e.problem().contains("inf"),
         "{e}"
     );
     assert_eq!(e.to_string().lines().count(), 1);

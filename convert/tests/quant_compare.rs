@@ -102,7 +102,7 @@ fn folder_problems_are_named() {
     std::fs::rename(dir.join("val").join("bar"), dir.join("val").join("stick")).unwrap();
     let e = compare(&desc, &CompareOptions::default()).unwrap_err();
     assert!(
-        e.problem.contains("bar") && e.problem.contains("stick"),
+        e.problem().contains("bar") && e.problem().contains("stick"),
         "{e}"
     );
     let opts = CompareOptions {
@@ -110,6 +110,6 @@ fn folder_problems_are_named() {
         ..Default::default()
     };
     let e = compare(&desc, &opts).unwrap_err();
-    assert!(e.place.contains("nowhere"), "{e}");
+    assert!(e.place().contains("nowhere"), "{e}");
     std::fs::remove_dir_all(&dir).unwrap();
 }

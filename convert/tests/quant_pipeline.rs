@@ -207,8 +207,8 @@ fn accumulator_overflow_is_refused_with_the_layer_name() {
         bias[0] = 1e9;
     }
     let e = quantize_graph(&g, &c.ranges).unwrap_err();
-    assert!(e.place.contains("stem"), "{e}");
-    assert!(e.problem.contains("overflow"), "{e}");
+    assert!(e.place().contains("stem"), "{e}");
+    assert!(e.problem().contains("overflow"), "{e}");
     std::fs::remove_dir_all(&dir).unwrap();
 }
 

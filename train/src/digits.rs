@@ -164,7 +164,7 @@ mod tests {
     fn csv_errors_name_the_line() {
         let bad = "0,".repeat(64) + "3\n" + &"0,".repeat(63) + "0\n";
         let e = parse_csv(&bad, "x.csv").unwrap_err();
-        assert!(e.place.contains("line 2"), "{e}");
-        assert!(e.problem.contains("expected 65 fields, found 64"), "{e}");
+        assert!(e.place().contains("line 2"), "{e}");
+        assert!(e.problem().contains("expected 65 fields, found 64"), "{e}");
     }
 }

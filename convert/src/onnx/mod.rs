@@ -349,12 +349,15 @@ mod tests {
         let mut n = t(DataType::Float, &[2]);
         n.float_data = vec![1.0, f32::NAN];
         let err = tensor_values(&n, "w").unwrap_err();
-        assert!(err.problem.contains("flat index 1 is not finite"), "{err}");
+        assert!(
+            err.problem().contains("flat index 1 is not finite"),
+            "{err}"
+        );
         let mut s = t(DataType::String, &[1]);
         s.string_data = vec![b"x".to_vec()];
         assert!(tensor_values(&s, "w")
             .unwrap_err()
-            .problem
+            .problem()
             .contains("STRING"));
         let mut huge = t(DataType::Float, &[1 << 20, 1 << 20]);
         huge.float_data = vec![0.0];
@@ -364,7 +367,7 @@ mod tests {
         neg.float_data = vec![0.0];
         assert!(tensor_values(&neg, "w")
             .unwrap_err()
-            .problem
+            .problem()
             .contains("negative"));
     }
 }
