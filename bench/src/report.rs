@@ -712,7 +712,11 @@ pub fn accuracy_html(
     body += "<h2>Report</h2><pre>";
     body += &esc(&report.to_text());
     body += "</pre>";
-    page(&format!("midge compare — {}", report.model), "compare", &body)
+    page(
+        &format!("midge compare — {}", report.model),
+        "compare",
+        &body,
+    )
 }
 
 #[cfg(test)]
