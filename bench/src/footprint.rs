@@ -152,19 +152,8 @@ pub fn c_firmware_cost(triple: &str, ops: OpSet) -> Result<CFirmwareCost> {
     })
 }
 
-/// Model-file bytes by kind (a serializable copy of the runtime's `SectionSizes`).
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize)]
-pub struct FileSections {
-    pub header: usize,
-    pub tensor_table: usize,
-    pub layer_table: usize,
-    pub weights: usize,
-    pub biases: usize,
-    pub params: usize,
-    pub strings: usize,
-    pub padding: usize,
-    pub total: usize,
-}
+/// Model-file bytes by kind (one serializable form for every report).
+pub use midge_convert::show::Sections as FileSections;
 
 /// One row of the per-layer table.
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -258,17 +247,7 @@ pub fn model_footprint(model: &Model) -> ModelFootprint {
         .map(|r| r.index);
     ModelFootprint {
         name: model.name().to_string(),
-        sections: FileSections {
-            header: s.header,
-            tensor_table: s.tensor_table,
-            layer_table: s.layer_table,
-            weights: s.weights,
-            biases: s.biases,
-            params: s.params,
-            strings: s.strings,
-            padding: s.padding,
-            total: s.total,
-        },
+        sections: s.into(),
         workspace_len: model.workspace_len(),
         lower_bound,
         input_bytes: model.input().byte_len(),

@@ -5,15 +5,16 @@
 use std::fmt::Write as _;
 
 use midge_runtime::repr::Activation;
-use midge_runtime::{ElemType, Model, TensorRecord};
+use midge_runtime::{ElemType, Model, SectionSizes, TensorRecord};
 use serde::Serialize;
 
 use crate::compare::{elem_name, op_name};
 use crate::error::escape;
 use crate::plan;
 
-/// Byte counts of the file by kind (the runtime's `SectionSizes`).
-#[derive(Clone, Debug, Serialize)]
+/// Byte counts of the file by kind: a serializable copy of the runtime's
+/// `SectionSizes` (the runtime has no serde), used by every host report.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize)]
 pub struct Sections {
     pub header: usize,
     pub tensor_table: usize,
@@ -23,6 +24,24 @@ pub struct Sections {
     pub params: usize,
     pub strings: usize,
     pub padding: usize,
+    /// The file length: the sum of the others.
+    pub total: usize,
+}
+
+impl From<SectionSizes> for Sections {
+    fn from(s: SectionSizes) -> Sections {
+        Sections {
+            header: s.header,
+            tensor_table: s.tensor_table,
+            layer_table: s.layer_table,
+            weights: s.weights,
+            biases: s.biases,
+            params: s.params,
+            strings: s.strings,
+            padding: s.padding,
+            total: s.total,
+        }
+    }
 }
 
 /// A tensor as the file records it.
@@ -153,16 +172,7 @@ impl Summary {
             file_bytes: model.bytes().len(),
             tensor_count: model.tensor_count(),
             labels: model.labels().map(str::to_string).collect(),
-            sections: Sections {
-                header: sec.header,
-                tensor_table: sec.tensor_table,
-                layer_table: sec.layer_table,
-                weights: sec.weights,
-                biases: sec.biases,
-                params: sec.params,
-                strings: sec.strings,
-                padding: sec.padding,
-            },
+            sections: sec.into(),
             layers,
             input: tensor(0, &model.input()),
             output: tensor(model.output_id(), &model.output()),
