@@ -114,7 +114,8 @@ impl MidgeStatus {
             | Error::Layer { .. }
             | Error::Tensor { .. }
             | Error::Overlap { .. }
-            | Error::AccumulatorOverflow { .. } => MidgeStatus::InvalidModel,
+            | Error::AccumulatorOverflow { .. }
+            | Error::Patch { .. } => MidgeStatus::InvalidModel,
         }
     }
 }

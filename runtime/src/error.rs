@@ -84,6 +84,8 @@ pub enum Error {
         op: Op,
         elem: ElemType,
     },
+    /// A patch plan (`patch::PatchPlan`) that this model cannot run: what is wrong.
+    Patch { problem: &'static str },
 }
 
 impl fmt::Display for Error {
@@ -141,6 +143,7 @@ impl fmt::Display for Error {
                 f,
                 "layer {layer}: {op:?} with {elem:?} output is not in the op set this firmware links (regenerate it with `midge quantize --rust-module`)"
             ),
+            Error::Patch { problem } => write!(f, "patch plan: {problem}"),
         }
     }
 }

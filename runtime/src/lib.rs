@@ -79,6 +79,8 @@ pub mod kernels;
 #[doc(hidden)]
 pub mod ops;
 #[doc(hidden)]
+pub mod patch;
+#[doc(hidden)]
 pub mod repr;
 #[doc(hidden)]
 pub mod requant;

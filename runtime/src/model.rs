@@ -891,6 +891,18 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         workspace: &'w mut [u8],
         observer: &mut O,
     ) -> Result<&'w [u8], Error> {
+        self.check_call(input, workspace, self.workspace_len())?;
+        self.run_layers(0..self.layer_count(), input, workspace, observer)?;
+        self.output_bytes(workspace)
+    }
+
+    /// Checks `input` and `workspace` (length at least `need`, alignment) as `run` does.
+    pub(crate) fn check_call(
+        &self,
+        input: &[u8],
+        workspace: &[u8],
+        need: usize,
+    ) -> Result<(), Error> {
         let expected = self.input().byte_len();
         if input.len() != expected {
             return Err(Error::InputLength {
@@ -898,16 +910,28 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
                 found: input.len(),
             });
         }
-        if workspace.len() < self.workspace_len() {
+        if workspace.len() < need {
             return Err(Error::WorkspaceLength {
-                expected: self.workspace_len(),
+                expected: need,
                 found: workspace.len(),
             });
         }
         if !is_aligned(workspace, ALIGN) {
             return Err(Error::WorkspaceMisaligned);
         }
-        for i in 0..self.layer_count() {
+        Ok(())
+    }
+
+    /// Runs the layers `layers` in order over a checked input and workspace (the
+    /// layer-by-layer walk of `run`; `patch` runs the layers after its stage with it).
+    pub(crate) fn run_layers<O: Observer>(
+        &self,
+        layers: core::ops::Range<usize>,
+        input: &[u8],
+        workspace: &mut [u8],
+        observer: &mut O,
+    ) -> Result<(), Error> {
+        for i in layers {
             let Loaded {
                 layer, a, b, out, ..
             } = self.load_layer(i)?;
@@ -950,11 +974,15 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
                 .map_err(|e| exec::at_layer(e, i))?;
             observer.after_layer(i, &out, out_bytes);
         }
+        Ok(())
+    }
+
+    /// The output tensor's bytes inside `workspace`.
+    pub(crate) fn output_bytes<'w>(&self, workspace: &'w [u8]) -> Result<&'w [u8], Error> {
         let out = self.output();
-        let ws: &'w [u8] = workspace;
         let s = out.offset as usize;
         s.checked_add(out.byte_len())
-            .and_then(|e| ws.get(s..e))
+            .and_then(|e| workspace.get(s..e))
             .ok_or(Error::Tensor {
                 index: self.output_id(),
                 problem: "not inside the workspace",

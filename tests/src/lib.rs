@@ -93,5 +93,6 @@ pub fn error_kind(e: &Error) -> &'static str {
         Error::WorkspaceLength { .. } => "workspace length",
         Error::WorkspaceMisaligned => "workspace misaligned",
         Error::NotLinked { .. } => "op not linked",
+        Error::Patch { .. } => "patch plan",
     }
 }
