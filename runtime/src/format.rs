@@ -3,7 +3,7 @@
 //! each other. `model` builds on these to validate a whole file; `write` to emit one.
 //! FORMAT.md describes the same layout in prose; this module is the one definition.
 
-use crate::error::Error;
+use crate::error::{Error, Text};
 use crate::repr::{Activation, ElemType, LayerHeader, Op, Quant, Shape, TensorRecord, Window};
 
 /// First eight bytes of every model file.
@@ -286,14 +286,14 @@ impl FileHeader {
         }
         if view.header_len() as usize != field::header::LEN {
             return Err(Error::Layout {
-                what: "header length",
+                what: text!("header length"),
                 expected: field::header::LEN,
                 found: view.header_len() as usize,
             });
         }
         if view.reserved() != 0 {
             return Err(Error::BadField {
-                what: "header reserved word",
+                what: text!("header reserved word"),
                 value: view.reserved(),
             });
         }
@@ -379,7 +379,7 @@ impl ModelInfo {
     pub fn parse<T: AsRef<[u8]>>(view: &InfoView<T>) -> Result<ModelInfo, Error> {
         if view.reserved() != 0 {
             return Err(Error::BadField {
-                what: "model-info reserved word",
+                what: text!("model-info reserved word"),
                 value: view.reserved(),
             });
         }
@@ -493,15 +493,16 @@ impl TensorRecord {
         index: usize,
     ) -> Result<TensorRecord, Error> {
         let bad = |what, value| Error::TensorField { index, what, value };
-        let elem = ElemType::from_u8(view.elem()).ok_or(bad("element type", view.elem() as u32))?;
+        let elem =
+            ElemType::from_u8(view.elem()).ok_or(bad(text!("element type"), view.elem() as u32))?;
         if view.reserved() != 0 {
-            return Err(bad("reserved byte", view.reserved() as u32));
+            return Err(bad(text!("reserved byte"), view.reserved() as u32));
         }
         let shape = view.shape();
         if shape.h == 0 || shape.w == 0 || shape.c == 0 {
             return Err(Error::Tensor {
                 index,
-                problem: "shape has a zero dimension",
+                problem: text!("shape has a zero dimension"),
             });
         }
         let scale = f32::from_bits(view.scale_bits());
@@ -521,7 +522,7 @@ impl TensorRecord {
             ElemType::U8 | ElemType::F16 => zero_point == 0,
         };
         if !zp_ok {
-            return Err(bad("zero point", zero_point as u32));
+            return Err(bad(text!("zero point"), zero_point as u32));
         }
         Ok(TensorRecord {
             shape,
@@ -638,16 +639,17 @@ impl LayerRecord {
     /// checked by the model loader, which sees the whole file.
     pub fn parse<T: AsRef<[u8]>>(view: &LayerView<T>, index: usize) -> Result<LayerRecord, Error> {
         let bad = |what, value| Error::LayerField { index, what, value };
-        let op = Op::from_u8(view.op()).ok_or(bad("op", view.op() as u32))?;
-        let act = Activation::from_u8(view.act()).ok_or(bad("activation", view.act() as u32))?;
+        let op = Op::from_u8(view.op()).ok_or(bad(text!("op"), view.op() as u32))?;
+        let act =
+            Activation::from_u8(view.act()).ok_or(bad(text!("activation"), view.act() as u32))?;
         let (ra, rb) = view.reserved();
         if ra != 0 || rb != 0 {
-            return Err(bad("reserved word", (ra as u32) << 16 | rb as u32));
+            return Err(bad(text!("reserved word"), (ra as u32) << 16 | rb as u32));
         }
         let inputs = view.inputs();
         if op.arity() < 2 && inputs[1] != 0 {
             return Err(bad(
-                "second input (must be 0 for a one-input op)",
+                text!("second input (must be 0 for a one-input op)"),
                 inputs[1] as u32,
             ));
         }
@@ -655,7 +657,7 @@ impl LayerRecord {
         if !op.has_window() && window != Window::default() {
             return Err(Error::Layer {
                 index,
-                problem: "window fields must be zero for an op without a window",
+                problem: text!("window fields must be zero for an op without a window"),
             });
         }
         let [lo, hi] = view.clamp_f32_bits();
@@ -751,7 +753,7 @@ pub fn blob_types(
     a: ElemType,
     b: Option<ElemType>,
     out: ElemType,
-) -> Result<BlobTypes, &'static str> {
+) -> Result<BlobTypes, Text> {
     use BlobType as T;
     use ElemType as E;
     const NONE: BlobTypes = BlobTypes {
@@ -777,18 +779,20 @@ pub fn blob_types(
                 params: T::F32,
                 ..NONE
             }),
-            _ => Err("pixels reads U8 and writes I8 or F16"),
+            _ => Err(text!("pixels reads U8 and writes I8 or F16")),
         },
         Op::Quantize => match (a, out) {
             (E::F16, E::I8) => Ok(NONE),
-            _ => Err("quantize reads F16 and writes I8"),
+            _ => Err(text!("quantize reads F16 and writes I8")),
         },
         Op::Dequantize => match (a, out) {
             (E::I8, E::F16) => Ok(NONE),
-            _ => Err("dequantize reads I8 and writes F16"),
+            _ => Err(text!("dequantize reads I8 and writes F16")),
         },
         Op::Conv2d | Op::Depthwise | Op::Dense => {
-            match same("conv2d, depthwise and dense read and write the same type, I8 or F16")? {
+            match same(text!(
+                "conv2d, depthwise and dense read and write the same type, I8 or F16"
+            ))? {
                 E::I8 => Ok(BlobTypes {
                     weights: T::I8,
                     bias: T::I32,
@@ -802,7 +806,7 @@ pub fn blob_types(
                 }),
             }
         }
-        Op::Add => match same("add reads two tensors of its output type, I8 or F16")? {
+        Op::Add => match same(text!("add reads two tensors of its output type, I8 or F16"))? {
             E::I8 => Ok(BlobTypes {
                 params: T::I32,
                 ..NONE
@@ -810,7 +814,7 @@ pub fn blob_types(
             _ => Ok(NONE),
         },
         Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool => {
-            same("pooling reads and writes the same type, I8 or F16").map(|_| NONE)
+            same(text!("pooling reads and writes the same type, I8 or F16")).map(|_| NONE)
         }
     }
 }

@@ -60,8 +60,10 @@ compile_error!(
     "midge-runtime views little-endian model bytes in place; big-endian targets are not supported"
 );
 
-pub mod embed;
+// First, so its `text!` macro is in scope in every module below.
+#[macro_use]
 mod error;
+pub mod embed;
 mod model;
 mod opset;
 
@@ -86,7 +88,7 @@ pub mod requant;
 #[cfg(feature = "write")]
 pub mod write;
 
-pub use error::Error;
+pub use error::{Error, Text};
 pub use exec::{top1, Logit};
 pub use model::{Model, Observer, SectionSizes};
 pub use opset::{OpSet, ALL_OPS};

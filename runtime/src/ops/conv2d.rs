@@ -19,7 +19,9 @@ impl OpRules for Conv2d {
     const WINDOW: bool = true;
 
     fn check(cx: &Cx<'_, '_>) -> Result<(), Error> {
-        let elem = cx.same_elem("conv2d input and output must both be int8 or both fp16")?;
+        let elem = cx.same_elem(text!(
+            "conv2d input and output must both be int8 or both fp16"
+        ))?;
         cx.window_shape()?;
         let win = &cx.layer.header.window;
         let (ic, oc) = (cx.a.shape.c as usize, cx.out.shape.c as usize);

@@ -19,10 +19,12 @@ impl OpRules for Depthwise {
     const WINDOW: bool = true;
 
     fn check(cx: &Cx<'_, '_>) -> Result<(), Error> {
-        let elem = cx.same_elem("depthwise input and output must both be int8 or both fp16")?;
+        let elem = cx.same_elem(text!(
+            "depthwise input and output must both be int8 or both fp16"
+        ))?;
         let (ic, oc) = (cx.a.shape.c as usize, cx.out.shape.c as usize);
         if ic != oc {
-            return Err(cx.bad("depthwise (multiplier 1) keeps the channel count"));
+            return Err(cx.bad(text!("depthwise (multiplier 1) keeps the channel count")));
         }
         cx.window_shape()?;
         let win = &cx.layer.header.window;
