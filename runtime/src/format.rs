@@ -826,12 +826,54 @@ pub fn blob_types(
 /// Reads the string at `*pos` and advances `pos`; `None` when it does not fit
 /// or is not UTF-8.
 pub fn read_string<'a>(strings: &'a [u8], pos: &mut usize) -> Option<&'a str> {
+    let mut at = *pos;
+    let s = core::str::from_utf8(string_bytes(strings, &mut at)?).ok()?;
+    *pos = at;
+    Some(s)
+}
+
+/// The bytes of the string at `*pos` (length prefix read, UTF-8 not checked)
+/// and advances `pos`; `None` when it does not fit.
+pub fn string_bytes<'a>(strings: &'a [u8], pos: &mut usize) -> Option<&'a [u8]> {
     let len_end = pos.checked_add(2)?;
     let len = u16::from_le_bytes(strings.get(*pos..len_end)?.try_into().ok()?) as usize;
     let end = len_end.checked_add(len)?;
-    let s = core::str::from_utf8(strings.get(len_end..end)?).ok()?;
+    let s = strings.get(len_end..end)?;
     *pos = end;
     Some(s)
+}
+
+/// Whether `b` is well-formed UTF-8: the same answer as
+/// `core::str::from_utf8(b).is_ok()`, in a loop that links no 256-byte
+/// width table (parse checks the strings with it; `read_string` still
+/// returns `&str` through `core`). The byte ranges are the Unicode
+/// Standard's well-formed sequences (chapter 3, table 3-7): no overlong
+/// forms, no surrogates, nothing above U+10FFFF.
+pub fn is_utf8(b: &[u8]) -> bool {
+    let mut i = 0;
+    while let Some(&lead) = b.get(i) {
+        // Continuation bytes after the lead, and the range of the first.
+        let (more, lo, hi) = match lead {
+            0x00..=0x7F => (0, 0, 0),
+            0xC2..=0xDF => (1, 0x80, 0xBF),
+            0xE0 => (2, 0xA0, 0xBF),
+            0xE1..=0xEC | 0xEE..=0xEF => (2, 0x80, 0xBF),
+            0xED => (2, 0x80, 0x9F),
+            0xF0 => (3, 0x90, 0xBF),
+            0xF1..=0xF3 => (3, 0x80, 0xBF),
+            0xF4 => (3, 0x80, 0x8F),
+            _ => return false,
+        };
+        for k in 1..=more {
+            let (lo, hi) = if k == 1 { (lo, hi) } else { (0x80, 0xBF) };
+            match b.get(i + k) {
+                Some(&c) if lo <= c && c <= hi => {}
+                _ => return false,
+            }
+        }
+        i += 1 + more;
+    }
+    true
 }
 
 /// Bytes one string takes in the strings section, or `None` if longer than u16::MAX.
@@ -842,6 +884,44 @@ pub fn string_len(s: &str) -> Option<usize> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn utf8_check_agrees_with_core() {
+        // Reference: core::str::from_utf8 (the standard library's validator),
+        // on every sequence of one and two bytes, every three-byte sequence
+        // with a three-byte lead, and four-byte leads over all second bytes.
+        let same = |b: &[u8]| {
+            assert_eq!(is_utf8(b), core::str::from_utf8(b).is_ok(), "{b:02x?}");
+        };
+        same(&[]);
+        for a in 0..=255u8 {
+            same(&[a]);
+            for b in 0..=255u8 {
+                same(&[a, b]);
+                if (0xE0..=0xEF).contains(&a) {
+                    for c in 0..=255u8 {
+                        same(&[a, b, c]);
+                    }
+                }
+                if a >= 0xF0 {
+                    for c in [0x7F, 0x80, 0xBF, 0xC0] {
+                        for d in [0x7F, 0x80, 0xBF, 0xC0] {
+                            same(&[a, b, c, d]);
+                            same(&[b'x', a, b, c, d, b'y']);
+                        }
+                    }
+                }
+            }
+        }
+        // Unicode Standard table 3-7 edges (from memory): C0 80 is an
+        // overlong NUL, ED A0 80 the surrogate U+D800, F4 90 80 80 is above
+        // U+10FFFF; F4 8F BF BF is U+10FFFF and well formed.
+        assert!(!is_utf8(&[0xC0, 0x80]));
+        assert!(!is_utf8(&[0xED, 0xA0, 0x80]));
+        assert!(!is_utf8(&[0xF4, 0x90, 0x80, 0x80]));
+        assert!(is_utf8(&[0xF4, 0x8F, 0xBF, 0xBF]));
+        assert!(is_utf8("größe × 2".as_bytes()));
+    }
 
     #[test]
     fn field_tables_are_contiguous() {

@@ -5,9 +5,9 @@
 use crate::error::{Error, Text};
 use crate::exec;
 use crate::format::{
-    self, blob_types, canonical_sections, field, read_string, BlobType, FileHeader, HeaderView,
-    InfoView, LayerRecord, LayerView, ModelInfo, Span, TensorView, ALIGN, MAX_LAYERS,
-    SECTIONS_START,
+    self, blob_types, canonical_sections, field, is_utf8, read_string, string_bytes, BlobType,
+    FileHeader, HeaderView, InfoView, LayerRecord, LayerView, ModelInfo, Span, TensorView, ALIGN,
+    MAX_LAYERS, SECTIONS_START,
 };
 use crate::ops;
 use crate::opset::{OpSet, ALL_OPS};
@@ -269,12 +269,13 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     fn check_strings(&self) -> Result<(), Error> {
         let s = self.section(self.info.strings);
         let mut pos = 0;
-        read_string(s, &mut pos).ok_or(Error::BadField {
+        let mut utf8 = || string_bytes(s, &mut pos).filter(|b| is_utf8(b));
+        utf8().ok_or(Error::BadField {
             what: text!("model name (length or UTF-8)"),
             value: 0,
         })?;
         for i in 0..self.info.label_count {
-            read_string(s, &mut pos).ok_or(Error::BadField {
+            utf8().ok_or(Error::BadField {
                 what: text!("class label (length or UTF-8), label index"),
                 value: i as u32,
             })?;
