@@ -12,6 +12,7 @@
 //! | [`Model::run_observed`] + [`Observer`] | the same with a hook around each layer (timing, dumps) |
 //! | [`top1`] / [`Logit`] | the predicted class and its raw output value, integer compares only |
 //! | [`Error`] | every way a file, an input or a workspace can be refused |
+//! | [`Text`] | the description inside an error: its words with the `text` feature (host tools; `std` implies it), else their CRC-32 code, so firmware links no sentences |
 //! | [`TensorRecord`], [`Shape`], [`ElemType`], [`Quant`] | what the input and output tensors are |
 //! | [`OpSet`], [`Op`], [`ALL_OPS`] | which kernels a build links |
 //!
