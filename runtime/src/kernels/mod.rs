@@ -99,11 +99,10 @@ pub fn tap(o: usize, k: usize, stride: u16, dil: u16, pad_lo: u16, len: usize) -
     }
 }
 
-/// Number of in-bounds taps of output position `o` along one axis.
-pub fn taps_in_bounds(o: usize, k: u16, stride: u16, dil: u16, pad_lo: u16, len: usize) -> u32 {
-    (0..k as usize)
-        .filter(|&t| tap(o, t, stride, dil, pad_lo, len).is_some())
-        .count() as u32
+/// Whether output position `o` has an in-bounds tap along one axis (stops
+/// at the first: a parse-time check, so a short loop).
+pub fn has_tap_in_bounds(o: usize, k: u16, stride: u16, dil: u16, pad_lo: u16, len: usize) -> bool {
+    (0..k as usize).any(|t| tap(o, t, stride, dil, pad_lo, len).is_some())
 }
 
 /// The taps `k` in `lo..hi` of output position `o` along one axis are the

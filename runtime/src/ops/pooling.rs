@@ -31,9 +31,6 @@ pub(crate) fn check(cx: &Cx<'_, '_>, pw: Window, windowed: bool) -> Result<(), E
     }
     // Every output needs an in-bounds tap (a window entirely in the
     // padding has nothing to pool and would divide by zero).
-    let axis_ok = |out_len: u16, k: u16, s: u16, d: u16, p: u16, len: u16| {
-        (0..out_len as usize).all(|o| kernels::taps_in_bounds(o, k, s, d, p, len as usize) > 0)
-    };
     let (ih, iw) = (a.shape.h, a.shape.w);
     if !axis_ok(out.shape.h, pw.kh, pw.stride_h, pw.dil_h, pw.pad_top, ih)
         || !axis_ok(out.shape.w, pw.kw, pw.stride_w, pw.dil_w, pw.pad_left, iw)
@@ -46,6 +43,13 @@ pub(crate) fn check(cx: &Cx<'_, '_>, pw: Window, windowed: bool) -> Result<(), E
         return Err(cx.bad(text!("pooling window too large for an exact int32 sum")));
     }
     Ok(())
+}
+
+/// Every one of `out_len` outputs along one axis has an in-bounds tap (one
+/// copy for both axes: parse-time only, so its size counts, not its speed).
+#[inline(never)]
+fn axis_ok(out_len: u16, k: u16, s: u16, d: u16, p: u16, len: u16) -> bool {
+    (0..out_len as usize).all(|o| kernels::has_tap_in_bounds(o, k, s, d, p, len as usize))
 }
 
 fn pool<const FAST: bool, P: Pool>(
