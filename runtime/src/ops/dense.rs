@@ -26,9 +26,12 @@ impl OpRules for Dense {
             return Err(cx.bad(text!("dense output must be 1x1xN")));
         }
         let (n_in, oc) = (cx.a.shape.elems(), cx.out.shape.c as usize);
-        weighted::check(cx, elem, oc, n_in.checked_mul(oc), |w, o| {
-            weighted::abs_sum(w.iter().skip(o * n_in).take(n_in).copied())
-        })
+        let rows = weighted::Rows {
+            first: n_in,
+            stride: 1,
+            count: n_in,
+        };
+        weighted::check(cx, elem, oc, n_in.checked_mul(oc), rows)
     }
 
     /// `in_elems·out_elems`.

@@ -31,9 +31,12 @@ impl OpRules for Depthwise {
         let w_len = (win.kh as usize)
             .checked_mul(win.kw as usize)
             .and_then(|t| t.checked_mul(oc));
-        weighted::check(cx, elem, oc, w_len, |w, o| {
-            weighted::abs_sum(w.iter().skip(o).step_by(oc.max(1)).copied())
-        })
+        let rows = weighted::Rows {
+            first: 1,
+            stride: oc.max(1),
+            count: usize::MAX,
+        };
+        weighted::check(cx, elem, oc, w_len, rows)
     }
 
     /// `out_h·out_w·c·kh·kw`.

@@ -58,20 +58,39 @@ fn check_accumulator(
     Ok(())
 }
 
-/// Σ|w| over `w`.
-pub(crate) fn abs_sum(w: impl Iterator<Item = i8>) -> u64 {
-    w.map(|v| v.unsigned_abs() as u64).sum()
+/// Where output channel `o`'s weights are: `count` values from index
+/// `o · first`, `stride` apart (conv2d and dense: rows; depthwise: every
+/// `C`-th value from `o`). A value, not a closure, so `check` is one copy
+/// for every op.
+#[derive(Clone, Copy)]
+pub(crate) struct Rows {
+    pub(crate) first: usize,
+    pub(crate) stride: usize,
+    pub(crate) count: usize,
+}
+
+impl Rows {
+    /// Σ|w| over output channel `o`.
+    fn abs_sum(self, w: &[i8], o: usize) -> u64 {
+        w.iter()
+            .skip(o.saturating_mul(self.first))
+            .step_by(self.stride.max(1))
+            .take(self.count)
+            .map(|v| v.unsigned_abs() as u64)
+            .sum()
+    }
 }
 
 /// Weights, bias and parameters of a conv2d, depthwise or dense layer with
-/// `out_c` output channels and `w_len` weights; `abs_sum_of(w, o)` is
-/// Σ|w| over output channel `o` (for the accumulator bound).
+/// `out_c` output channels and `w_len` weights laid out as `rows` (for the
+/// accumulator bound). Out of line: one copy for every op (parse time only).
+#[inline(never)]
 pub(crate) fn check(
     cx: &Cx<'_, '_>,
     elem: ElemType,
     out_c: usize,
     w_len: Option<usize>,
-    abs_sum_of: impl Fn(&[i8], usize) -> u64,
+    rows: Rows,
 ) -> Result<(), Error> {
     let layer = cx.layer;
     let w_len = w_len.ok_or(cx.bad(text!("weight count overflows")))?;
@@ -92,7 +111,7 @@ pub(crate) fn check(
                 return Err(cx.bad(text!("bias length must equal the output channels")));
             }
             check_requant(cx, out_c)?;
-            check_accumulator(cx.index, out_c, bias, |o| abs_sum_of(w, o))
+            check_accumulator(cx.index, out_c, bias, |o| rows.abs_sum(w, o))
         }
         ElemType::F16 => {
             let Weights::F16(w) = layer.weights else {
