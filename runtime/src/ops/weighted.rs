@@ -72,12 +72,14 @@ pub(crate) struct Rows {
 impl Rows {
     /// Σ|w| over output channel `o`.
     fn abs_sum(self, w: &[i8], o: usize) -> u64 {
-        w.iter()
-            .skip(o.saturating_mul(self.first))
-            .step_by(self.stride.max(1))
-            .take(self.count)
-            .map(|v| v.unsigned_abs() as u64)
-            .sum()
+        let mut at = o.saturating_mul(self.first);
+        let mut sum = 0u64;
+        for _ in 0..self.count {
+            let Some(v) = w.get(at) else { break };
+            sum += v.unsigned_abs() as u64;
+            at = at.saturating_add(self.stride.max(1));
+        }
+        sum
     }
 }
 
