@@ -650,6 +650,9 @@ impl Description {
         Ok(())
     }
 
+    /// Resolves one `[[layer]]` table: its op, its inputs, its output shape
+    /// and its window. Each step is a function below so each rule has one
+    /// place.
     #[allow(clippy::too_many_arguments)]
     fn resolve_layer(
         &self,
@@ -669,177 +672,23 @@ impl Description {
                 all.join(", ")
             ))
         })?;
-        // Keys that do not apply to this op.
-        let given: [(&str, bool); 11] = [
-            ("tensor", l.tensor.is_some()),
-            ("out_channels", l.out_channels.is_some()),
-            ("out_features", l.out_features.is_some()),
-            ("kernel", l.kernel.is_some()),
-            ("stride", l.stride.is_some()),
-            ("dilation", l.dilation.is_some()),
-            ("padding", l.padding.is_some()),
-            ("bias", l.bias.is_some()),
-            ("eps", l.eps.is_some()),
-            ("count_include_pad", l.count_include_pad.is_some()),
-            ("precision", l.precision.is_some()),
-        ];
-        for (key, set) in given {
-            if set && !kind.keys().contains(&key) {
-                return Err(err(format!(
-                    "key \"{key}\" does not apply to {kind}; {kind} takes {}",
-                    if kind.keys().is_empty() {
-                        "no keys besides name, op and from".to_string()
-                    } else {
-                        kind.keys().join(", ")
-                    }
-                )));
-            }
-        }
-        // Inputs.
-        let refs: Vec<String> = match &l.from {
-            Some(r) => r.0.clone(),
-            None if i == 0 => vec!["input".into()],
-            None => vec![names[i - 1].clone()],
-        };
-        let arity = if kind == LayerKind::Add { 2 } else { 1 };
-        if refs.len() != arity {
-            return Err(err(format!(
-                "{kind} reads {arity} input{}, `from` names {}",
-                if arity == 1 { "" } else { "s" },
-                refs.len()
-            )));
-        }
-        let mut inputs = Vec::with_capacity(arity);
-        for r in &refs {
-            let t = if r == "input" {
-                0
-            } else {
-                match index_of.get(r.as_str()) {
-                    Some(&j) if j < i => j + 1,
-                    Some(&j) if j == i => {
-                        return Err(err(format!("input \"{r}\" refers to the layer itself")))
-                    }
-                    Some(_) => {
-                        return Err(err(format!("input \"{r}\" refers to a later layer")));
-                    }
-                    None => {
-                        return Err(err(format!(
-                        "input \"{r}\" names no layer (use \"input\" or an earlier layer's name)"
-                    )))
-                    }
-                }
-            };
-            inputs.push(t);
-        }
+        check_keys(kind, l, lp)?;
+        let (refs, inputs) = resolve_inputs(kind, l, i, names, index_of, lp)?;
         let in_shapes: Vec<Shape> = inputs.iter().map(|&t| shapes[t]).collect();
         let ins = in_shapes[0];
         let mut window = None;
-        let mut bias = false;
+        let bias = matches!(
+            kind,
+            LayerKind::Conv2d | LayerKind::Depthwise | LayerKind::Dense
+        ) && l.bias.unwrap_or(true);
         let out_shape = match kind {
             LayerKind::Conv2d | LayerKind::Depthwise | LayerKind::MaxPool | LayerKind::AvgPool => {
-                let Some(Pair(kh, kw)) = l.kernel else {
-                    return Err(err(format!("{kind} needs a `kernel`")));
-                };
-                let is_pool = matches!(kind, LayerKind::MaxPool | LayerKind::AvgPool);
-                let stride = match l.stride {
-                    Some(s) => s,
-                    None if is_pool => Pair(kh, kw), // PyTorch pools: stride defaults to the kernel
-                    None => Pair(1, 1),
-                };
-                let dil = l.dilation.unwrap_or(Pair(1, 1));
-                for (key, Pair(a, b)) in [
-                    ("kernel", Pair(kh, kw)),
-                    ("stride", stride),
-                    ("dilation", dil),
-                ] {
-                    if a == 0 || b == 0 {
-                        return Err(err(format!("`{key}` must be at least 1, found [{a}, {b}]")));
-                    }
-                    limits::check(lp, key, a.max(b).into(), limits::MAX_WINDOW_SIDE)?;
-                }
-                let pad = l.padding.map_or(Padding::Valid, |p| p.0);
-                let w = pad.resolve(
-                    (ins.h, ins.w),
-                    (kh, kw),
-                    (stride.0, stride.1),
-                    (dil.0, dil.1),
-                );
-                let (oh, ow) = w.output_hw(ins.h, ins.w).ok_or_else(|| {
-                    err(format!(
-                        "kernel {kh}×{kw} (dilation {}×{}) does not fit the padded input {}×{} (input {}×{}, padding top {} left {} bottom {} right {})",
-                        dil.0, dil.1,
-                        ins.h as u32 + w.pad_top as u32 + w.pad_bottom as u32,
-                        ins.w as u32 + w.pad_left as u32 + w.pad_right as u32,
-                        ins.h, ins.w, w.pad_top, w.pad_left, w.pad_bottom, w.pad_right
-                    ))
-                })?;
-                let padded = w.pad_top | w.pad_left | w.pad_bottom | w.pad_right != 0;
-                if kind == LayerKind::AvgPool && padded && l.count_include_pad != Some(false) {
-                    return Err(err(
-                        "avgpool with padding is not supported: PyTorch counts padded taps by default (count_include_pad) while midge averages in-bounds taps only; use padding = \"valid\", or count_include_pad = false when the model averages in-bounds taps".into(),
-                    ));
-                }
-                if kind == LayerKind::MaxPool {
-                    // PyTorch: padding at most half the (effective) kernel.
-                    let eh = (dil.0 as u32 * (kh as u32 - 1)).div_ceil(2);
-                    let ew = (dil.1 as u32 * (kw as u32 - 1)).div_ceil(2);
-                    if w.pad_top.max(w.pad_bottom) as u32 > eh
-                        || w.pad_left.max(w.pad_right) as u32 > ew
-                    {
-                        return Err(err(format!(
-                            "maxpool padding (top {} left {} bottom {} right {}) exceeds half the kernel",
-                            w.pad_top, w.pad_left, w.pad_bottom, w.pad_right
-                        )));
-                    }
-                }
+                let (shape, w) = windowed_shape(kind, l, ins, lp)?;
                 window = Some(w);
-                let c = match kind {
-                    LayerKind::Conv2d => {
-                        bias = l.bias.unwrap_or(true);
-                        l.out_channels
-                            .ok_or_else(|| err("conv2d needs `out_channels`".into()))?
-                    }
-                    LayerKind::Depthwise => {
-                        bias = l.bias.unwrap_or(true);
-                        ins.c
-                    }
-                    _ => ins.c,
-                };
-                if c == 0 {
-                    return Err(err("`out_channels` must be at least 1".into()));
-                }
-                limits::check(lp, "out_channels", c.into(), limits::MAX_CHANNELS)?;
-                Shape::new(oh, ow, c)
+                shape
             }
             LayerKind::GlobalAvgPool => Shape::new(1, 1, ins.c),
-            LayerKind::Dense => {
-                if ins.h != 1 || ins.w != 1 {
-                    return Err(err(format!(
-                        "dense reads a {}×{}×{} tensor; add a flatten layer before it (or a global_avgpool)",
-                        ins.h, ins.w, ins.c
-                    )));
-                }
-                bias = l.bias.unwrap_or(true);
-                let n = match (l.out_features, l.out_channels) {
-                    (Some(_), Some(_)) => {
-                        return Err(err(
-                            "give either `out_features` or `out_channels`, not both".into(),
-                        ))
-                    }
-                    (Some(n), None) | (None, Some(n)) => n,
-                    (None, None) => return Err(err("dense needs `out_features`".into())),
-                };
-                if n == 0 {
-                    return Err(err("`out_features` must be at least 1".into()));
-                }
-                let key = if l.out_features.is_some() {
-                    "out_features"
-                } else {
-                    "out_channels"
-                };
-                limits::check(lp, key, n.into(), limits::MAX_CHANNELS)?;
-                Shape::new(1, 1, n)
-            }
+            LayerKind::Dense => dense_shape(l, ins, lp)?,
             LayerKind::Add => {
                 if in_shapes[0] != in_shapes[1] {
                     let (a, b) = (in_shapes[0], in_shapes[1]);
@@ -972,6 +821,183 @@ impl Description {
 }
 
 /// One-line error from a TOML parse error: file, line, layer and message.
+/// Refuses keys that do not apply to the layer's op.
+fn check_keys(kind: LayerKind, l: &LayerDesc, lp: &str) -> Result<()> {
+    let given: [(&str, bool); 11] = [
+        ("tensor", l.tensor.is_some()),
+        ("out_channels", l.out_channels.is_some()),
+        ("out_features", l.out_features.is_some()),
+        ("kernel", l.kernel.is_some()),
+        ("stride", l.stride.is_some()),
+        ("dilation", l.dilation.is_some()),
+        ("padding", l.padding.is_some()),
+        ("bias", l.bias.is_some()),
+        ("eps", l.eps.is_some()),
+        ("count_include_pad", l.count_include_pad.is_some()),
+        ("precision", l.precision.is_some()),
+    ];
+    match given
+        .iter()
+        .find(|(key, set)| *set && !kind.keys().contains(key))
+    {
+        None => Ok(()),
+        Some((key, _)) => Err(Error::new(
+            lp,
+            format!(
+                "key \"{key}\" does not apply to {kind}; {kind} takes {}",
+                if kind.keys().is_empty() {
+                    "no keys besides name, op and from".to_string()
+                } else {
+                    kind.keys().join(", ")
+                }
+            ),
+        )),
+    }
+}
+
+/// The layer's input references (`from`, or the previous layer) and the
+/// tensor index each one names (0 = the model input, j + 1 = layer j).
+fn resolve_inputs(
+    kind: LayerKind,
+    l: &LayerDesc,
+    i: usize,
+    names: &[String],
+    index_of: &HashMap<&str, usize>,
+    lp: &str,
+) -> Result<(Vec<String>, Vec<usize>)> {
+    let err = |m: String| Error::new(lp, m);
+    let refs: Vec<String> = match &l.from {
+        Some(r) => r.0.clone(),
+        None if i == 0 => vec!["input".into()],
+        None => vec![names[i - 1].clone()],
+    };
+    let arity = if kind == LayerKind::Add { 2 } else { 1 };
+    if refs.len() != arity {
+        return Err(err(format!(
+            "{kind} reads {arity} input{}, `from` names {}",
+            if arity == 1 { "" } else { "s" },
+            refs.len()
+        )));
+    }
+    let mut inputs = Vec::with_capacity(arity);
+    for r in &refs {
+        let t = if r == "input" {
+            0
+        } else {
+            match index_of.get(r.as_str()) {
+                Some(&j) if j < i => j + 1,
+                Some(&j) if j == i => {
+                    return Err(err(format!("input \"{r}\" refers to the layer itself")))
+                }
+                Some(_) => return Err(err(format!("input \"{r}\" refers to a later layer"))),
+                None => {
+                    return Err(err(format!(
+                        "input \"{r}\" names no layer (use \"input\" or an earlier layer's name)"
+                    )))
+                }
+            }
+        };
+        inputs.push(t);
+    }
+    Ok((refs, inputs))
+}
+
+/// Output shape and resolved window of a conv2d, depthwise or pool layer.
+fn windowed_shape(kind: LayerKind, l: &LayerDesc, ins: Shape, lp: &str) -> Result<(Shape, Window)> {
+    let err = |m: String| Error::new(lp, m);
+    let Some(Pair(kh, kw)) = l.kernel else {
+        return Err(err(format!("{kind} needs a `kernel`")));
+    };
+    let is_pool = matches!(kind, LayerKind::MaxPool | LayerKind::AvgPool);
+    let stride = match l.stride {
+        Some(s) => s,
+        None if is_pool => Pair(kh, kw), // PyTorch pools: stride defaults to the kernel
+        None => Pair(1, 1),
+    };
+    let dil = l.dilation.unwrap_or(Pair(1, 1));
+    for (key, Pair(a, b)) in [
+        ("kernel", Pair(kh, kw)),
+        ("stride", stride),
+        ("dilation", dil),
+    ] {
+        if a == 0 || b == 0 {
+            return Err(err(format!("`{key}` must be at least 1, found [{a}, {b}]")));
+        }
+        limits::check(lp, key, a.max(b).into(), limits::MAX_WINDOW_SIDE)?;
+    }
+    let pad = l.padding.map_or(Padding::Valid, |p| p.0);
+    let w = pad.resolve(
+        (ins.h, ins.w),
+        (kh, kw),
+        (stride.0, stride.1),
+        (dil.0, dil.1),
+    );
+    let (oh, ow) = w.output_hw(ins.h, ins.w).ok_or_else(|| {
+        err(format!(
+            "kernel {kh}×{kw} (dilation {}×{}) does not fit the padded input {}×{} (input {}×{}, padding top {} left {} bottom {} right {})",
+            dil.0, dil.1,
+            ins.h as u32 + w.pad_top as u32 + w.pad_bottom as u32,
+            ins.w as u32 + w.pad_left as u32 + w.pad_right as u32,
+            ins.h, ins.w, w.pad_top, w.pad_left, w.pad_bottom, w.pad_right
+        ))
+    })?;
+    let padded = w.pad_top | w.pad_left | w.pad_bottom | w.pad_right != 0;
+    if kind == LayerKind::AvgPool && padded && l.count_include_pad != Some(false) {
+        return Err(err(
+            "avgpool with padding is not supported: PyTorch counts padded taps by default (count_include_pad) while midge averages in-bounds taps only; use padding = \"valid\", or count_include_pad = false when the model averages in-bounds taps".into(),
+        ));
+    }
+    if kind == LayerKind::MaxPool {
+        // PyTorch: padding at most half the (effective) kernel.
+        let eh = (dil.0 as u32 * (kh as u32 - 1)).div_ceil(2);
+        let ew = (dil.1 as u32 * (kw as u32 - 1)).div_ceil(2);
+        if w.pad_top.max(w.pad_bottom) as u32 > eh || w.pad_left.max(w.pad_right) as u32 > ew {
+            return Err(err(format!(
+                "maxpool padding (top {} left {} bottom {} right {}) exceeds half the kernel",
+                w.pad_top, w.pad_left, w.pad_bottom, w.pad_right
+            )));
+        }
+    }
+    let c = match kind {
+        LayerKind::Conv2d => l
+            .out_channels
+            .ok_or_else(|| err("conv2d needs `out_channels`".into()))?,
+        _ => ins.c,
+    };
+    if c == 0 {
+        return Err(err("`out_channels` must be at least 1".into()));
+    }
+    limits::check(lp, "out_channels", c.into(), limits::MAX_CHANNELS)?;
+    Ok((Shape::new(oh, ow, c), w))
+}
+
+/// Output shape of a dense layer (`out_features`, or `out_channels` as its
+/// synonym) reading a 1×1×C tensor.
+fn dense_shape(l: &LayerDesc, ins: Shape, lp: &str) -> Result<Shape> {
+    let err = |m: String| Error::new(lp, m);
+    if ins.h != 1 || ins.w != 1 {
+        return Err(err(format!(
+            "dense reads a {}×{}×{} tensor; add a flatten layer before it (or a global_avgpool)",
+            ins.h, ins.w, ins.c
+        )));
+    }
+    let (n, key) = match (l.out_features, l.out_channels) {
+        (Some(_), Some(_)) => {
+            return Err(err(
+                "give either `out_features` or `out_channels`, not both".into(),
+            ))
+        }
+        (Some(n), None) => (n, "out_features"),
+        (None, Some(n)) => (n, "out_channels"),
+        (None, None) => return Err(err("dense needs `out_features`".into())),
+    };
+    if n == 0 {
+        return Err(err("`out_features` must be at least 1".into()));
+    }
+    limits::check(lp, key, n.into(), limits::MAX_CHANNELS)?;
+    Ok(Shape::new(1, 1, n))
+}
+
 fn toml_error(place: &str, text: &str, e: &toml::de::Error) -> Error {
     let mut where_ = place.to_string();
     if let Some(span) = e.span() {

@@ -107,20 +107,25 @@ pub enum FloatOp {
 }
 
 impl FloatOp {
-    /// The op's name as in description files.
-    pub fn name(&self) -> &'static str {
+    /// The description-file op this float op comes from.
+    pub fn kind(&self) -> LayerKind {
         match self {
-            FloatOp::Conv2d { .. } => "conv2d",
-            FloatOp::Depthwise { .. } => "depthwise",
-            FloatOp::Dense { .. } => "dense",
-            FloatOp::BatchNorm { .. } => "batchnorm",
-            FloatOp::Relu => "relu",
-            FloatOp::Relu6 => "relu6",
-            FloatOp::MaxPool { .. } => "maxpool",
-            FloatOp::AvgPool { .. } => "avgpool",
-            FloatOp::GlobalAvgPool => "global_avgpool",
-            FloatOp::Add => "add",
+            FloatOp::Conv2d { .. } => LayerKind::Conv2d,
+            FloatOp::Depthwise { .. } => LayerKind::Depthwise,
+            FloatOp::Dense { .. } => LayerKind::Dense,
+            FloatOp::BatchNorm { .. } => LayerKind::BatchNorm,
+            FloatOp::Relu => LayerKind::Relu,
+            FloatOp::Relu6 => LayerKind::Relu6,
+            FloatOp::MaxPool { .. } => LayerKind::MaxPool,
+            FloatOp::AvgPool { .. } => LayerKind::AvgPool,
+            FloatOp::GlobalAvgPool => LayerKind::GlobalAvgPool,
+            FloatOp::Add => LayerKind::Add,
         }
+    }
+
+    /// The op's name as in description files (`LayerKind::name`).
+    pub fn name(&self) -> &'static str {
+        self.kind().name()
     }
 
     /// Weight and bias of conv2d, depthwise and dense.

@@ -1,9 +1,75 @@
 //! The one error type of the runtime: every way a model file can be rejected
-//! by `parse`, and the few ways `run` can refuse its buffers.
+//! by `parse`, and the few ways `run` can refuse its buffers; and `Text`, the
+//! description inside an error (words on the host, a numeric code on firmware).
 
 use core::fmt;
 
 use crate::repr::{ElemType, Op};
+
+/// What an error says about the part it names ("tensor id", "no such
+/// layer"). With the `text` feature (host tools; `std` implies it) it holds
+/// the words; without it, only their CRC-32 (`crc::crc32` of the UTF-8
+/// bytes, computed at compile time by `text!`), so firmware links a 4-byte
+/// code per site instead of the sentence. `code()` is the same number in
+/// both builds, so a code a device logs names the host's text.
+///
+/// ```
+/// use midge_runtime::Text;
+///
+/// let t = Text::new("tensor id");
+/// // CRC-32/ISO-HDLC of b"tensor id": 0x998bdbbb from Python 3's
+/// // zlib.crc32 (an outside implementation), run on this machine.
+/// assert_eq!(t.code(), 0x998b_dbbb);
+/// assert_eq!(t, Text::new("tensor id"));
+/// assert_ne!(t, Text::new("tensor count"));
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Text(
+    #[cfg(feature = "text")] &'static str,
+    #[cfg(not(feature = "text"))] u32,
+);
+
+impl Text {
+    /// The text `words` (or, without the `text` feature, its code).
+    pub const fn new(words: &'static str) -> Text {
+        #[cfg(feature = "text")]
+        return Text(words);
+        #[cfg(not(feature = "text"))]
+        return Text(crate::crc::crc32(words.as_bytes()));
+    }
+
+    /// CRC-32 of the words: the same in every build.
+    pub const fn code(self) -> u32 {
+        #[cfg(feature = "text")]
+        return crate::crc::crc32(self.0.as_bytes());
+        #[cfg(not(feature = "text"))]
+        return self.0;
+    }
+
+    /// The words (only built with the `text` feature).
+    #[cfg(feature = "text")]
+    pub const fn as_str(self) -> &'static str {
+        self.0
+    }
+}
+
+impl fmt::Display for Text {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        #[cfg(feature = "text")]
+        return f.write_str(self.0);
+        #[cfg(not(feature = "text"))]
+        return write!(f, "check {:#010x}", self.0);
+    }
+}
+
+/// `text!("words")`: a `Text` made at compile time, so without the `text`
+/// feature the words never reach the binary.
+macro_rules! text {
+    ($words:literal) => {{
+        const T: $crate::Text = $crate::Text::new($words);
+        T
+    }};
+}
 
 /// Printed (`Display`) as one line naming the part of the file and what was
 /// expected; `Copy`, no allocation, so firmware can return or log it.
@@ -30,17 +96,17 @@ pub enum Error {
     Misaligned { offset: usize, align: usize },
     /// A section or blob reaches outside the file.
     OutOfBounds {
-        what: &'static str,
+        what: Text,
         offset: usize,
         len: usize,
         limit: usize,
     },
     /// A header or table field holds a value outside its allowed set.
-    BadField { what: &'static str, value: u32 },
+    BadField { what: Text, value: u32 },
     /// A field of tensor record `index` holds a value outside its allowed set.
     TensorField {
         index: usize,
-        what: &'static str,
+        what: Text,
         value: u32,
     },
     /// The scale of tensor record `index` (f32 bits) is outside its range:
@@ -49,19 +115,19 @@ pub enum Error {
     /// A field of layer record `index` holds a value outside its allowed set.
     LayerField {
         index: usize,
-        what: &'static str,
+        what: Text,
         value: u32,
     },
     /// A structure is not where (or not as long as) the canonical layout puts it.
     Layout {
-        what: &'static str,
+        what: Text,
         expected: usize,
         found: usize,
     },
     /// Layer `index` is inconsistent (shape, parameter, blob length, ...).
-    Layer { index: usize, problem: &'static str },
+    Layer { index: usize, problem: Text },
     /// Tensor `index` is inconsistent (size, offset, overlap, ...).
-    Tensor { index: usize, problem: &'static str },
+    Tensor { index: usize, problem: Text },
     /// Layer `layer` writes tensor `output` over the workspace bytes of
     /// tensor `live`, which is still needed during or after that layer.
     Overlap {

@@ -3,7 +3,7 @@
 //! each other. `model` builds on these to validate a whole file; `write` to emit one.
 //! FORMAT.md describes the same layout in prose; this module is the one definition.
 
-use crate::error::Error;
+use crate::error::{Error, Text};
 use crate::repr::{Activation, ElemType, LayerHeader, Op, Quant, Shape, TensorRecord, Window};
 
 /// First eight bytes of every model file.
@@ -286,14 +286,14 @@ impl FileHeader {
         }
         if view.header_len() as usize != field::header::LEN {
             return Err(Error::Layout {
-                what: "header length",
+                what: text!("header length"),
                 expected: field::header::LEN,
                 found: view.header_len() as usize,
             });
         }
         if view.reserved() != 0 {
             return Err(Error::BadField {
-                what: "header reserved word",
+                what: text!("header reserved word"),
                 value: view.reserved(),
             });
         }
@@ -379,7 +379,7 @@ impl ModelInfo {
     pub fn parse<T: AsRef<[u8]>>(view: &InfoView<T>) -> Result<ModelInfo, Error> {
         if view.reserved() != 0 {
             return Err(Error::BadField {
-                what: "model-info reserved word",
+                what: text!("model-info reserved word"),
                 value: view.reserved(),
             });
         }
@@ -493,15 +493,16 @@ impl TensorRecord {
         index: usize,
     ) -> Result<TensorRecord, Error> {
         let bad = |what, value| Error::TensorField { index, what, value };
-        let elem = ElemType::from_u8(view.elem()).ok_or(bad("element type", view.elem() as u32))?;
+        let elem =
+            ElemType::from_u8(view.elem()).ok_or(bad(text!("element type"), view.elem() as u32))?;
         if view.reserved() != 0 {
-            return Err(bad("reserved byte", view.reserved() as u32));
+            return Err(bad(text!("reserved byte"), view.reserved() as u32));
         }
         let shape = view.shape();
         if shape.h == 0 || shape.w == 0 || shape.c == 0 {
             return Err(Error::Tensor {
                 index,
-                problem: "shape has a zero dimension",
+                problem: text!("shape has a zero dimension"),
             });
         }
         let scale = f32::from_bits(view.scale_bits());
@@ -521,7 +522,7 @@ impl TensorRecord {
             ElemType::U8 | ElemType::F16 => zero_point == 0,
         };
         if !zp_ok {
-            return Err(bad("zero point", zero_point as u32));
+            return Err(bad(text!("zero point"), zero_point as u32));
         }
         Ok(TensorRecord {
             shape,
@@ -638,16 +639,17 @@ impl LayerRecord {
     /// checked by the model loader, which sees the whole file.
     pub fn parse<T: AsRef<[u8]>>(view: &LayerView<T>, index: usize) -> Result<LayerRecord, Error> {
         let bad = |what, value| Error::LayerField { index, what, value };
-        let op = Op::from_u8(view.op()).ok_or(bad("op", view.op() as u32))?;
-        let act = Activation::from_u8(view.act()).ok_or(bad("activation", view.act() as u32))?;
+        let op = Op::from_u8(view.op()).ok_or(bad(text!("op"), view.op() as u32))?;
+        let act =
+            Activation::from_u8(view.act()).ok_or(bad(text!("activation"), view.act() as u32))?;
         let (ra, rb) = view.reserved();
         if ra != 0 || rb != 0 {
-            return Err(bad("reserved word", (ra as u32) << 16 | rb as u32));
+            return Err(bad(text!("reserved word"), (ra as u32) << 16 | rb as u32));
         }
         let inputs = view.inputs();
         if op.arity() < 2 && inputs[1] != 0 {
             return Err(bad(
-                "second input (must be 0 for a one-input op)",
+                text!("second input (must be 0 for a one-input op)"),
                 inputs[1] as u32,
             ));
         }
@@ -655,7 +657,7 @@ impl LayerRecord {
         if !op.has_window() && window != Window::default() {
             return Err(Error::Layer {
                 index,
-                problem: "window fields must be zero for an op without a window",
+                problem: text!("window fields must be zero for an op without a window"),
             });
         }
         let [lo, hi] = view.clamp_f32_bits();
@@ -751,7 +753,7 @@ pub fn blob_types(
     a: ElemType,
     b: Option<ElemType>,
     out: ElemType,
-) -> Result<BlobTypes, &'static str> {
+) -> Result<BlobTypes, Text> {
     use BlobType as T;
     use ElemType as E;
     const NONE: BlobTypes = BlobTypes {
@@ -777,18 +779,20 @@ pub fn blob_types(
                 params: T::F32,
                 ..NONE
             }),
-            _ => Err("pixels reads U8 and writes I8 or F16"),
+            _ => Err(text!("pixels reads U8 and writes I8 or F16")),
         },
         Op::Quantize => match (a, out) {
             (E::F16, E::I8) => Ok(NONE),
-            _ => Err("quantize reads F16 and writes I8"),
+            _ => Err(text!("quantize reads F16 and writes I8")),
         },
         Op::Dequantize => match (a, out) {
             (E::I8, E::F16) => Ok(NONE),
-            _ => Err("dequantize reads I8 and writes F16"),
+            _ => Err(text!("dequantize reads I8 and writes F16")),
         },
         Op::Conv2d | Op::Depthwise | Op::Dense => {
-            match same("conv2d, depthwise and dense read and write the same type, I8 or F16")? {
+            match same(text!(
+                "conv2d, depthwise and dense read and write the same type, I8 or F16"
+            ))? {
                 E::I8 => Ok(BlobTypes {
                     weights: T::I8,
                     bias: T::I32,
@@ -802,7 +806,7 @@ pub fn blob_types(
                 }),
             }
         }
-        Op::Add => match same("add reads two tensors of its output type, I8 or F16")? {
+        Op::Add => match same(text!("add reads two tensors of its output type, I8 or F16"))? {
             E::I8 => Ok(BlobTypes {
                 params: T::I32,
                 ..NONE
@@ -810,7 +814,7 @@ pub fn blob_types(
             _ => Ok(NONE),
         },
         Op::MaxPool | Op::AvgPool | Op::GlobalAvgPool => {
-            same("pooling reads and writes the same type, I8 or F16").map(|_| NONE)
+            same(text!("pooling reads and writes the same type, I8 or F16")).map(|_| NONE)
         }
     }
 }
@@ -822,12 +826,54 @@ pub fn blob_types(
 /// Reads the string at `*pos` and advances `pos`; `None` when it does not fit
 /// or is not UTF-8.
 pub fn read_string<'a>(strings: &'a [u8], pos: &mut usize) -> Option<&'a str> {
+    let mut at = *pos;
+    let s = core::str::from_utf8(string_bytes(strings, &mut at)?).ok()?;
+    *pos = at;
+    Some(s)
+}
+
+/// The bytes of the string at `*pos` (length prefix read, UTF-8 not checked)
+/// and advances `pos`; `None` when it does not fit.
+pub fn string_bytes<'a>(strings: &'a [u8], pos: &mut usize) -> Option<&'a [u8]> {
     let len_end = pos.checked_add(2)?;
     let len = u16::from_le_bytes(strings.get(*pos..len_end)?.try_into().ok()?) as usize;
     let end = len_end.checked_add(len)?;
-    let s = core::str::from_utf8(strings.get(len_end..end)?).ok()?;
+    let s = strings.get(len_end..end)?;
     *pos = end;
     Some(s)
+}
+
+/// Whether `b` is well-formed UTF-8: the same answer as
+/// `core::str::from_utf8(b).is_ok()`, in a loop that links no 256-byte
+/// width table (parse checks the strings with it; `read_string` still
+/// returns `&str` through `core`). The byte ranges are the Unicode
+/// Standard's well-formed sequences (chapter 3, table 3-7): no overlong
+/// forms, no surrogates, nothing above U+10FFFF.
+pub fn is_utf8(b: &[u8]) -> bool {
+    let mut i = 0;
+    while let Some(&lead) = b.get(i) {
+        // Continuation bytes after the lead, and the range of the first.
+        let (more, lo, hi) = match lead {
+            0x00..=0x7F => (0, 0, 0),
+            0xC2..=0xDF => (1, 0x80, 0xBF),
+            0xE0 => (2, 0xA0, 0xBF),
+            0xE1..=0xEC | 0xEE..=0xEF => (2, 0x80, 0xBF),
+            0xED => (2, 0x80, 0x9F),
+            0xF0 => (3, 0x90, 0xBF),
+            0xF1..=0xF3 => (3, 0x80, 0xBF),
+            0xF4 => (3, 0x80, 0x8F),
+            _ => return false,
+        };
+        for k in 1..=more {
+            let (lo, hi) = if k == 1 { (lo, hi) } else { (0x80, 0xBF) };
+            match b.get(i + k) {
+                Some(&c) if lo <= c && c <= hi => {}
+                _ => return false,
+            }
+        }
+        i += 1 + more;
+    }
+    true
 }
 
 /// Bytes one string takes in the strings section, or `None` if longer than u16::MAX.
@@ -838,6 +884,44 @@ pub fn string_len(s: &str) -> Option<usize> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn utf8_check_agrees_with_core() {
+        // Reference: core::str::from_utf8 (the standard library's validator),
+        // on every sequence of one and two bytes, every three-byte sequence
+        // with a three-byte lead, and four-byte leads over all second bytes.
+        let same = |b: &[u8]| {
+            assert_eq!(is_utf8(b), core::str::from_utf8(b).is_ok(), "{b:02x?}");
+        };
+        same(&[]);
+        for a in 0..=255u8 {
+            same(&[a]);
+            for b in 0..=255u8 {
+                same(&[a, b]);
+                if (0xE0..=0xEF).contains(&a) {
+                    for c in 0..=255u8 {
+                        same(&[a, b, c]);
+                    }
+                }
+                if a >= 0xF0 {
+                    for c in [0x7F, 0x80, 0xBF, 0xC0] {
+                        for d in [0x7F, 0x80, 0xBF, 0xC0] {
+                            same(&[a, b, c, d]);
+                            same(&[b'x', a, b, c, d, b'y']);
+                        }
+                    }
+                }
+            }
+        }
+        // Unicode Standard table 3-7 edges (from memory): C0 80 is an
+        // overlong NUL, ED A0 80 the surrogate U+D800, F4 90 80 80 is above
+        // U+10FFFF; F4 8F BF BF is U+10FFFF and well formed.
+        assert!(!is_utf8(&[0xC0, 0x80]));
+        assert!(!is_utf8(&[0xED, 0xA0, 0x80]));
+        assert!(!is_utf8(&[0xF4, 0x90, 0x80, 0x80]));
+        assert!(is_utf8(&[0xF4, 0x8F, 0xBF, 0xBF]));
+        assert!(is_utf8("größe × 2".as_bytes()));
+    }
 
     #[test]
     fn field_tables_are_contiguous() {

@@ -12,6 +12,7 @@
 //! | [`Model::run_observed`] + [`Observer`] | the same with a hook around each layer (timing, dumps) |
 //! | [`top1`] / [`Logit`] | the predicted class and its raw output value, integer compares only |
 //! | [`Error`] | every way a file, an input or a workspace can be refused |
+//! | [`Text`] | the description inside an error: its words with the `text` feature (host tools; `std` implies it), else their CRC-32 code, so firmware links no sentences |
 //! | [`TensorRecord`], [`Shape`], [`ElemType`], [`Quant`] | what the input and output tensors are |
 //! | [`OpSet`], [`Op`], [`ALL_OPS`] | which kernels a build links |
 //!
@@ -60,8 +61,10 @@ compile_error!(
     "midge-runtime views little-endian model bytes in place; big-endian targets are not supported"
 );
 
-pub mod embed;
+// First, so its `text!` macro is in scope in every module below.
+#[macro_use]
 mod error;
+pub mod embed;
 mod model;
 mod opset;
 
@@ -88,7 +91,7 @@ pub mod requant;
 #[cfg(feature = "write")]
 pub mod write;
 
-pub use error::Error;
+pub use error::{Error, Text};
 pub use exec::{top1, Logit};
 pub use model::{Model, Observer, SectionSizes};
 pub use opset::{OpSet, ALL_OPS};

@@ -2,12 +2,12 @@
 //! order, lifetimes, each layer via `ops`); `run` walks the layers with the kernels of the
 //! model's op set. Also the one place for MAC/parameter counts and section sizes.
 
-use crate::error::Error;
+use crate::error::{Error, Text};
 use crate::exec;
 use crate::format::{
-    self, blob_types, canonical_sections, field, read_string, BlobType, FileHeader, HeaderView,
-    InfoView, LayerRecord, LayerView, ModelInfo, Span, TensorView, ALIGN, MAX_LAYERS,
-    SECTIONS_START,
+    self, blob_types, canonical_sections, field, is_utf8, read_string, string_bytes, BlobType,
+    FileHeader, HeaderView, InfoView, LayerRecord, LayerView, ModelInfo, Span, TensorView, ALIGN,
+    MAX_LAYERS, SECTIONS_START,
 };
 use crate::ops;
 use crate::opset::{OpSet, ALL_OPS};
@@ -78,7 +78,9 @@ fn tensor_len_u64(t: &TensorRecord) -> u64 {
     t.shape.h as u64 * t.shape.w as u64 * t.shape.c as u64 * t.elem.size() as u64
 }
 
-fn all_zero(bytes: &[u8], from: usize, to: usize, what: &'static str) -> Result<(), Error> {
+/// The bytes `from..to` are zero. Out of line: one copy (parse time).
+#[inline(never)]
+fn all_zero(bytes: &[u8], from: usize, to: usize, what: Text) -> Result<(), Error> {
     match bytes.get(from..to) {
         Some(pad) => match pad.iter().position(|&b| b != 0) {
             None => Ok(()),
@@ -169,7 +171,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         let file_len = header.file_len as usize;
         if file_len < SECTIONS_START || !file_len.is_multiple_of(ALIGN) {
             return Err(Error::BadField {
-                what: "file length",
+                what: text!("file length"),
                 value: header.file_len,
             });
         }
@@ -200,7 +202,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         let info = &self.info;
         if info.layer_count as usize > MAX_LAYERS {
             return Err(Error::BadField {
-                what: "layer count (at most 32768)",
+                what: text!("layer count (at most 32768)"),
                 value: info.layer_count as u32,
             });
         }
@@ -211,15 +213,15 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             info.strings.len,
         )
         .ok_or(Error::BadField {
-            what: "section lengths",
+            what: text!("section lengths"),
             value: info.blobs.len,
         })?;
         let found = [info.tensors, info.layers, info.blobs, info.strings];
         let names = [
-            "tensor table",
-            "layer table",
-            "blob area",
-            "strings section",
+            text!("tensor table"),
+            text!("layer table"),
+            text!("blob area"),
+            text!("strings section"),
         ];
         for ((want, got), name) in spans.iter().zip(found).zip(names) {
             if want.offset != got.offset {
@@ -239,7 +241,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         }
         if file_len as usize != self.bytes.len() {
             return Err(Error::Layout {
-                what: "file length",
+                what: text!("file length"),
                 expected: file_len as usize,
                 found: self.bytes.len(),
             });
@@ -256,7 +258,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             self.bytes.len(),
         ];
         for (end, next) in ends.iter().zip(starts) {
-            all_zero(self.bytes, *end, next, "padding between sections")?;
+            all_zero(self.bytes, *end, next, text!("padding between sections"))?;
         }
         Ok(())
     }
@@ -269,19 +271,20 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     fn check_strings(&self) -> Result<(), Error> {
         let s = self.section(self.info.strings);
         let mut pos = 0;
-        read_string(s, &mut pos).ok_or(Error::BadField {
-            what: "model name (length or UTF-8)",
+        let mut utf8 = || string_bytes(s, &mut pos).filter(|b| is_utf8(b));
+        utf8().ok_or(Error::BadField {
+            what: text!("model name (length or UTF-8)"),
             value: 0,
         })?;
         for i in 0..self.info.label_count {
-            read_string(s, &mut pos).ok_or(Error::BadField {
-                what: "class label (length or UTF-8), label index",
+            utf8().ok_or(Error::BadField {
+                what: text!("class label (length or UTF-8), label index"),
                 value: i as u32,
             })?;
         }
         if pos != s.len() {
             return Err(Error::Layout {
-                what: "strings section length",
+                what: text!("strings section length"),
                 expected: pos,
                 found: s.len(),
             });
@@ -291,14 +294,14 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
 
     fn tensor_checked(&self, i: usize) -> Result<TensorRecord, Error> {
         let start = (i.checked_mul(field::tensor::LEN)).ok_or(Error::BadField {
-            what: "tensor id",
+            what: text!("tensor id"),
             value: i as u32,
         })?;
         let table = self.section(self.info.tensors);
         let rec = table.get(start..).unwrap_or(&[]);
         if i >= self.tensor_count() {
             return Err(Error::BadField {
-                what: "tensor id",
+                what: text!("tensor id"),
                 value: i as u32,
             });
         }
@@ -311,7 +314,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
     fn check_tensors(&self) -> Result<(), Error> {
         if self.info.tensor_count == 0 {
             return Err(Error::BadField {
-                what: "tensor count",
+                what: text!("tensor count"),
                 value: 0,
             });
         }
@@ -324,7 +327,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
                 if len > u32::MAX as u64 {
                     return Err(Error::Tensor {
                         index: 0,
-                        problem: "input tensor larger than 4 GiB",
+                        problem: text!("input tensor larger than 4 GiB"),
                     });
                 }
                 continue;
@@ -332,7 +335,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             if !(t.offset as usize).is_multiple_of(ALIGN) {
                 return Err(Error::TensorField {
                     index: i,
-                    what: "workspace offset (must be a multiple of 8)",
+                    what: text!("workspace offset (must be a multiple of 8)"),
                     value: t.offset,
                 });
             }
@@ -340,7 +343,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             if end > ws {
                 return Err(Error::Tensor {
                     index: i,
-                    problem: "does not fit inside the workspace",
+                    problem: text!("does not fit inside the workspace"),
                 });
             }
             needed = needed.max(end);
@@ -350,7 +353,9 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         let most = needed.div_ceil(ALIGN as u64) * ALIGN as u64;
         if ws > most {
             return Err(Error::Layout {
-                what: "workspace length (the end of the last tensor, rounded up to 8 at most)",
+                what: text!(
+                    "workspace length (the end of the last tensor, rounded up to 8 at most)"
+                ),
                 expected: usize::try_from(most).unwrap_or(usize::MAX),
                 found: usize::try_from(ws).unwrap_or(usize::MAX),
             });
@@ -362,12 +367,12 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         if i >= self.layer_count() {
             return Err(Error::Layer {
                 index: i,
-                problem: "no such layer",
+                problem: text!("no such layer"),
             });
         }
         let start = i.checked_mul(field::layer::LEN).ok_or(Error::Layer {
             index: i,
-            problem: "no such layer",
+            problem: text!("no such layer"),
         })?;
         let table = self.section(self.info.layers);
         LayerRecord::parse(
@@ -391,18 +396,18 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
                 })
             }
         };
-        let a = id("first input tensor id", h.inputs[0])?;
+        let a = id(text!("first input tensor id"), h.inputs[0])?;
         let b = if h.op.arity() == 2 {
-            Some(id("second input tensor id", h.inputs[1])?)
+            Some(id(text!("second input tensor id"), h.inputs[1])?)
         } else {
             None
         };
-        let out = id("output tensor id", h.output)?;
+        let out = id(text!("output tensor id"), h.output)?;
         let types = blob_types(h.op, a.elem, b.map(|t| t.elem), out.elem)
             .map_err(|problem| Error::Layer { index: i, problem })?;
         let weights = match self.blob(
             i,
-            "weights blob offset (outside the blob area or not a multiple of 8)",
+            text!("weights blob offset (outside the blob area or not a multiple of 8)"),
             rec.weights,
             types.weights,
         )? {
@@ -413,7 +418,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         };
         let bias = match self.blob(
             i,
-            "bias blob offset (outside the blob area or not a multiple of 8)",
+            text!("bias blob offset (outside the blob area or not a multiple of 8)"),
             rec.bias,
             types.bias,
         )? {
@@ -424,7 +429,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         };
         let params = match self.blob(
             i,
-            "params blob offset (outside the blob area or not a multiple of 8)",
+            text!("params blob offset (outside the blob area or not a multiple of 8)"),
             rec.params,
             types.params,
         )? {
@@ -451,20 +456,14 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
 
     /// One blob: empty reference for `None`; otherwise inside the blob area,
     /// 8-aligned, a whole number of elements, viewed in place.
-    fn blob(
-        &self,
-        layer: usize,
-        what: &'static str,
-        span: Span,
-        ty: BlobType,
-    ) -> Result<Blob<'a>, Error> {
+    fn blob(&self, layer: usize, what: Text, span: Span, ty: BlobType) -> Result<Blob<'a>, Error> {
         if ty == BlobType::None {
             return if span == Span::EMPTY {
                 Ok(Blob::None)
             } else {
                 Err(Error::LayerField {
                     index: layer,
-                    what: "blob reference length (op takes no such blob)",
+                    what: text!("blob reference length (op takes no such blob)"),
                     value: span.len,
                 })
             };
@@ -473,7 +472,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             if span.offset != 0 {
                 return Err(Error::LayerField {
                     index: layer,
-                    what: "offset of an empty blob (must be 0)",
+                    what: text!("offset of an empty blob (must be 0)"),
                     value: span.offset,
                 });
             }
@@ -495,7 +494,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         };
         let bad_len = Error::LayerField {
             index: layer,
-            what: "blob length (not a whole number of elements)",
+            what: text!("blob length (not a whole number of elements)"),
             value: span.len,
         };
         Ok(match ty {
@@ -517,13 +516,13 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
         let out_id = self.info.output as usize;
         if out_id == 0 || out_id >= tc {
             return Err(Error::BadField {
-                what: "output tensor id",
+                what: text!("output tensor id"),
                 value: out_id as u32,
             });
         }
         if lc + 1 != tc {
             return Err(Error::Layout {
-                what: "layer count (one layer per tensor besides the input)",
+                what: text!("layer count (one layer per tensor besides the input)"),
                 expected: tc.saturating_sub(1),
                 found: lc,
             });
@@ -539,7 +538,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             if h.output as usize != i + 1 {
                 return Err(Error::LayerField {
                     index: i,
-                    what: "output tensor id (layer i writes tensor i + 1)",
+                    what: text!("output tensor id (layer i writes tensor i + 1)"),
                     value: h.output as u32,
                 });
             }
@@ -548,7 +547,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
                 if t > i {
                     return Err(Error::Layer {
                         index: i,
-                        problem: "reads a tensor no earlier layer writes",
+                        problem: text!("reads a tensor no earlier layer writes"),
                     });
                 }
             }
@@ -559,19 +558,19 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
                 let want = format::align_up(cursor).unwrap_or(usize::MAX);
                 if span.offset as usize != want {
                     return Err(Error::Layout {
-                        what: "blob offset (blobs are packed in layer order)",
+                        what: text!("blob offset (blobs are packed in layer order)"),
                         expected: want,
                         found: span.offset as usize,
                     });
                 }
-                all_zero(self.bytes, cursor, want, "padding between blobs")?;
+                all_zero(self.bytes, cursor, want, text!("padding between blobs"))?;
                 cursor = span.range().map(|r| r.end).unwrap_or(usize::MAX);
             }
             ops::check_layer_ops::<OPS>(i, &l.layer, &l.a, l.b.as_ref(), &l.out)?;
         }
         if cursor != area.end {
             return Err(Error::Layout {
-                what: "blob area length",
+                what: text!("blob area length"),
                 expected: cursor.saturating_sub(area.start),
                 found: area.len(),
             });
@@ -938,7 +937,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             observer.before_layer(i);
             let outside = |index| Error::Tensor {
                 index,
-                problem: "not inside the workspace",
+                problem: text!("not inside the workspace"),
             };
             let out_id = layer.header.output as usize;
             let start = out.offset as usize;
@@ -985,7 +984,7 @@ impl<'a, const OPS: u32> Model<'a, OPS> {
             .and_then(|e| workspace.get(s..e))
             .ok_or(Error::Tensor {
                 index: self.output_id(),
-                problem: "not inside the workspace",
+                problem: text!("not inside the workspace"),
             })
     }
 }
@@ -1002,7 +1001,7 @@ const PLACEHOLDER: TensorRecord = TensorRecord {
 fn internal(index: usize) -> Error {
     Error::Layer {
         index,
-        problem: "blob type mismatch",
+        problem: text!("blob type mismatch"),
     }
 }
 

@@ -7,7 +7,7 @@ use std::vec;
 use std::vec::Vec;
 
 use crate::embed::AlignedBytes;
-use crate::error::Error;
+use crate::error::{Error, Text};
 use crate::format::{
     self, blob_types, canonical_sections, field, BlobType, FileHeader, HeaderView, InfoView,
     LayerRecord, LayerView, ModelInfo, Span, TensorView,
@@ -92,7 +92,7 @@ impl ParamsBuf {
     }
 }
 
-fn count_u16(what: &'static str, n: usize) -> Result<u16, Error> {
+fn count_u16(what: Text, n: usize) -> Result<u16, Error> {
     u16::try_from(n).map_err(|_| Error::BadField {
         what,
         value: u32::try_from(n).unwrap_or(u32::MAX),
@@ -101,7 +101,7 @@ fn count_u16(what: &'static str, n: usize) -> Result<u16, Error> {
 
 fn too_big() -> Error {
     Error::BadField {
-        what: "file length (over 4 GiB)",
+        what: text!("file length (over 4 GiB)"),
         value: u32::MAX,
     }
 }
@@ -114,13 +114,13 @@ impl ModelSpec {
     pub fn emit(&self) -> Result<Vec<u8>, Error> {
         if self.layers.len() > format::MAX_LAYERS {
             return Err(Error::BadField {
-                what: "layer count (at most 32768)",
+                what: text!("layer count (at most 32768)"),
                 value: u32::try_from(self.layers.len()).unwrap_or(u32::MAX),
             });
         }
-        let tensor_count = count_u16("tensor count", self.tensors.len())?;
-        let layer_count = count_u16("layer count", self.layers.len())?;
-        let label_count = count_u16("label count", self.labels.len())?;
+        let tensor_count = count_u16(text!("tensor count"), self.tensors.len())?;
+        let layer_count = count_u16(text!("layer count"), self.layers.len())?;
+        let label_count = count_u16(text!("label count"), self.labels.len())?;
 
         // Blob bytes per layer, with their types checked against the op.
         let mut blobs: Vec<[&[u8]; 3]> = Vec::with_capacity(self.layers.len());
@@ -136,13 +136,13 @@ impl ModelSpec {
                         value: id as u32,
                     })
             };
-            let a = elem("first input tensor id", h.inputs[0])?;
+            let a = elem(text!("first input tensor id"), h.inputs[0])?;
             let b = if h.op.arity() == 2 {
-                Some(elem("second input tensor id", h.inputs[1])?)
+                Some(elem(text!("second input tensor id"), h.inputs[1])?)
             } else {
                 None
             };
-            let out = elem("output tensor id", h.output)?;
+            let out = elem(text!("output tensor id"), h.output)?;
             let want = blob_types(h.op, a, b, out)
                 .map_err(|problem| Error::Layer { index: i, problem })?;
             let (wt, wb) = l.weights.bytes();
@@ -150,17 +150,17 @@ impl ModelSpec {
             let (pt, pb) = l.params.bytes();
             for (what, got, expected) in [
                 (
-                    "weights type does not match the op and tensor types",
+                    text!("weights type does not match the op and tensor types"),
                     wt,
                     want.weights,
                 ),
                 (
-                    "bias type does not match the op and tensor types",
+                    text!("bias type does not match the op and tensor types"),
                     bt,
                     want.bias,
                 ),
                 (
-                    "params type does not match the op and tensor types",
+                    text!("params type does not match the op and tensor types"),
                     pt,
                     want.params,
                 ),
@@ -200,7 +200,7 @@ impl ModelSpec {
         let mut strings = Vec::new();
         for (k, s) in core::iter::once(&self.name).chain(&self.labels).enumerate() {
             let len = u16::try_from(s.len()).map_err(|_| Error::BadField {
-                what: "string length (name is string 0, label i is string i+1)",
+                what: text!("string length (name is string 0, label i is string i+1)"),
                 value: k as u32,
             })?;
             strings.extend_from_slice(&len.to_le_bytes());

@@ -11,7 +11,7 @@ use midge_runtime::format::{field, MAX_LAYERS, SCALE_MAX, SCALE_MIN};
 use midge_runtime::write::{BiasBuf, LayerSpec, ModelSpec, ParamsBuf, WeightsBuf};
 use midge_runtime::{
     repr::{Activation, LayerHeader, Padding, Window},
-    ElemType, Error, Model, Op, Quant, Shape, TensorRecord,
+    ElemType, Error, Model, Op, Quant, Shape, TensorRecord, Text,
 };
 
 fn rec(c: u16, elem: ElemType, scale: f32, offset: u32) -> TensorRecord {
@@ -156,7 +156,9 @@ fn workspace_claim_is_what_the_tensors_need() {
         assert_eq!(
             parse(&patched(&bytes, ws_at, &claim.to_le_bytes())),
             Err(Error::Layout {
-                what: "workspace length (the end of the last tensor, rounded up to 8 at most)",
+                what: Text::new(
+                    "workspace length (the end of the last tensor, rounded up to 8 at most)"
+                ),
                 expected: 16,
                 found: claim as usize,
             }),
@@ -186,7 +188,7 @@ fn layer_count_limit() {
     assert_eq!(
         over.emit(),
         Err(Error::BadField {
-            what: "layer count (at most 32768)",
+            what: Text::new("layer count (at most 32768)"),
             value: MAX_LAYERS as u32 + 1,
         })
     );
@@ -196,7 +198,7 @@ fn layer_count_limit() {
     assert_eq!(
         parse(&patched(&bytes, at, &(MAX_LAYERS as u16 + 1).to_le_bytes())),
         Err(Error::BadField {
-            what: "layer count (at most 32768)",
+            what: Text::new("layer count (at most 32768)"),
             value: MAX_LAYERS as u32 + 1,
         })
     );
@@ -273,7 +275,7 @@ fn fp16_weights_and_biases_must_be_finite() {
             parse(&patched(&bytes, blob + 2 * k, &bits.to_le_bytes())),
             Err(Error::Layer {
                 index: 1,
-                problem: "fp16 weights must be finite (no inf or NaN)"
+                problem: Text::new("fp16 weights must be finite (no inf or NaN)")
             }),
             "element {k} = {bits:#06x}"
         );
@@ -283,7 +285,7 @@ fn fp16_weights_and_biases_must_be_finite() {
             fp16_dense(w, [0.0, b]).emit(),
             Err(Error::Layer {
                 index: 1,
-                problem: "fp16 layer bias must be finite (no inf or NaN)"
+                problem: Text::new("fp16 layer bias must be finite (no inf or NaN)")
             }),
             "bias {b}"
         );
@@ -311,7 +313,7 @@ fn fp16_clamps_stay_inside_the_binary16_range() {
             spec.emit(),
             Err(Error::Layer {
                 index: 1,
-                problem: "fp16 clamp must be ordered and within -65504..=65504"
+                problem: Text::new("fp16 clamp must be ordered and within -65504..=65504")
             }),
             "clamp {c:?}"
         );

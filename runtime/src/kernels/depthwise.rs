@@ -50,7 +50,7 @@ pub trait RowKernel {
 #[inline]
 pub fn row_fits(plane: &[u32], n: usize) -> Result<(), Error> {
     if !n.is_multiple_of(2) || n > STRIP || plane.len() < PLANE {
-        return Err(fault("depthwise row outside its plane"));
+        return Err(fault(text!("depthwise row outside its plane")));
     }
     Ok(())
 }
@@ -177,7 +177,7 @@ pub fn depthwise3x3<K: RowKernel>(
 ) -> Result<(), Error> {
     depthwise_lens::<Int8Arith<'_>>(x, xs, w, win, y, ys)?;
     if !fits(win) {
-        return Err(fault("depthwise3x3 takes 3×3 windows only"));
+        return Err(fault(text!("depthwise3x3 takes 3×3 windows only")));
     }
     let (ih, iw, c) = (xs.h as usize, xs.w as usize, xs.c as usize);
     let (oh, ow) = (ys.h as usize, ys.w as usize);
@@ -227,7 +227,9 @@ pub fn depthwise3x3<K: RowKernel>(
                 }
                 for (ky, r) in rows.iter().enumerate() {
                     if let (Some(iy), EMPTY) = (*r, slot_of[ky]) {
-                        let s = (0..3).find(|&s| !used[s]).ok_or(fault("depthwise slots"))?;
+                        let s = (0..3)
+                            .find(|&s| !used[s])
+                            .ok_or(fault(text!("depthwise slots")))?;
                         widen(
                             x,
                             iy,
@@ -268,7 +270,7 @@ pub fn depthwise3x3<K: RowKernel>(
                     let wk = [w01[0], w01[1], w01[2], pair(w2[0], w2[1]), pair(w2[2], 0)];
                     let plane = planes
                         .get_mut(i * PLANE..(i + 1) * PLANE)
-                        .ok_or(fault("depthwise plane"))?;
+                        .ok_or(fault(text!("depthwise plane")))?;
                     K::row(plane, &wk, n, stride2)?;
                 }
                 // Requantize the strip's pixels channel by channel (the
@@ -276,11 +278,11 @@ pub fn depthwise3x3<K: RowKernel>(
                 let at = (oy * ow + ox0) * c + c0;
                 let y_strip = y
                     .get_mut(at..at + (np - 1) * c + gc)
-                    .ok_or(fault("depthwise output too short"))?;
+                    .ok_or(fault(text!("depthwise output too short")))?;
                 for (i, k) in ch.iter().take(gc).enumerate() {
                     let add = k.bias.wrapping_add(corr[i]);
-                    let accs =
-                        part(&planes, i * PLANE + ACC, np).ok_or(fault("depthwise plane"))?;
+                    let accs = part(&planes, i * PLANE + ACC, np)
+                        .ok_or(fault(text!("depthwise plane")))?;
                     let ys = y_strip.iter_mut().skip(i).step_by(c);
                     for (yv, &s) in ys.zip(accs) {
                         *yv = a.finish_with((s as i32).wrapping_add(add), &k.rq);
@@ -311,9 +313,9 @@ fn widen(
     s: usize,
     planes: &mut [u32],
 ) -> Result<(), Error> {
-    let row = part(x, iy * iw * c, iw * c).ok_or(fault("depthwise input too short"))?;
+    let row = part(x, iy * iw * c, iw * c).ok_or(fault(text!("depthwise input too short")))?;
     if npairs == 0 || iw == 0 {
-        return Err(fault("depthwise empty row"));
+        return Err(fault(text!("depthwise empty row")));
     }
     // Pairs `k` in `ka..kb` read only columns inside the input: the first
     // column `j0 + k·sw ≥ 0` and the second `j0 + k·sw + 1 < iw`.
@@ -325,10 +327,10 @@ fn widen(
         let at = i * PLANE + s * RP;
         let slot = planes
             .get_mut(at..at + npairs)
-            .ok_or(fault("depthwise slot"))?;
+            .ok_or(fault(text!("depthwise slot")))?;
         let col = row
             .get(c0 + i..)
-            .ok_or(fault("depthwise input too short"))?;
+            .ok_or(fault(text!("depthwise input too short")))?;
         // Column `j` of this channel, `zp` outside the input.
         let v = |j: i64| -> i8 {
             if (0..iwi).contains(&j) {

@@ -108,7 +108,7 @@ impl MicroKernel for Dsp {
         let x_end = tab.max_x().checked_add(c).and_then(|v| v.checked_add(4));
         let w_end = tab.max_w().checked_add(c).and_then(|v| v.checked_add(4));
         if !matches!(x_end, Some(e) if e <= x.len()) || !matches!(w_end, Some(e) if e <= w.len()) {
-            return Err(fault("depthwise taps reach outside the slices"));
+            return Err(fault(text!("depthwise taps reach outside the slices")));
         }
         let px = x.as_ptr().wrapping_add(c);
         let pw = w.as_ptr().wrapping_add(c);
@@ -170,16 +170,18 @@ impl MicroKernel for Dsp {
         // The facts the asm block relies on, checked here in safe code:
         // row 0 has 4·groups bytes from `w`, row 1 as many from
         // `w + w_stride`, the panel 4·groups words, and 4 accumulators.
-        let k = groups.checked_mul(4).ok_or(fault("tile too long"))?;
-        let row1_end = w_stride.checked_add(k).ok_or(fault("tile too long"))?;
+        let k = groups.checked_mul(4).ok_or(fault(text!("tile too long")))?;
+        let row1_end = w_stride
+            .checked_add(k)
+            .ok_or(fault(text!("tile too long")))?;
         if w.len() < k || w.len() < row1_end {
-            return Err(fault("tile weights too short"));
+            return Err(fault(text!("tile weights too short")));
         }
         if panel.len() < k {
-            return Err(fault("tile panel too short"));
+            return Err(fault(text!("tile panel too short")));
         }
         let [a00, a01, a10, a11] = acc else {
-            return Err(fault("tile accumulators"));
+            return Err(fault(text!("tile accumulators")));
         };
         let w0 = w.as_ptr();
         let w1 = w.as_ptr().wrapping_add(w_stride);

@@ -118,7 +118,9 @@ impl Pool for AvgF16 {
 pub fn pixels(x: &[u8], params: &[f32], clamp: [f32; 2], y: &mut [f16]) -> Result<(), Error> {
     let c = params.len() / 2;
     if c == 0 || params.len() != 2 * c || x.len() != y.len() || !x.len().is_multiple_of(c) {
-        return Err(fault("pixels lengths do not match the channel count"));
+        return Err(fault(text!(
+            "pixels lengths do not match the channel count"
+        )));
     }
     for (x_px, y_px) in x.chunks_exact(c).zip(y.chunks_exact_mut(c)) {
         for ((&p, y), ab) in x_px.iter().zip(y_px.iter_mut()).zip(params.chunks_exact(2)) {
@@ -131,7 +133,7 @@ pub fn pixels(x: &[u8], params: &[f32], clamp: [f32; 2], y: &mut [f16]) -> Resul
 /// Elementwise fp16 add: f32 sum, clamped, stored as binary16.
 pub fn add(a: &[f16], b: &[f16], clamp: [f32; 2], y: &mut [f16]) -> Result<(), Error> {
     if a.len() != y.len() || b.len() != y.len() {
-        return Err(fault("add inputs and output differ in length"));
+        return Err(fault(text!("add inputs and output differ in length")));
     }
     for ((y, &xa), &xb) in y.iter_mut().zip(a).zip(b) {
         *y = store(xa.to_f32() + xb.to_f32(), clamp);
@@ -151,7 +153,7 @@ pub fn quantize(
     y: &mut [i8],
 ) -> Result<(), Error> {
     if x.len() != y.len() {
-        return Err(fault("quantize input and output differ in length"));
+        return Err(fault(text!("quantize input and output differ in length")));
     }
     const LIMIT: f32 = 32768.0;
     for (y, &v) in y.iter_mut().zip(x) {
@@ -175,7 +177,7 @@ pub fn dequantize(
     y: &mut [f16],
 ) -> Result<(), Error> {
     if x.len() != y.len() {
-        return Err(fault("dequantize input and output differ in length"));
+        return Err(fault(text!("dequantize input and output differ in length")));
     }
     for (y, &q) in y.iter_mut().zip(x) {
         let d = (q as i32).saturating_sub(zp);

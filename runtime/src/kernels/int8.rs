@@ -162,7 +162,9 @@ pub fn pixels(
 ) -> Result<(), Error> {
     let c = params.len() / 3;
     if c == 0 || params.len() != 3 * c || x.len() != y.len() || !x.len().is_multiple_of(c) {
-        return Err(fault("pixels lengths do not match the channel count"));
+        return Err(fault(text!(
+            "pixels lengths do not match the channel count"
+        )));
     }
     // A u8 input has 256 values, so with more pixels than that each
     // channel's map is worked out once into a table (256 requantizations
@@ -244,7 +246,7 @@ impl AddI8 {
 /// Elementwise int8 add of two tensors of the same shape.
 pub fn add(p: &AddI8, a: &[i8], b: &[i8], y: &mut [i8]) -> Result<(), Error> {
     if a.len() != y.len() || b.len() != y.len() {
-        return Err(fault("add inputs and output differ in length"));
+        return Err(fault(text!("add inputs and output differ in length")));
     }
     let pairs = y.iter_mut().zip(a).zip(b);
     match p.split_shift() {

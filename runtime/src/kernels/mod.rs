@@ -24,13 +24,13 @@ pub mod tile;
 
 pub use reference::{conv2d_ref, dense_ref, depthwise_ref, pool_ref};
 
-use crate::error::Error;
+use crate::error::{Error, Text};
 use crate::repr::{Shape, Window};
 
 /// Error for a state `check_layer` rules out (slice lengths that disagree
 /// with the shapes). The layer index is not known here; `exec::at_layer`
 /// fills it in.
-pub(crate) const fn fault(problem: &'static str) -> Error {
+pub(crate) const fn fault(problem: Text) -> Error {
     Error::Layer {
         index: usize::MAX,
         problem,
@@ -99,11 +99,10 @@ pub fn tap(o: usize, k: usize, stride: u16, dil: u16, pad_lo: u16, len: usize) -
     }
 }
 
-/// Number of in-bounds taps of output position `o` along one axis.
-pub fn taps_in_bounds(o: usize, k: u16, stride: u16, dil: u16, pad_lo: u16, len: usize) -> u32 {
-    (0..k as usize)
-        .filter(|&t| tap(o, t, stride, dil, pad_lo, len).is_some())
-        .count() as u32
+/// Whether output position `o` has an in-bounds tap along one axis (stops
+/// at the first: a parse-time check, so a short loop).
+pub fn has_tap_in_bounds(o: usize, k: u16, stride: u16, dil: u16, pad_lo: u16, len: usize) -> bool {
+    (0..k as usize).any(|t| tap(o, t, stride, dil, pad_lo, len).is_some())
 }
 
 /// The taps `k` in `lo..hi` of output position `o` along one axis are the
@@ -181,10 +180,10 @@ pub const fn global_window(h: u16, w: u16) -> Window {
 /// Checks the slice lengths every loop nest relies on.
 pub(crate) fn check_lens(x_len: usize, xs: Shape, y_len: usize, ys: Shape) -> Result<(), Error> {
     if x_len != xs.elems() {
-        return Err(fault("input length does not match its shape"));
+        return Err(fault(text!("input length does not match its shape")));
     }
     if y_len != ys.elems() {
-        return Err(fault("output length does not match its shape"));
+        return Err(fault(text!("output length does not match its shape")));
     }
     Ok(())
 }
@@ -231,12 +230,14 @@ pub fn pointwise<A: Arith>(
         return Ok(());
     }
     if !x.len().is_multiple_of(in_c) || y.len() != (x.len() / in_c).saturating_mul(out_c) {
-        return Err(fault("pointwise lengths do not match the channel counts"));
+        return Err(fault(text!(
+            "pointwise lengths do not match the channel counts"
+        )));
     }
     if Some(w.len()) != out_c.checked_mul(in_c) {
-        return Err(fault(
-            "pointwise weight length does not match the channel counts",
-        ));
+        return Err(fault(text!(
+            "pointwise weight length does not match the channel counts"
+        )));
     }
     for (x_px, y_px) in x.chunks_exact(in_c).zip(y.chunks_exact_mut(out_c)) {
         matvec(a, x_px, w, y_px);
@@ -335,7 +336,9 @@ pub fn conv2d_fast<A: Arith>(
     check_lens(x.len(), xs, y.len(), ys)?;
     let (ic, oc) = (xs.c as usize, ys.c as usize);
     if conv_weight_len(win, ic, oc) != Some(w.len()) {
-        return Err(fault("conv2d weight length does not match the window"));
+        return Err(fault(text!(
+            "conv2d weight length does not match the window"
+        )));
     }
     if is_pointwise(win) && xs.h == ys.h && xs.w == ys.w {
         return pointwise(a, x, ic, w, y, oc);
@@ -356,7 +359,7 @@ pub fn conv2d_fast<A: Arith>(
         // [kh][kw][in_c] order, then one matrix-vector product.
         let pad = a.pad();
         let mut buf = [pad; PATCH];
-        let patch = buf.get_mut(..k_len).ok_or(fault("conv2d patch"))?;
+        let patch = buf.get_mut(..k_len).ok_or(fault(text!("conv2d patch")))?;
         let row_len = win.kw as usize * ic;
         return pixels_fast(xs, win, y, ys, |at, y_px| {
             let (kx0, kx1) = at.rx;
@@ -375,7 +378,7 @@ pub fn conv2d_fast<A: Arith>(
                     let dst = dst.get_mut(kx0 * ic..).and_then(|d| d.get_mut(..n));
                     match (src, dst) {
                         (Some(src), Some(dst)) => dst.copy_from_slice(src),
-                        _ => return Err(fault("conv2d input too short")),
+                        _ => return Err(fault(text!("conv2d input too short"))),
                     }
                 } else {
                     for (kx, dst) in dst.chunks_exact_mut(ic).enumerate() {
@@ -383,8 +386,8 @@ pub fn conv2d_fast<A: Arith>(
                             continue;
                         }
                         let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
-                        let src =
-                            part(x, (row + ix) * ic, ic).ok_or(fault("conv2d input too short"))?;
+                        let src = part(x, (row + ix) * ic, ic)
+                            .ok_or(fault(text!("conv2d input too short")))?;
                         dst.copy_from_slice(src);
                     }
                 }
@@ -409,12 +412,14 @@ pub fn conv2d_fast<A: Arith>(
     pixels_fast(xs, win, y, ys, |at, y_px| {
         for (b, y_blk) in y_px.chunks_mut(ACCS).enumerate() {
             let o0 = b * ACCS;
-            let acc = accs.get_mut(..y_blk.len()).ok_or(fault("conv2d block"))?;
+            let acc = accs
+                .get_mut(..y_blk.len())
+                .ok_or(fault(text!("conv2d block")))?;
             start_all(a, acc, o0);
             let mut k0 = 0;
             while k0 < k_len {
                 let n = PATCH.min(k_len - k0);
-                let patch = buf.get_mut(..n).ok_or(fault("conv2d patch"))?;
+                let patch = buf.get_mut(..n).ok_or(fault(text!("conv2d patch")))?;
                 gather(x, pad, win, at, k0, patch)?;
                 let w_blk = w.get(o0 * k_len + k0..).unwrap_or(&[]);
                 dot_rows::<A>(acc, patch, w_blk, k_len)?;
@@ -449,7 +454,8 @@ fn dot_rows<A: Arith>(
     stride: usize,
 ) -> Result<(), Error> {
     let k = x.len();
-    let row = |j: usize| part(w, j.wrapping_mul(stride), k).ok_or(fault("weights too short"));
+    let row =
+        |j: usize| part(w, j.wrapping_mul(stride), k).ok_or(fault(text!("weights too short")));
     let mut j: usize = 0;
     let rest = if A::GROUPED {
         let mut groups = acc.chunks_exact_mut(GROUP);
@@ -457,7 +463,8 @@ fn dot_rows<A: Arith>(
         for acc4 in &mut groups {
             // One bounds check for the four rows; `zip` with `x` reads
             // only the first `k` values of each.
-            let blk = part(w, j.wrapping_mul(stride), span).ok_or(fault("weights too short"))?;
+            let blk =
+                part(w, j.wrapping_mul(stride), span).ok_or(fault(text!("weights too short")))?;
             let (w0, r) = blk.split_at(stride.min(blk.len()));
             let (w1, r) = r.split_at(stride.min(r.len()));
             let (w2, w3) = r.split_at(stride.min(r.len()));
@@ -512,7 +519,7 @@ pub(crate) fn gather<X: Copy>(
                 dst.copy_from_slice(src);
                 Ok(())
             }
-            _ => Err(fault("conv2d input too short")),
+            _ => Err(fault(text!("conv2d input too short"))),
         }
     };
     for ky in at.ry.0..at.ry.1 {
@@ -547,7 +554,9 @@ pub(crate) fn depthwise_lens<A: Arith>(
 ) -> Result<(), Error> {
     check_lens(x.len(), xs, y.len(), ys)?;
     if xs.c != ys.c || conv_weight_len(win, xs.c as usize, 1) != Some(w.len()) {
-        return Err(fault("depthwise weight or channel count does not match"));
+        return Err(fault(text!(
+            "depthwise weight or channel count does not match"
+        )));
     }
     Ok(())
 }
@@ -579,11 +588,11 @@ pub fn depthwise_fast<A: Arith>(
         for (i, p) in buf.iter_mut().take(n).enumerate() {
             *p = a.prep(c0 + i);
         }
-        let preps = buf.get(..n).ok_or(fault("depthwise chunk"))?;
+        let preps = buf.get(..n).ok_or(fault(text!("depthwise chunk")))?;
         pixels_fast(xs, win, y, ys, |at, y_px| {
             let y_chunk = y_px
                 .get_mut(c0..c0 + n)
-                .ok_or(fault("depthwise output too short"))?;
+                .ok_or(fault(text!("depthwise output too short")))?;
             depthwise_chunk(a, x, w, win, at, c0, y_chunk, preps)
         })?;
     }
@@ -608,23 +617,24 @@ pub(crate) fn depthwise_chunk<A: Arith>(
 ) -> Result<(), Error> {
     let n = y.len();
     let mut buf = [a.start(0); CHUNK];
-    let acc = buf.get_mut(..n).ok_or(fault("depthwise chunk"))?;
+    let acc = buf.get_mut(..n).ok_or(fault(text!("depthwise chunk")))?;
     start_all(a, acc, c0);
     let pads = [a.pad(); CHUNK];
-    let pads = pads.get(..n).ok_or(fault("depthwise chunk"))?;
+    let pads = pads.get(..n).ok_or(fault(text!("depthwise chunk")))?;
     let kw = win.kw as usize;
     // Input slice of tap (ky, kx): the input or, for a padded tap, `pads`.
     let x_tap = |ky: usize, kx: usize| -> Result<&[A::X], Error> {
         if (at.ry.0..at.ry.1).contains(&ky) && (at.rx.0..at.rx.1).contains(&kx) {
             let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
             let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
-            part(x, (iy * at.iw + ix) * at.c + c0, n).ok_or(fault("depthwise input too short"))
+            part(x, (iy * at.iw + ix) * at.c + c0, n)
+                .ok_or(fault(text!("depthwise input too short")))
         } else {
             Ok(pads)
         }
     };
     let w_tap = |t: usize| -> Result<&[A::W], Error> {
-        part(w, t * at.c + c0, n).ok_or(fault("depthwise weights too short"))
+        part(w, t * at.c + c0, n).ok_or(fault(text!("depthwise weights too short")))
     };
     for ky in 0..win.kh as usize {
         let mut kx = 0;
@@ -769,13 +779,13 @@ fn pool_chunk<P: Pool>(
 ) -> Result<(), Error> {
     let n = y.len();
     let mut buf = [p.init(); CHUNK];
-    let acc = buf.get_mut(..n).ok_or(fault("pooling chunk"))?;
+    let acc = buf.get_mut(..n).ok_or(fault(text!("pooling chunk")))?;
     for ky in at.ry.0..at.ry.1 {
         let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
         for kx in at.rx.0..at.rx.1 {
             let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
             let x_t = part(x, (iy * at.iw + ix) * at.c + c0, n)
-                .ok_or(fault("pooling input too short"))?;
+                .ok_or(fault(text!("pooling input too short")))?;
             for (acc, &xv) in acc.iter_mut().zip(x_t) {
                 *acc = p.step(*acc, xv);
             }
@@ -793,7 +803,7 @@ fn pool_chunk<P: Pool>(
 pub(crate) fn pool_lens(x_len: usize, xs: Shape, y_len: usize, ys: Shape) -> Result<(), Error> {
     check_lens(x_len, xs, y_len, ys)?;
     if xs.c != ys.c {
-        return Err(fault("pooling changes the channel count"));
+        return Err(fault(text!("pooling changes the channel count")));
     }
     Ok(())
 }

@@ -69,11 +69,13 @@ fn conv2d_pixel_ref<A: Arith>(
             let wo = (o * taps + t) * ic;
             let w_tap = w
                 .get(wo..wo + ic)
-                .ok_or(fault("conv2d weights too short"))?;
+                .ok_or(fault(text!("conv2d weights too short")))?;
             match px {
                 Some(px) => {
                     let xo = px * ic;
-                    let x_tap = x.get(xo..xo + ic).ok_or(fault("conv2d input too short"))?;
+                    let x_tap = x
+                        .get(xo..xo + ic)
+                        .ok_or(fault(text!("conv2d input too short")))?;
                     acc = A::dot(acc, x_tap, w_tap);
                 }
                 None => {
@@ -99,7 +101,9 @@ pub fn conv2d_ref<A: Arith>(
 ) -> Result<(), Error> {
     check_lens(x.len(), xs, y.len(), ys)?;
     if conv_weight_len(win, xs.c as usize, ys.c as usize) != Some(w.len()) {
-        return Err(fault("conv2d weight length does not match the window"));
+        return Err(fault(text!(
+            "conv2d weight length does not match the window"
+        )));
     }
     pixels_ref(y, ys.w as usize, ys.c as usize, |oy, ox, y_px| {
         conv2d_pixel_ref(a, x, xs, w, win, oy, ox, y_px)
@@ -125,11 +129,11 @@ fn depthwise_pixel_ref<A: Arith>(
         for (t, px) in taps_ref(xs, win, oy, ox) {
             let wv = *w
                 .get(t * c + ch)
-                .ok_or(fault("depthwise weights too short"))?;
+                .ok_or(fault(text!("depthwise weights too short")))?;
             let xv = match px {
                 Some(px) => *x
                     .get(px * c + ch)
-                    .ok_or(fault("depthwise input too short"))?,
+                    .ok_or(fault(text!("depthwise input too short")))?,
                 None => a.pad(),
             };
             acc = A::mac(acc, xv, wv);
@@ -158,14 +162,14 @@ pub fn depthwise_ref<A: Arith>(
 /// Reference dense (the oracle for `dense`): each output one dot product.
 pub fn dense_ref<A: Arith>(a: &A, x: &[A::X], w: &[A::W], y: &mut [A::X]) -> Result<(), Error> {
     if Some(w.len()) != y.len().checked_mul(x.len()) {
-        return Err(fault("dense weight length does not match"));
+        return Err(fault(text!("dense weight length does not match")));
     }
     for (o, y) in y.iter_mut().enumerate() {
         let mut acc = a.start(o);
         for (i, &xv) in x.iter().enumerate() {
             let wv = *w
                 .get(o * x.len() + i)
-                .ok_or(fault("dense weights too short"))?;
+                .ok_or(fault(text!("dense weights too short")))?;
             acc = A::mac(acc, xv, wv);
         }
         *y = a.finish(acc, o);
@@ -194,7 +198,9 @@ pub fn pool_ref<P: Pool>(
                 let Some(px) = px else {
                     continue;
                 };
-                let xv = *x.get(px * c + ch).ok_or(fault("pooling input too short"))?;
+                let xv = *x
+                    .get(px * c + ch)
+                    .ok_or(fault(text!("pooling input too short")))?;
                 acc = p.step(acc, xv);
                 count = count.saturating_add(1);
             }

@@ -201,14 +201,14 @@ fn gather_panel<K: MicroKernel>(
             let longer = (k0 + n).next_multiple_of(4) - k0;
             let src = match spill.then(|| part(x, at_x, longer)).flatten() {
                 Some(src) => src,
-                None => part(x, at_x, n).ok_or(fault("conv2d input too short"))?,
+                None => part(x, at_x, n).ok_or(fault(text!("conv2d input too short")))?,
             };
             put_clipped::<K>(src, k0, kc, panel, j);
         } else {
             for kx in kx0..kx1 {
                 let ix = pos(at.ox, kx, win.stride_w, win.dil_w, win.pad_left);
-                let src =
-                    part(x, (iy * at.iw + ix) * ic, ic).ok_or(fault("conv2d input too short"))?;
+                let src = part(x, (iy * at.iw + ix) * ic, ic)
+                    .ok_or(fault(text!("conv2d input too short")))?;
                 put_clipped::<K>(src, ky * pitch + kx * ic, kc, panel, j);
             }
         }
@@ -240,15 +240,18 @@ fn gather_whole<K: MicroKernel>(
         for ky in at.ry.0..at.ry.1 {
             let iy = pos(at.oy, ky, win.stride_h, win.dil_h, win.pad_top);
             let ix = pos(at.ox, kx0, win.stride_w, 1, win.pad_left);
-            let src = part(x, (iy * at.iw + ix) * ic, n).ok_or(fault("conv2d input too short"))?;
+            let src =
+                part(x, (iy * at.iw + ix) * ic, n).ok_or(fault(text!("conv2d input too short")))?;
             let k0 = ky * row_len + kx0 * ic;
-            let dst = buf.get_mut(k0..k0 + n).ok_or(fault("conv2d window"))?;
+            let dst = buf
+                .get_mut(k0..k0 + n)
+                .ok_or(fault(text!("conv2d window")))?;
             for (d, &v) in dst.iter_mut().zip(src) {
                 *d = v;
             }
         }
     }
-    let src = buf.get(..k_pad).ok_or(fault("conv2d window"))?;
+    let src = buf.get(..k_pad).ok_or(fault(text!("conv2d window")))?;
     if let Some(dst) = panel.get_mut(2 * j..) {
         K::pack(src, dst, 2 * K::NR);
     }
@@ -269,21 +272,21 @@ impl MicroKernel for Portable {
         groups: usize,
         acc: &mut [i32],
     ) -> Result<(), Error> {
-        let k = groups.checked_mul(4).ok_or(fault("tile too long"))?;
+        let k = groups.checked_mul(4).ok_or(fault(text!("tile too long")))?;
         let half = |word: u32, h: u32| (word >> (16 * h)) as u16 as i16 as i32;
         for i in 0..Self::MR {
-            let row =
-                part(w, i.wrapping_mul(w_stride), k).ok_or(fault("tile weights too short"))?;
+            let row = part(w, i.wrapping_mul(w_stride), k)
+                .ok_or(fault(text!("tile weights too short")))?;
             for j in 0..Self::NR {
                 let s = acc
                     .get_mut(i * Self::NR + j)
-                    .ok_or(fault("tile accumulators"))?;
+                    .ok_or(fault(text!("tile accumulators")))?;
                 let mut v = *s;
                 for (g, wv) in row.chunks_exact(4).enumerate() {
                     let at = (g * Self::NR + j) * 2;
                     let (e, o) = match (panel.get(at), panel.get(at + 1)) {
                         (Some(&e), Some(&o)) => (e, o),
-                        _ => return Err(fault("tile panel too short")),
+                        _ => return Err(fault(text!("tile panel too short"))),
                     };
                     v = v
                         .wrapping_add(half(e, 0) * wv[0] as i32)
@@ -340,7 +343,9 @@ pub fn conv2d<K: MicroKernel>(
     check_lens(x.len(), xs, y.len(), ys)?;
     let (ic, oc) = (xs.c as usize, ys.c as usize);
     if conv_weight_len(win, ic, oc) != Some(w.len()) {
-        return Err(fault("conv2d weight length does not match the window"));
+        return Err(fault(text!(
+            "conv2d weight length does not match the window"
+        )));
     }
     let k_len = win.kh as usize * win.kw as usize * ic;
     let nr = K::NR;
@@ -393,11 +398,11 @@ pub fn conv2d<K: MicroKernel>(
             *r = a.rq(o0 + i);
             *b = a.start(o0 + i);
         }
-        let wb = part(w, o0 * k_len, nb * k_len).ok_or(fault("conv2d weights too short"))?;
+        let wb = part(w, o0 * k_len, nb * k_len).ok_or(fault(text!("conv2d weights too short")))?;
         let wb = if padded || whole {
             let dst = wbuf
                 .get_mut(..nb * k_pan)
-                .ok_or(fault("conv2d weight copy"))?;
+                .ok_or(fault(text!("conv2d weight copy")))?;
             for (d, s) in dst.chunks_exact_mut(wpitch).zip(wb.chunks_exact(wrow)) {
                 let (v, z) = d.split_at_mut(wrow.min(d.len()));
                 v.copy_from_slice(s.get(..v.len()).unwrap_or(&[]));
@@ -425,7 +430,7 @@ pub fn conv2d<K: MicroKernel>(
             let np = nr.min(npx - p0);
             let panel = panel_buf
                 .get_mut(..kn.div_ceil(4) * 2 * nr)
-                .ok_or(fault("conv2d panel"))?;
+                .ok_or(fault(text!("conv2d panel")))?;
             g.pixels::<K>(0, kn, p0, np, panel)?;
             channels::<K>(
                 wb,
@@ -440,7 +445,7 @@ pub fn conv2d<K: MicroKernel>(
             }
             for (j, acc) in accs.iter().take(np).enumerate() {
                 let at = (p0 + j) * oc + o0;
-                let y_px = part_mut(y, at, nb).ok_or(fault("conv2d output too short"))?;
+                let y_px = part_mut(y, at, nb).ok_or(fault(text!("conv2d output too short")))?;
                 finish_row(a, acc, &rq, y_px);
             }
         }
@@ -497,7 +502,8 @@ impl Gather<'_> {
         for j in 0..K::NR {
             let p = p0 + j.min(np.saturating_sub(1));
             if self.pointwise {
-                let src = part(self.x, p * ic + kc, kn).ok_or(fault("conv2d input too short"))?;
+                let src =
+                    part(self.x, p * ic + kc, kn).ok_or(fault(text!("conv2d input too short")))?;
                 put_run::<K>(src, 0, panel, j);
                 continue;
             }
@@ -536,15 +542,17 @@ fn more_panels<K: MicroKernel>(
     accs: &mut Accs,
 ) -> Result<(), Error> {
     let zeros = [0i32; OCB];
-    let zeros = zeros.get(..nb).ok_or(fault("conv2d block"))?;
+    let zeros = zeros.get(..nb).ok_or(fault(text!("conv2d block")))?;
     let mut more: Accs = [[0; OCB]; MAX_NR];
     for kc in (PANEL_K..g.k_pan).step_by(PANEL_K) {
         let kn = PANEL_K.min(g.k_pan - kc);
         let panel = panel_buf
             .get_mut(..kn.div_ceil(4) * 2 * K::NR)
-            .ok_or(fault("conv2d panel"))?;
+            .ok_or(fault(text!("conv2d panel")))?;
         g.pixels::<K>(kc, kn, p0, np, panel)?;
-        let wc = wb.get(kc..).ok_or(fault("conv2d weights too short"))?;
+        let wc = wb
+            .get(kc..)
+            .ok_or(fault(text!("conv2d weights too short")))?;
         channels::<K>(wc, g.k_pan, kn, panel, zeros, &mut more)?;
         for (row, add) in accs.iter_mut().zip(&more) {
             for (s, &v) in row.iter_mut().zip(add).take(nb) {
@@ -576,14 +584,14 @@ fn channels<K: MicroKernel>(
     for (t, b) in bias.chunks_exact(mr).enumerate() {
         let wt = w
             .get(t * mr * w_stride..)
-            .ok_or(fault("conv2d weights too short"))?;
+            .ok_or(fault(text!("conv2d weights too short")))?;
         one_tile::<K>(wt, k_len, w_stride, panel, b, t * mr, mr, accs)?;
     }
     for o in full..nb {
         let wt = w
             .get(o * w_stride..)
-            .ok_or(fault("conv2d weights too short"))?;
-        let b = bias.get(o..o + 1).ok_or(fault("conv2d bias"))?;
+            .ok_or(fault(text!("conv2d weights too short")))?;
+        let b = bias.get(o..o + 1).ok_or(fault(text!("conv2d bias")))?;
         one_tile::<K>(wt, k_len, 0, panel, b, o, 1, accs)?;
     }
     Ok(())
@@ -606,7 +614,9 @@ fn one_tile<K: MicroKernel>(
     let (mr, nr) = (K::MR, K::NR);
     let groups = k_len / 4;
     let mut buf = [0i32; MAX_MR * MAX_NR];
-    let acc = buf.get_mut(..mr * nr).ok_or(fault("tile accumulators"))?;
+    let acc = buf
+        .get_mut(..mr * nr)
+        .ok_or(fault(text!("tile accumulators")))?;
     for (i, row) in acc.chunks_exact_mut(nr).enumerate() {
         row.fill(bias.get(i).or(bias.first()).copied().unwrap_or(0));
     }
@@ -616,18 +626,21 @@ fn one_tile<K: MicroKernel>(
             for (i, row) in acc.chunks_exact_mut(nr).enumerate() {
                 let wv = *wt
                     .get(i * stride + k)
-                    .ok_or(fault("conv2d weights too short"))? as i32;
+                    .ok_or(fault(text!("conv2d weights too short")))?
+                    as i32;
                 for (j, s) in row.iter_mut().enumerate() {
-                    let xv = panel_value(panel, nr, j, k).ok_or(fault("tile panel"))?;
+                    let xv = panel_value(panel, nr, j, k).ok_or(fault(text!("tile panel")))?;
                     *s = s.wrapping_add(xv * wv);
                 }
             }
         }
     }
     for (j, dst) in accs.iter_mut().take(nr).enumerate() {
-        let dst = part_mut(dst, o, rows).ok_or(fault("tile accumulators"))?;
+        let dst = part_mut(dst, o, rows).ok_or(fault(text!("tile accumulators")))?;
         for (i, d) in dst.iter_mut().enumerate() {
-            *d = *acc.get(i * nr + j).ok_or(fault("tile accumulators"))?;
+            *d = *acc
+                .get(i * nr + j)
+                .ok_or(fault(text!("tile accumulators")))?;
         }
     }
     Ok(())
@@ -705,8 +718,8 @@ pub(crate) fn taps4_portable(
     acc: &mut [i32; 4],
 ) -> Result<(), Error> {
     for &[xo, wo] in tab.entries() {
-        let xs = part(x, xo as usize + c, 4).ok_or(fault("depthwise input too short"))?;
-        let ws = part(w, wo as usize + c, 4).ok_or(fault("depthwise weights too short"))?;
+        let xs = part(x, xo as usize + c, 4).ok_or(fault(text!("depthwise input too short")))?;
+        let ws = part(w, wo as usize + c, 4).ok_or(fault(text!("depthwise weights too short")))?;
         for ((a, &xv), &wv) in acc.iter_mut().zip(xs).zip(ws) {
             *a = a.wrapping_add(xv as i32 * wv as i32);
         }
@@ -764,12 +777,12 @@ pub fn depthwise<K: MicroKernel>(
             *r = a.rq(c0 + i);
             *b = a.start(c0 + i);
         }
-        let preps = rq.get(..nb).ok_or(fault("depthwise block"))?;
+        let preps = rq.get(..nb).ok_or(fault(text!("depthwise block")))?;
         let n4 = nb / 4 * 4;
         pixels_fast(xs, win, y, ys, |at, y_px| {
             let y_blk = y_px
                 .get_mut(c0..c0 + nb)
-                .ok_or(fault("depthwise output too short"))?;
+                .ok_or(fault(text!("depthwise output too short")))?;
             // In-bounds taps into the table; padded taps read the input
             // zero point, so they add zp·w, summed here (wrapping sums in
             // any order give the same result).
@@ -809,8 +822,8 @@ pub fn depthwise<K: MicroKernel>(
                 let cg = c0 + 4 * g;
                 K::taps4(x, w, &tab, cg, &mut acc)?;
                 for &t in padded {
-                    let ws =
-                        part(w, t as usize + cg, 4).ok_or(fault("depthwise weights too short"))?;
+                    let ws = part(w, t as usize + cg, 4)
+                        .ok_or(fault(text!("depthwise weights too short")))?;
                     for (s, &wv) in acc.iter_mut().zip(ws) {
                         *s = s.wrapping_add(zp * wv as i32);
                     }

@@ -20,25 +20,29 @@ impl OpRules for Add {
     const WINDOW: bool = false;
 
     fn check(cx: &Cx<'_, '_>) -> Result<(), Error> {
-        let b = cx.b.ok_or(cx.bad("add needs two inputs"))?;
+        let b = cx.b.ok_or(cx.bad(text!("add needs two inputs")))?;
         if cx.a.shape != b.shape || cx.a.shape != cx.out.shape {
-            return Err(cx.bad("add inputs and output must have the same shape"));
+            return Err(cx.bad(text!("add inputs and output must have the same shape")));
         }
-        let elem = cx.same_elem("add input and output must both be int8 or both fp16")?;
+        let elem = cx.same_elem(text!("add input and output must both be int8 or both fp16"))?;
         if b.elem != elem {
-            return Err(cx.bad("add inputs must have the same element type"));
+            return Err(cx.bad(text!("add inputs must have the same element type")));
         }
-        cx.no_weights("add takes no weights or bias")?;
+        cx.no_weights(text!("add takes no weights or bias"))?;
         if elem == I8 {
-            let p = cx.params_i32("int8 add needs i32 parameters [ma, mb, rshift]")?;
+            let p = cx.params_i32(text!("int8 add needs i32 parameters [ma, mb, rshift]"))?;
             let [ma, mb, s] = *p else {
-                return Err(cx.bad("int8 add needs exactly 3 parameters [ma, mb, rshift]"));
+                return Err(cx.bad(text!(
+                    "int8 add needs exactly 3 parameters [ma, mb, rshift]"
+                )));
             };
             if !requant_in_range(ma, s) || !requant_in_range(mb, s) {
-                return Err(cx.bad("add multipliers must be in 0..2^31 and rshift in 1..=62"));
+                return Err(cx.bad(text!(
+                    "add multipliers must be in 0..2^31 and rshift in 1..=62"
+                )));
             }
         } else if !params_absent(&cx.layer.params) {
-            return Err(cx.bad("fp16 add takes no parameters"));
+            return Err(cx.bad(text!("fp16 add takes no parameters")));
         }
         Ok(())
     }
@@ -50,13 +54,13 @@ impl OpRules for Add {
 
     fn run<const OPS: u32, const FAST: bool>(io: Io<'_, '_>) -> Result<(), Error> {
         let h = &io.layer.header;
-        let (tb, xb) = io.b.ok_or(fault("add needs two inputs"))?;
+        let (tb, xb) = io.b.ok_or(fault(text!("add needs two inputs")))?;
         match (io.ta.elem, io.to.elem) {
             (I8, I8) if const { linked::<OPS>(Op::Add, I8) } => {
                 let p = super::params_i32(&io.layer.params)
-                    .ok_or(fault("int8 add needs parameters"))?;
+                    .ok_or(fault(text!("int8 add needs parameters")))?;
                 let [ma, mb, rshift] = *p else {
-                    return Err(fault("int8 add needs exactly 3 parameters"));
+                    return Err(fault(text!("int8 add needs exactly 3 parameters")));
                 };
                 let add = int8::AddI8 {
                     zp_a: io.ta.quant.zero_point,

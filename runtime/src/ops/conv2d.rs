@@ -19,7 +19,9 @@ impl OpRules for Conv2d {
     const WINDOW: bool = true;
 
     fn check(cx: &Cx<'_, '_>) -> Result<(), Error> {
-        let elem = cx.same_elem("conv2d input and output must both be int8 or both fp16")?;
+        let elem = cx.same_elem(text!(
+            "conv2d input and output must both be int8 or both fp16"
+        ))?;
         cx.window_shape()?;
         let win = &cx.layer.header.window;
         let (ic, oc) = (cx.a.shape.c as usize, cx.out.shape.c as usize);
@@ -28,9 +30,12 @@ impl OpRules for Conv2d {
             .and_then(|t| t.checked_mul(ic));
         let w_len = per_out.and_then(|p| p.checked_mul(oc));
         let per = per_out.unwrap_or(0);
-        weighted::check(cx, elem, oc, w_len, |w, o| {
-            weighted::abs_sum(w.iter().skip(o * per).take(per).copied())
-        })
+        let rows = weighted::Rows {
+            first: per,
+            stride: 1,
+            count: per,
+        };
+        weighted::check(cx, elem, oc, w_len, rows)
     }
 
     /// `out_h·out_w·out_c·kh·kw·in_c`.

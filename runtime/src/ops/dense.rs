@@ -19,14 +19,19 @@ impl OpRules for Dense {
     const WINDOW: bool = false;
 
     fn check(cx: &Cx<'_, '_>) -> Result<(), Error> {
-        let elem = cx.same_elem("dense input and output must both be int8 or both fp16")?;
+        let elem = cx.same_elem(text!(
+            "dense input and output must both be int8 or both fp16"
+        ))?;
         if cx.out.shape.h != 1 || cx.out.shape.w != 1 {
-            return Err(cx.bad("dense output must be 1x1xN"));
+            return Err(cx.bad(text!("dense output must be 1x1xN")));
         }
         let (n_in, oc) = (cx.a.shape.elems(), cx.out.shape.c as usize);
-        weighted::check(cx, elem, oc, n_in.checked_mul(oc), |w, o| {
-            weighted::abs_sum(w.iter().skip(o * n_in).take(n_in).copied())
-        })
+        let rows = weighted::Rows {
+            first: n_in,
+            stride: 1,
+            count: n_in,
+        };
+        weighted::check(cx, elem, oc, n_in.checked_mul(oc), rows)
     }
 
     /// `in_elems·out_elems`.

@@ -19,19 +19,24 @@ impl OpRules for Depthwise {
     const WINDOW: bool = true;
 
     fn check(cx: &Cx<'_, '_>) -> Result<(), Error> {
-        let elem = cx.same_elem("depthwise input and output must both be int8 or both fp16")?;
+        let elem = cx.same_elem(text!(
+            "depthwise input and output must both be int8 or both fp16"
+        ))?;
         let (ic, oc) = (cx.a.shape.c as usize, cx.out.shape.c as usize);
         if ic != oc {
-            return Err(cx.bad("depthwise (multiplier 1) keeps the channel count"));
+            return Err(cx.bad(text!("depthwise (multiplier 1) keeps the channel count")));
         }
         cx.window_shape()?;
         let win = &cx.layer.header.window;
         let w_len = (win.kh as usize)
             .checked_mul(win.kw as usize)
             .and_then(|t| t.checked_mul(oc));
-        weighted::check(cx, elem, oc, w_len, |w, o| {
-            weighted::abs_sum(w.iter().skip(o).step_by(oc.max(1)).copied())
-        })
+        let rows = weighted::Rows {
+            first: 1,
+            stride: oc.max(1),
+            count: usize::MAX,
+        };
+        weighted::check(cx, elem, oc, w_len, rows)
     }
 
     /// `out_h·out_w·c·kh·kw`.

@@ -19,13 +19,13 @@ impl OpRules for Dequantize {
 
     fn check(cx: &Cx<'_, '_>) -> Result<(), Error> {
         if cx.a.elem != I8 || cx.out.elem != F16 {
-            return Err(cx.bad("dequantize reads int8 and writes fp16"));
+            return Err(cx.bad(text!("dequantize reads int8 and writes fp16")));
         }
-        cx.same_shape("dequantize keeps the shape")?;
+        cx.same_shape(text!("dequantize keeps the shape"))?;
         if !scale_in_range(cx.a.quant.scale) {
-            return Err(cx.bad("dequantize input scale must be finite and positive"));
+            return Err(cx.bad(text!("dequantize input scale must be finite and positive")));
         }
-        cx.no_blobs("dequantize takes no weights, bias or parameters")
+        cx.no_blobs(text!("dequantize takes no weights, bias or parameters"))
     }
 
     /// 0: no weights.

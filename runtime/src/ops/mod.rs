@@ -15,7 +15,7 @@ mod pooling;
 pub mod quantize;
 mod weighted;
 
-use crate::error::Error;
+use crate::error::{Error, Text};
 use crate::format::F16_MAX;
 use crate::kernels::fault;
 use crate::opset::{linked, OpSet, ALL_OPS};
@@ -171,7 +171,7 @@ pub trait OpRules {
 }
 
 impl Cx<'_, '_> {
-    pub(crate) fn bad(&self, problem: &'static str) -> Error {
+    pub(crate) fn bad(&self, problem: Text) -> Error {
         Error::Layer {
             index: self.index,
             problem,
@@ -179,7 +179,7 @@ impl Cx<'_, '_> {
     }
 
     /// The common element type of input and output (int8 or fp16).
-    pub(crate) fn same_elem(&self, what: &'static str) -> Result<ElemType, Error> {
+    pub(crate) fn same_elem(&self, what: Text) -> Result<ElemType, Error> {
         if self.a.elem != self.out.elem || self.a.elem == ElemType::U8 {
             Err(self.bad(what))
         } else {
@@ -194,15 +194,15 @@ impl Cx<'_, '_> {
             .header
             .window
             .output_hw(self.a.shape.h, self.a.shape.w)
-            .ok_or(self.bad("window does not fit the padded input"))?;
+            .ok_or(self.bad(text!("window does not fit the padded input")))?;
         if (oh, ow) != (self.out.shape.h, self.out.shape.w) {
-            return Err(self.bad("output height/width do not match the window"));
+            return Err(self.bad(text!("output height/width do not match the window")));
         }
         Ok(())
     }
 
     /// Input and output shapes are equal.
-    pub(crate) fn same_shape(&self, what: &'static str) -> Result<(), Error> {
+    pub(crate) fn same_shape(&self, what: Text) -> Result<(), Error> {
         if self.a.shape != self.out.shape {
             return Err(self.bad(what));
         }
@@ -210,7 +210,7 @@ impl Cx<'_, '_> {
     }
 
     /// The layer carries no weights and no bias.
-    pub(crate) fn no_weights(&self, what: &'static str) -> Result<(), Error> {
+    pub(crate) fn no_weights(&self, what: Text) -> Result<(), Error> {
         if weights_absent(&self.layer.weights) && bias_absent(&self.layer.bias) {
             Ok(())
         } else {
@@ -219,7 +219,7 @@ impl Cx<'_, '_> {
     }
 
     /// The layer carries no weights, bias or parameters.
-    pub(crate) fn no_blobs(&self, what: &'static str) -> Result<(), Error> {
+    pub(crate) fn no_blobs(&self, what: Text) -> Result<(), Error> {
         if params_absent(&self.layer.params) {
             self.no_weights(what)
         } else {
@@ -228,7 +228,7 @@ impl Cx<'_, '_> {
     }
 
     /// The i32 parameter block (`Requant` or `I32`).
-    pub(crate) fn params_i32(&self, what: &'static str) -> Result<&[i32], Error> {
+    pub(crate) fn params_i32(&self, what: Text) -> Result<&[i32], Error> {
         params_i32(&self.layer.params).ok_or(self.bad(what))
     }
 }
@@ -311,29 +311,31 @@ pub fn check_layer_ops<const OPS: u32>(
     let h = &layer.header;
     let op = h.op;
     match (op.arity(), b) {
-        (2, None) => return Err(cx.bad("add needs two inputs")),
-        (1, Some(_)) => return Err(cx.bad("op takes one input")),
+        (2, None) => return Err(cx.bad(text!("add needs two inputs"))),
+        (1, Some(_)) => return Err(cx.bad(text!("op takes one input"))),
         _ => {}
     }
     if a.shape.elems() == 0 || out.shape.elems() == 0 {
-        return Err(cx.bad("tensors must not be empty"));
+        return Err(cx.bad(text!("tensors must not be empty")));
     }
     if !zp_ok(a) || !zp_ok(out) || b.is_some_and(|b| !zp_ok(b)) {
-        return Err(cx.bad("int8 zero point must be in -128..=127"));
+        return Err(cx.bad(text!("int8 zero point must be in -128..=127")));
     }
     match out.elem {
         ElemType::I8 => {
             let c = h.clamp_i8;
             if !(-128 <= c[0] && c[0] <= c[1] && c[1] <= 127) {
-                return Err(cx.bad("int8 clamp must be ordered and within -128..=127"));
+                return Err(cx.bad(text!("int8 clamp must be ordered and within -128..=127")));
             }
         }
         ElemType::F16 => {
             if !clamp_f32_ok(h.clamp_f32) {
-                return Err(cx.bad("fp16 clamp must be ordered and within -65504..=65504"));
+                return Err(cx.bad(text!(
+                    "fp16 clamp must be ordered and within -65504..=65504"
+                )));
             }
         }
-        ElemType::U8 => return Err(cx.bad("no layer outputs u8")),
+        ElemType::U8 => return Err(cx.bad(text!("no layer outputs u8"))),
     }
     if !linked::<OPS>(op, out.elem) {
         return Err(Error::NotLinked {
@@ -407,7 +409,7 @@ pub fn run_layer_reference(
 /// A tensor's byte length agrees with its record.
 fn check_len(t: &TensorRecord, bytes: usize) -> Result<(), Error> {
     if t.byte_len() != bytes {
-        return Err(fault("tensor bytes do not match the tensor record"));
+        return Err(fault(text!("tensor bytes do not match the tensor record")));
     }
     Ok(())
 }
@@ -460,25 +462,26 @@ pub(crate) const fn not_linked(op: Op, elem: ElemType) -> Error {
 /// one this build leaves out.
 pub(crate) fn unlinked_or_mismatch<const OPS: u32>(op: Op, elem: ElemType) -> Error {
     if linked::<OPS>(op, elem) {
-        fault("op and element types do not go together")
+        fault(text!("op and element types do not go together"))
     } else {
         not_linked(op, elem)
     }
 }
 
 pub(crate) fn as_i8(bytes: &[u8]) -> Result<&[i8], Error> {
-    bytemuck::try_cast_slice(bytes).map_err(|_| fault("cannot view bytes as int8"))
+    bytemuck::try_cast_slice(bytes).map_err(|_| fault(text!("cannot view bytes as int8")))
 }
 
 pub(crate) fn as_i8_mut(bytes: &mut [u8]) -> Result<&mut [i8], Error> {
-    bytemuck::try_cast_slice_mut(bytes).map_err(|_| fault("cannot view bytes as int8"))
+    bytemuck::try_cast_slice_mut(bytes).map_err(|_| fault(text!("cannot view bytes as int8")))
 }
 
 pub(crate) fn as_f16(bytes: &[u8]) -> Result<&[f16], Error> {
-    bytemuck::try_cast_slice(bytes).map_err(|_| fault("fp16 tensor bytes misaligned or odd length"))
+    bytemuck::try_cast_slice(bytes)
+        .map_err(|_| fault(text!("fp16 tensor bytes misaligned or odd length")))
 }
 
 pub(crate) fn as_f16_mut(bytes: &mut [u8]) -> Result<&mut [f16], Error> {
     bytemuck::try_cast_slice_mut(bytes)
-        .map_err(|_| fault("fp16 tensor bytes misaligned or odd length"))
+        .map_err(|_| fault(text!("fp16 tensor bytes misaligned or odd length")))
 }

@@ -21,32 +21,32 @@ impl OpRules for Pixels {
 
     fn check(cx: &Cx<'_, '_>) -> Result<(), Error> {
         if cx.a.elem != U8 {
-            return Err(cx.bad("pixels reads u8 camera bytes"));
+            return Err(cx.bad(text!("pixels reads u8 camera bytes")));
         }
-        cx.same_shape("pixels output shape must equal its input shape")?;
-        cx.no_weights("pixels takes no weights or bias")?;
+        cx.same_shape(text!("pixels output shape must equal its input shape"))?;
+        cx.no_weights(text!("pixels takes no weights or bias"))?;
         let ic = cx.a.shape.c as usize;
         if cx.out.elem == I8 {
-            let p = cx.params_i32("pixels to int8 needs i32 parameters")?;
+            let p = cx.params_i32(text!("pixels to int8 needs i32 parameters"))?;
             if Some(p.len()) != ic.checked_mul(3) {
-                return Err(cx.bad("pixels to int8 needs 3 parameters per channel"));
+                return Err(cx.bad(text!("pixels to int8 needs 3 parameters per channel")));
             }
             if p.chunks_exact(3)
                 .any(|r| r[0] == i32::MIN || !requant_in_range(r[1], r[2]))
             {
-                return Err(cx.bad(
-                    "pixels offset must not be i32::MIN, multiplier in 0..2^31, rshift in 1..=62",
-                ));
+                return Err(cx.bad(text!(
+                    "pixels offset must not be i32::MIN, multiplier in 0..2^31, rshift in 1..=62"
+                )));
             }
         } else {
             let Params::F32(p) = cx.layer.params else {
-                return Err(cx.bad("pixels to fp16 needs f32 parameters"));
+                return Err(cx.bad(text!("pixels to fp16 needs f32 parameters")));
             };
             if Some(p.len()) != ic.checked_mul(2) {
-                return Err(cx.bad("pixels to fp16 needs 2 parameters per channel"));
+                return Err(cx.bad(text!("pixels to fp16 needs 2 parameters per channel")));
             }
             if !p.iter().all(|v| v.is_finite()) {
-                return Err(cx.bad("pixels parameters must be finite"));
+                return Err(cx.bad(text!("pixels parameters must be finite")));
             }
         }
         Ok(())
@@ -62,7 +62,7 @@ impl OpRules for Pixels {
         match (io.ta.elem, io.to.elem) {
             (U8, I8) if const { linked::<OPS>(Op::Pixels, I8) } => {
                 let p = super::params_i32(&io.layer.params)
-                    .ok_or(fault("pixels to int8 needs i32 parameters"))?;
+                    .ok_or(fault(text!("pixels to int8 needs i32 parameters")))?;
                 int8::pixels(
                     io.xa,
                     p,
@@ -73,7 +73,7 @@ impl OpRules for Pixels {
             }
             (U8, F16) if const { linked::<OPS>(Op::Pixels, F16) } => {
                 let Params::F32(p) = io.layer.params else {
-                    return Err(fault("pixels to fp16 needs f32 parameters"));
+                    return Err(fault(text!("pixels to fp16 needs f32 parameters")));
                 };
                 fp16::pixels(io.xa, p, h.clamp_f32, as_f16_mut(io.y)?)
             }

@@ -13,37 +13,43 @@ use crate::repr::{ElemType, Shape, Window};
 /// output shape comes from the record's window (max/avg pool), else the
 /// output is 1×1×C (global average pool).
 pub(crate) fn check(cx: &Cx<'_, '_>, pw: Window, windowed: bool) -> Result<(), Error> {
-    let elem = cx.same_elem("pooling input and output must both be int8 or both fp16")?;
+    let elem = cx.same_elem(text!(
+        "pooling input and output must both be int8 or both fp16"
+    ))?;
     let (a, out) = (cx.a, cx.out);
     if a.shape.c != out.shape.c {
-        return Err(cx.bad("pooling keeps the channel count"));
+        return Err(cx.bad(text!("pooling keeps the channel count")));
     }
     if elem == ElemType::I8 && a.quant != out.quant {
-        return Err(cx.bad("int8 pooling needs the same quantization in and out"));
+        return Err(cx.bad(text!("int8 pooling needs the same quantization in and out")));
     }
-    cx.no_blobs("pooling takes no weights, bias or parameters")?;
+    cx.no_blobs(text!("pooling takes no weights, bias or parameters"))?;
     if windowed {
         cx.window_shape()?;
     } else if out.shape.h != 1 || out.shape.w != 1 {
-        return Err(cx.bad("global average pooling output must be 1x1xC"));
+        return Err(cx.bad(text!("global average pooling output must be 1x1xC")));
     }
     // Every output needs an in-bounds tap (a window entirely in the
     // padding has nothing to pool and would divide by zero).
-    let axis_ok = |out_len: u16, k: u16, s: u16, d: u16, p: u16, len: u16| {
-        (0..out_len as usize).all(|o| kernels::taps_in_bounds(o, k, s, d, p, len as usize) > 0)
-    };
     let (ih, iw) = (a.shape.h, a.shape.w);
     if !axis_ok(out.shape.h, pw.kh, pw.stride_h, pw.dil_h, pw.pad_top, ih)
         || !axis_ok(out.shape.w, pw.kw, pw.stride_w, pw.dil_w, pw.pad_left, iw)
     {
-        return Err(cx.bad("a pooling window lies entirely in the padding"));
+        return Err(cx.bad(text!("a pooling window lies entirely in the padding")));
     }
     // int8 average: Σ(q − zp) over kh·kw taps must fit i32.
     let taps = pw.kh as u64 * pw.kw as u64;
     if elem == ElemType::I8 && taps.saturating_mul(SPAN) > ACC_LIMIT {
-        return Err(cx.bad("pooling window too large for an exact int32 sum"));
+        return Err(cx.bad(text!("pooling window too large for an exact int32 sum")));
     }
     Ok(())
+}
+
+/// Every one of `out_len` outputs along one axis has an in-bounds tap (one
+/// copy for both axes: parse-time only, so its size counts, not its speed).
+#[inline(never)]
+fn axis_ok(out_len: u16, k: u16, s: u16, d: u16, p: u16, len: u16) -> bool {
+    (0..out_len as usize).all(|o| kernels::has_tap_in_bounds(o, k, s, d, p, len as usize))
 }
 
 fn pool<const FAST: bool, P: Pool>(

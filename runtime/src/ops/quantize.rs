@@ -19,13 +19,13 @@ impl OpRules for Quantize {
 
     fn check(cx: &Cx<'_, '_>) -> Result<(), Error> {
         if cx.a.elem != F16 || cx.out.elem != I8 {
-            return Err(cx.bad("quantize reads fp16 and writes int8"));
+            return Err(cx.bad(text!("quantize reads fp16 and writes int8")));
         }
-        cx.same_shape("quantize keeps the shape")?;
+        cx.same_shape(text!("quantize keeps the shape"))?;
         if !scale_in_range(cx.out.quant.scale) {
-            return Err(cx.bad("quantize output scale must be finite and positive"));
+            return Err(cx.bad(text!("quantize output scale must be finite and positive")));
         }
-        cx.no_blobs("quantize takes no weights, bias or parameters")
+        cx.no_blobs(text!("quantize takes no weights, bias or parameters"))
     }
 
     /// 0: no weights.

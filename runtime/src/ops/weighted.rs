@@ -18,12 +18,14 @@ pub(crate) const SPAN: u64 = 255;
 
 /// Checks the per-output-channel requant pairs of an int8 layer.
 fn check_requant(cx: &Cx<'_, '_>, out_c: usize) -> Result<(), Error> {
-    let s = cx.params_i32("int8 layer needs i32 requant parameters")?;
+    let s = cx.params_i32(text!("int8 layer needs i32 requant parameters"))?;
     if Some(s.len()) != out_c.checked_mul(2) {
-        return Err(cx.bad("requant parameters must be 2 per output channel"));
+        return Err(cx.bad(text!("requant parameters must be 2 per output channel")));
     }
     if !s.chunks_exact(2).all(|r| requant_in_range(r[0], r[1])) {
-        return Err(cx.bad("requant multiplier must be in 0..2^31 and rshift in 1..=62"));
+        return Err(cx.bad(text!(
+            "requant multiplier must be in 0..2^31 and rshift in 1..=62"
+        )));
     }
     Ok(())
 }
@@ -56,68 +58,91 @@ fn check_accumulator(
     Ok(())
 }
 
-/// Σ|w| over `w`.
-pub(crate) fn abs_sum(w: impl Iterator<Item = i8>) -> u64 {
-    w.map(|v| v.unsigned_abs() as u64).sum()
+/// Where output channel `o`'s weights are: `count` values from index
+/// `o · first`, `stride` apart (conv2d and dense: rows; depthwise: every
+/// `C`-th value from `o`). A value, not a closure, so `check` is one copy
+/// for every op.
+#[derive(Clone, Copy)]
+pub(crate) struct Rows {
+    pub(crate) first: usize,
+    pub(crate) stride: usize,
+    pub(crate) count: usize,
+}
+
+impl Rows {
+    /// Σ|w| over output channel `o`.
+    fn abs_sum(self, w: &[i8], o: usize) -> u64 {
+        let mut at = o.saturating_mul(self.first);
+        let mut sum = 0u64;
+        for _ in 0..self.count {
+            let Some(v) = w.get(at) else { break };
+            sum += v.unsigned_abs() as u64;
+            at = at.saturating_add(self.stride.max(1));
+        }
+        sum
+    }
 }
 
 /// Weights, bias and parameters of a conv2d, depthwise or dense layer with
-/// `out_c` output channels and `w_len` weights; `abs_sum_of(w, o)` is
-/// Σ|w| over output channel `o` (for the accumulator bound).
+/// `out_c` output channels and `w_len` weights laid out as `rows` (for the
+/// accumulator bound). Out of line: one copy for every op (parse time only).
+#[inline(never)]
 pub(crate) fn check(
     cx: &Cx<'_, '_>,
     elem: ElemType,
     out_c: usize,
     w_len: Option<usize>,
-    abs_sum_of: impl Fn(&[i8], usize) -> u64,
+    rows: Rows,
 ) -> Result<(), Error> {
     let layer = cx.layer;
-    let w_len = w_len.ok_or(cx.bad("weight count overflows"))?;
+    let w_len = w_len.ok_or(cx.bad(text!("weight count overflows")))?;
     match elem {
         ElemType::I8 => {
             let Weights::I8(w) = layer.weights else {
-                return Err(cx.bad("int8 layer needs int8 weights"));
+                return Err(cx.bad(text!("int8 layer needs int8 weights")));
             };
             if w.len() != w_len {
-                return Err(cx.bad("weight length does not match the shapes"));
+                return Err(cx.bad(text!("weight length does not match the shapes")));
             }
             let bias: &[i32] = match layer.bias {
                 Bias::I32(b) => b,
                 Bias::None => &[],
-                Bias::F32(_) => return Err(cx.bad("int8 layer needs int32 bias")),
+                Bias::F32(_) => return Err(cx.bad(text!("int8 layer needs int32 bias"))),
             };
             if !bias.is_empty() && bias.len() != out_c {
-                return Err(cx.bad("bias length must equal the output channels"));
+                return Err(cx.bad(text!("bias length must equal the output channels")));
             }
             check_requant(cx, out_c)?;
-            check_accumulator(cx.index, out_c, bias, |o| abs_sum_of(w, o))
+            check_accumulator(cx.index, out_c, bias, |o| rows.abs_sum(w, o))
         }
         ElemType::F16 => {
             let Weights::F16(w) = layer.weights else {
-                return Err(cx.bad("fp16 layer needs fp16 weights"));
+                return Err(cx.bad(text!("fp16 layer needs fp16 weights")));
             };
             if w.len() != w_len {
-                return Err(cx.bad("weight length does not match the shapes"));
+                return Err(cx.bad(text!("weight length does not match the shapes")));
             }
             // One linear scan at parse time (FORMAT.md, "Limits").
             if !w.iter().all(|v| v.is_finite()) {
-                return Err(cx.bad("fp16 weights must be finite (no inf or NaN)"));
+                return Err(cx.bad(text!("fp16 weights must be finite (no inf or NaN)")));
             }
             match layer.bias {
                 Bias::F32(b) if b.iter().any(|v| !v.is_finite()) => {
-                    return Err(cx.bad("fp16 layer bias must be finite (no inf or NaN)"))
+                    return Err(cx.bad(text!("fp16 layer bias must be finite (no inf or NaN)")))
                 }
                 Bias::F32(b) if b.is_empty() || b.len() == out_c => {}
                 Bias::None => {}
-                Bias::F32(_) => return Err(cx.bad("bias length must equal the output channels")),
-                Bias::I32(_) => return Err(cx.bad("fp16 layer needs f32 bias")),
+                Bias::F32(_) => {
+                    return Err(cx.bad(text!("bias length must equal the output channels")))
+                }
+                Bias::I32(_) => return Err(cx.bad(text!("fp16 layer needs f32 bias"))),
             }
             if !params_absent(&layer.params) {
-                return Err(cx.bad("fp16 layer takes no parameters"));
+                return Err(cx.bad(text!("fp16 layer takes no parameters")));
             }
             Ok(())
         }
-        ElemType::U8 => Err(cx.bad("layer cannot compute in u8")),
+        ElemType::U8 => Err(cx.bad(text!("layer cannot compute in u8"))),
     }
 }
 
@@ -131,18 +156,19 @@ fn clamp_zp(zp: i32) -> i8 {
 pub(crate) fn int8_arith<'a>(io: &Io<'_, 'a>) -> Result<(&'a [i8], int8::Int8Arith<'a>), Error> {
     let l = io.layer;
     let Weights::I8(w) = l.weights else {
-        return Err(fault("int8 layer needs int8 weights"));
+        return Err(fault(text!("int8 layer needs int8 weights")));
     };
     let bias = match l.bias {
         Bias::I32(s) => s,
         Bias::None => &[],
-        Bias::F32(_) => return Err(fault("int8 layer needs int32 bias")),
+        Bias::F32(_) => return Err(fault(text!("int8 layer needs int32 bias"))),
     };
     let ar = int8::Int8Arith {
         zp_in: clamp_zp(io.ta.quant.zero_point),
         zp_out: io.to.quant.zero_point,
         bias,
-        requant: params_i32(&l.params).ok_or(fault("int8 layer needs requant parameters"))?,
+        requant: params_i32(&l.params)
+            .ok_or(fault(text!("int8 layer needs requant parameters")))?,
         clamp: l.header.clamp_i8,
     };
     Ok((w, ar))
@@ -154,12 +180,12 @@ pub(crate) fn f16_arith<'a>(
 ) -> Result<(&'a [half::f16], fp16::F16Arith<'a>), Error> {
     let l = io.layer;
     let Weights::F16(w) = l.weights else {
-        return Err(fault("fp16 layer needs fp16 weights"));
+        return Err(fault(text!("fp16 layer needs fp16 weights")));
     };
     let bias = match l.bias {
         Bias::F32(s) => s,
         Bias::None => &[],
-        Bias::I32(_) => return Err(fault("fp16 layer needs f32 bias")),
+        Bias::I32(_) => return Err(fault(text!("fp16 layer needs f32 bias"))),
     };
     Ok((
         w,
