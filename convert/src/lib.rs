@@ -22,6 +22,7 @@ pub mod mixed;
 pub mod onnx;
 pub mod output;
 pub mod parallel;
+pub mod patch_plan;
 pub mod plan;
 pub mod quantize;
 pub mod sensitivity;
