@@ -1,4 +1,4 @@
-//! Choosing a patch plan (Lin et al., NeurIPS 2021, "MCUNetV2"): the split layer and tile
+//! Choosing a patch plan (Lin et al., NeurIPS 2021, patch-based inference): the split layer and tile
 //! grid of a model's first stage that minimise planned peak workspace subject to a bound on
 //! the extra MACs the recomputed halos cost; the region arithmetic is the runtime's (`patch`).
 

@@ -1,5 +1,4 @@
-//! Patch-by-patch execution of a model's first layers (Lin et al., NeurIPS 2021, "MCUNetV2:
-//! Memory-Efficient Patch-based Inference"): the plan (`PatchPlan`), its checks, the tile regions
+//! Patch-by-patch execution of a model's first layers (Lin et al., NeurIPS 2021, memory-efficient patch-based inference): the plan (`PatchPlan`), its checks, the tile regions
 //! back-propagated through each layer's window, and the tile walk over the ordinary kernels.
 
 use crate::error::Error;
@@ -207,9 +206,9 @@ impl<'m, 'a, const OPS: u32> Patched<'m, 'a, OPS> {
             ));
         }
         let mut ranges = [(0usize, 0usize); 4];
-        for k in 0..2 {
+        for (k, range) in ranges.iter_mut().take(2).enumerate() {
             let s = self.plan.slots[k] as usize;
-            if s % 8 != 0 {
+            if !s.is_multiple_of(8) {
                 return Err(bad("slot offset not a multiple of 8"));
             }
             let e = s
@@ -218,7 +217,7 @@ impl<'m, 'a, const OPS: u32> Patched<'m, 'a, OPS> {
             if e > ws {
                 return Err(bad("slot outside the workspace"));
             }
-            ranges[k] = (s, e);
+            *range = (s, e);
         }
         let span = |t: &TensorRecord| (t.offset as usize, t.offset as usize + t.byte_len());
         ranges[2] = span(&s_out);
@@ -414,7 +413,7 @@ fn pair(
         let (lo, hi) = ws.split_at_mut_checked(src.0).ok_or(outside)?;
         let s = hi.get(..src.1 - src.0).ok_or(outside)?;
         let d = lo.get_mut(dst.0..dst.1).ok_or(outside)?;
-        Ok((&*s, d))
+        Ok((s, d))
     }
 }
 

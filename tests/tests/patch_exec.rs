@@ -1,5 +1,4 @@
-//! Patch-by-patch execution (Lin et al., NeurIPS 2021, "MCUNetV2: Memory-Efficient
-//! Patch-based Inference", section 3.1: run the first stage one output tile at a time,
+//! Patch-by-patch execution (Lin et al., NeurIPS 2021, memory-efficient patch-based inference: run the first stage one output tile at a time,
 //! recomputing the overlapping halo): the patched run gives the same output bytes as the
 //! layer-by-layer run on every reference and bundled model, for every stage the model
 //! allows and several tile grids; hostile plans are refused, never panic.
